@@ -1,0 +1,315 @@
+"""Measurement functions h(x) and their sparse Jacobian on the AC network model.
+
+Every power-type quantity (flow at a branch end, bus injection) and every current magnitude is
+written as a function of a *terminal*: a row ``y`` of admittances and a terminal bus ``k`` so that
+the terminal current is ``I = y·V`` and the complex power ``S = V_k · conj(I)``. For a branch
+from-end, ``y`` is the branch's row of Yf and ``k`` its from bus; for a to-end, Yt and the to bus;
+for a bus injection, the bus's row of Ybus and the bus itself. This keeps one vectorised formula
+for all quantities and for many snapshots at once (states as columns of a matrix).
+
+The state is polar: angles of all buses but the reference(s), then magnitudes of all buses.
+The sparsity pattern does not depend on the topology: a branch that is out of service keeps its
+entries with zero admittance.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+
+from calibra.model.network import Network
+
+# Quantity codes used by the numerical kernels.
+P_FLOW, Q_FLOW, I_MAG, P_INJ, Q_INJ, V_MAG = range(6)
+QUANTITY_CODE = {
+    "p_flow": P_FLOW, "q_flow": Q_FLOW, "i_magnitude": I_MAG,
+    "p_injection": P_INJ, "q_injection": Q_INJ, "v_magnitude": V_MAG,
+}
+BRANCH_END_CODES = (P_FLOW, Q_FLOW, I_MAG)
+#: Smoothing of |I| near zero current: h = sqrt(|I|² + eps²), in per unit.
+CURRENT_EPS = 1e-4
+
+
+@dataclass(frozen=True)
+class _Terminals:
+    """Unique terminals used by a set of quantities, with a fixed sparsity pattern."""
+
+    kind: np.ndarray  # 0 branch from-end, 1 branch to-end, 2 bus injection
+    element: np.ndarray  # branch or bus position
+    bus: np.ndarray  # terminal bus position (the voltage multiplying conj(I))
+    entry_row: np.ndarray  # pattern entries: terminal index
+    entry_col: np.ndarray  # pattern entries: bus position
+    entry_is_terminal: np.ndarray  # bool: column equals the terminal bus
+
+
+class MeasurementFunctions:
+    """h(x) and H(x) for a fixed list of quantities on a network.
+
+    Parameters
+    ----------
+    network : the network model.
+    code : quantity code per row (see ``QUANTITY_CODE``).
+    element : branch position for branch-end quantities, bus position otherwise.
+    end : 0 (from) / 1 (to) for branch-end quantities, ignored otherwise.
+    """
+
+    def __init__(self, network: Network, code, element, end):
+        self.network = network
+        self.code = np.asarray(code, dtype=np.int64)
+        self.element = np.asarray(element, dtype=np.int64)
+        self.end = np.asarray(end, dtype=np.int64)
+        self.m = len(self.code)
+        self._build_terminals()
+        self._build_gather()
+        self._is_p = np.isin(self.code, (P_FLOW, P_INJ))
+        self._is_q = np.isin(self.code, (Q_FLOW, Q_INJ))
+        self._values_cache: dict[bytes, np.ndarray] = {}
+
+    # ------------------------------------------------------------------ structure
+    def _build_terminals(self) -> None:
+        net = self.network
+        adm = net.branch_admittances(np.ones(net.n_branch, bool))
+        is_branch = np.isin(self.code, BRANCH_END_CODES)
+        is_bus_power = np.isin(self.code, (P_INJ, Q_INJ))
+        term_kind = np.where(is_branch, self.end, 2)
+        term_kind = np.where(self.code == V_MAG, -1, term_kind)
+        keys = term_kind * (max(net.n_bus, net.n_branch) + 1) + self.element
+        uses_terminal = term_kind >= 0
+        uniq, inverse = np.unique(keys[uses_terminal], return_inverse=True)
+        self.terminal_of = np.full(self.m, -1, dtype=np.int64)
+        self.terminal_of[uses_terminal] = inverse
+        t_kind = np.empty(len(uniq), np.int64)
+        t_elem = np.empty(len(uniq), np.int64)
+        t_kind[inverse] = term_kind[uses_terminal]
+        t_elem[inverse] = self.element[uses_terminal]
+        t_bus = np.where(
+            t_kind == 0, adm.f[np.minimum(t_elem, net.n_branch - 1)],
+            np.where(t_kind == 1, adm.t[np.minimum(t_elem, net.n_branch - 1)], t_elem),
+        )
+        # Pattern: branch ends have two entries (own bus first); injections the Ybus row.
+        ybus_pattern = self._ybus_pattern()
+        rows, cols = [], []
+        for ti, (k, e) in enumerate(zip(t_kind, t_elem, strict=True)):
+            if k == 0:
+                rows += [ti, ti]
+                cols += [adm.f[e], adm.t[e]]
+            elif k == 1:
+                rows += [ti, ti]
+                cols += [adm.t[e], adm.f[e]]
+            else:
+                nbrs = ybus_pattern.indices[ybus_pattern.indptr[e]:ybus_pattern.indptr[e + 1]]
+                rows += [ti] * len(nbrs)
+                cols += list(nbrs)
+        rows_a = np.asarray(rows, np.int64)
+        cols_a = np.asarray(cols, np.int64)
+        self.terminals = _Terminals(
+            t_kind, t_elem, t_bus, rows_a, cols_a, cols_a == t_bus[rows_a]
+        )
+        self.is_branch = is_branch
+        self.is_bus_power = is_bus_power
+
+    def _ybus_pattern(self) -> sp.csr_matrix:
+        net = self.network
+        adm = net.branch_admittances(np.ones(net.n_branch, bool))
+        n = net.n_bus
+        r = np.r_[adm.f, adm.t, np.arange(n)]
+        c = np.r_[adm.t, adm.f, np.arange(n)]
+        pat = sp.csr_matrix((np.ones(len(r)), (r, c)), shape=(n, n))
+        pat.sum_duplicates()
+        pat.sort_indices()
+        return pat
+
+    # ------------------------------------------------------------------ admittance values
+    def entry_admittances(self, in_service: np.ndarray | None = None) -> np.ndarray:
+        """Admittance of every pattern entry for a topology (cached per topology)."""
+        net = self.network
+        status = net.default_in_service() if in_service is None else np.asarray(in_service, bool)
+        key = status.tobytes()
+        cached = self._values_cache.get(key)
+        if cached is not None:
+            return cached
+        adm = net.branch_admittances(status)
+        tm = self.terminals
+        y = np.zeros(len(tm.entry_row), complex)
+        kind = tm.kind[tm.entry_row]
+        elem = tm.element[tm.entry_row]
+        own = tm.entry_is_terminal
+        b0 = kind == 0
+        b1 = kind == 1
+        y[b0 & own] = adm.yff[elem[b0 & own]]
+        y[b0 & ~own] = adm.yft[elem[b0 & ~own]]
+        y[b1 & own] = adm.ytt[elem[b1 & own]]
+        y[b1 & ~own] = adm.ytf[elem[b1 & ~own]]
+        inj = kind == 2
+        if inj.any():
+            ybus, _, _ = net.admittance_matrices(status)
+            y[inj] = np.asarray(ybus[elem[inj], tm.entry_col[inj]]).ravel()
+        if len(self._values_cache) > 64:
+            self._values_cache.clear()
+        self._values_cache[key] = y
+        return y
+
+    # ------------------------------------------------------------------ evaluation
+    def terminal_currents(self, V: np.ndarray, y: np.ndarray) -> np.ndarray:
+        """Terminal currents I = y·V for complex voltages V of shape (n,) or (n, k)."""
+        tm = self.terminals
+        contrib = y.reshape((-1,) + (1,) * (V.ndim - 1)) * V[tm.entry_col]
+        out = np.zeros((len(tm.kind),) + V.shape[1:], complex)
+        np.add.at(out, tm.entry_row, contrib)
+        return out
+
+    def evaluate(self, vm: np.ndarray, va: np.ndarray, in_service=None) -> np.ndarray:
+        """h(x) in per unit for states given as magnitudes and angles (radians).
+
+        ``vm``/``va`` of shape (n,) give h of shape (m,); of shape (n, k) give (m, k).
+        """
+        y = self.entry_admittances(in_service)
+        V = vm * np.exp(1j * va)
+        current = self.terminal_currents(V, y)
+        return self._from_currents(V, current, vm)
+
+    def _from_currents(self, V, current, vm) -> np.ndarray:
+        shape = (self.m,) + V.shape[1:]
+        h = np.zeros(shape)
+        t = self.terminal_of
+        c = self.code
+        sel = t >= 0
+        s = V[self.terminals.bus[t[sel]]] * np.conj(current[t[sel]])
+        is_p, is_q = self._is_p[sel], self._is_q[sel]
+        hs = np.where(
+            _bcast(is_p, s), s.real,
+            np.where(_bcast(is_q, s), s.imag,
+                     np.sqrt(np.abs(current[t[sel]]) ** 2 + CURRENT_EPS ** 2)),
+        )
+        h[sel] = hs
+        vsel = c == V_MAG
+        h[vsel] = vm[self.element[vsel]]
+        return h
+
+    def jacobian(
+        self, vm: np.ndarray, va: np.ndarray, state: StateLayout, in_service=None
+    ) -> sp.csr_matrix:
+        """Sparse Jacobian ∂h/∂x (m × n_state) at one state (vectors of length n)."""
+        r, c, v = self.jacobian_triplets(vm, va, state, in_service)
+        return sp.csr_matrix((v, (r, c)), shape=(self.m, state.n_state))
+
+    def jacobian_triplets(
+        self, vm: np.ndarray, va: np.ndarray, state: StateLayout, in_service=None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The Jacobian as (row, column, value) arrays, unsorted, without duplicates."""
+        y = self.entry_admittances(in_service)
+        V = vm * np.exp(1j * va)
+        Vn = np.exp(1j * va)
+        tm = self.terminals
+        current = self.terminal_currents(V, y)
+        col = tm.entry_col
+        row = tm.entry_row
+        vk = V[tm.bus[row]]
+        ik = current[row]
+        own = tm.entry_is_terminal
+        # dS/dθ_c and dS/d|V|_c for every pattern entry.
+        ds_dth = 1j * (own * np.conj(ik) * V[col] - vk * np.conj(y * V[col]))
+        ds_dvm = vk * np.conj(y * Vn[col]) + own * np.conj(ik) * Vn[col]
+        di_dth = y * 1j * V[col]
+        di_dvm = y * Vn[col]
+        imag_k = np.sqrt(np.abs(ik) ** 2 + CURRENT_EPS ** 2)
+
+        g = self._gather
+        part_p, part_q, part_i = g["p"], g["q"], g["i"]
+        ci_p = np.conj(ik[part_i[0]])
+        mag = imag_k[part_i[0]]
+        vals = np.concatenate([
+            ds_dth[part_p[0]].real, ds_dvm[part_p[0]].real,
+            ds_dth[part_q[0]].imag, ds_dvm[part_q[0]].imag,
+            (ci_p * di_dth[part_i[0]]).real / mag, (ci_p * di_dvm[part_i[0]]).real / mag,
+            np.ones(g["v"][1].size),
+        ])
+        rows = g["rows"]
+        cols = np.concatenate([
+            state.angle_column[col[part_p[0]]], state.magnitude_column[col[part_p[0]]],
+            state.angle_column[col[part_q[0]]], state.magnitude_column[col[part_q[0]]],
+            state.angle_column[col[part_i[0]]], state.magnitude_column[col[part_i[0]]],
+            state.magnitude_column[self.element[g["v"][1]]],
+        ])
+        keep = cols >= 0
+        return rows[keep], cols[keep], vals[keep]
+
+    def _build_gather(self) -> None:
+        """Index arrays mapping pattern entries to Jacobian rows, by kind of derivative."""
+        tm = self.terminals
+        entries_of = _entries_by_terminal(tm.entry_row, len(tm.kind))
+        t = self.terminal_of
+        g: dict[str, tuple[np.ndarray, np.ndarray]] = {}
+        for part, codes in (("p", (P_FLOW, P_INJ)), ("q", (Q_FLOW, Q_INJ)), ("i", (I_MAG,))):
+            meas = np.flatnonzero(np.isin(self.code, codes))
+            ent, owner = entries_of(t[meas])
+            g[part] = (ent, meas[owner])
+        vmeas = np.flatnonzero(self.code == V_MAG)
+        g["v"] = (vmeas, vmeas)
+        g["rows"] = np.concatenate([
+            g["p"][1], g["p"][1], g["q"][1], g["q"][1], g["i"][1], g["i"][1], vmeas,
+        ])
+        self._gather = g
+
+
+def _bcast(mask: np.ndarray, like: np.ndarray) -> np.ndarray:
+    return mask.reshape((-1,) + (1,) * (like.ndim - 1))
+
+
+def _entries_by_terminal(entry_row: np.ndarray, n_terminals: int):
+    """Return a function mapping terminal ids to (entry indices, owner positions)."""
+    order = np.argsort(entry_row, kind="stable")
+    counts = np.bincount(entry_row, minlength=n_terminals)
+    starts = np.r_[0, np.cumsum(counts)[:-1]]
+
+    def lookup(terms: np.ndarray):
+        n_each = counts[terms]
+        owner = np.repeat(np.arange(len(terms)), n_each)
+        offs = np.arange(n_each.sum()) - np.repeat(np.cumsum(n_each) - n_each, n_each)
+        ent = order[np.repeat(starts[terms], n_each) + offs]
+        return ent, owner
+
+    return lookup
+
+
+@dataclass(frozen=True)
+class StateLayout:
+    """Where each bus's angle and magnitude sit in the state vector.
+
+    ``angle_column[b]`` is -1 for reference buses (angle held fixed) and for buses outside the
+    estimated set; ``magnitude_column[b]`` is -1 for buses outside the estimated set.
+    """
+
+    angle_column: np.ndarray
+    magnitude_column: np.ndarray
+    n_state: int
+
+    @classmethod
+    def build(cls, n_bus: int, references, estimated: np.ndarray | None = None) -> StateLayout:
+        est = np.ones(n_bus, bool) if estimated is None else np.asarray(estimated, bool)
+        ang = est.copy()
+        ang[np.asarray(references, np.int64)] = False
+        angle_column = np.full(n_bus, -1, np.int64)
+        angle_column[ang] = np.arange(ang.sum())
+        magnitude_column = np.full(n_bus, -1, np.int64)
+        magnitude_column[est] = ang.sum() + np.arange(est.sum())
+        return cls(angle_column, magnitude_column, int(ang.sum() + est.sum()))
+
+    def to_state(self, vm: np.ndarray, va: np.ndarray) -> np.ndarray:
+        x = np.zeros(self.n_state)
+        a = self.angle_column >= 0
+        x[self.angle_column[a]] = va[a]
+        m = self.magnitude_column >= 0
+        x[self.magnitude_column[m]] = vm[m]
+        return x
+
+    def apply_step(self, vm: np.ndarray, va: np.ndarray, dx: np.ndarray):
+        va = va.copy()
+        vm = vm.copy()
+        a = self.angle_column >= 0
+        va[a] += dx[self.angle_column[a]]
+        m = self.magnitude_column >= 0
+        vm[m] += dx[self.magnitude_column[m]]
+        return vm, va

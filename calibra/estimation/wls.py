@@ -1,0 +1,279 @@
+"""AC weighted-least-squares state estimation of one snapshot by Gauss-Newton.
+
+Zero-injection buses are held as exact equality constraints with Hachtel's augmented matrix
+(Gjelsvik, Aam & Holten, IEEE Trans. PAS-104(11), 1985; Alvarado & Tinney, IEEE Trans. Power
+Systems 5(3), 1990 — cited from memory), factorized sparse at every iteration::
+
+    [ αI   H̃   0  ] [ ρ  ]   [ Δz̃ ]
+    [ H̃ᵀ   0   Cᵀ ] [ Δx ] = [ 0  ]        H̃ = W^½ H,  Δz̃ = W^½ (z − h(x))
+    [ 0    C   0  ] [ μ  ]   [ −c ]
+
+No heavy weights are used, so the matrix stays well conditioned. An optional Huber
+M-estimator (Huber 1964, from memory) reweights measurements by iteratively reweighted least
+squares, so that a few gross errors in one snapshot do not smear the estimate.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from calibra.estimation.measurements import V_MAG, MeasurementFunctions, StateLayout
+from calibra.estimation.model import MeasurementModel
+from calibra.estimation.observability import Observability, analyse_observability
+
+_VM_RANGE = (0.3, 2.0)
+
+
+@dataclass
+class EstimatorOptions:
+    """Convergence control and the robust option."""
+
+    tolerance: float = 1e-8  #: largest state update (pu / rad) accepted as converged
+    max_iterations: int = 40
+    robust: bool = False
+    #: Huber threshold in standard deviations; 1.5 is the usual choice (from memory).
+    huber_k: float = 1.5
+
+
+@dataclass
+class SnapshotEstimate:
+    """The estimate of one snapshot, with what is needed for residual analysis.
+
+    Arrays of length m are in the order of the measurement model; entries of measurements not
+    used (missing, or touching an unobservable bus) are NaN in ``residual``.
+    """
+
+    vm: np.ndarray
+    va: np.ndarray
+    converged: bool
+    iterations: int
+    reason: str
+    used: np.ndarray
+    weights: np.ndarray
+    h: np.ndarray
+    residual: np.ndarray
+    objective: float
+    dof: int
+    observability: Observability
+    layout: StateLayout
+    constraints_used: np.ndarray
+    constraint_mismatch: float
+    in_service: np.ndarray
+    jacobian: sp.csr_matrix | None = field(default=None, repr=False)
+    constraint_jacobian: sp.csr_matrix | None = field(default=None, repr=False)
+
+
+def _rows_touching(funcs: MeasurementFunctions, bad_bus: np.ndarray) -> np.ndarray:
+    """Measurement rows whose function depends on any bus marked in ``bad_bus``."""
+    tm = funcs.terminals
+    bad_term = np.zeros(len(tm.kind), bool)
+    np.logical_or.at(bad_term, tm.entry_row, bad_bus[tm.entry_col])
+    out = np.zeros(funcs.m, bool)
+    has_t = funcs.terminal_of >= 0
+    out[has_t] = bad_term[funcs.terminal_of[has_t]]
+    v = funcs.code == V_MAG
+    out[v] = bad_bus[funcs.element[v]]
+    return out
+
+
+class Estimator:
+    """WLS estimator bound to one measurement model; caches per measurement pattern."""
+
+    def __init__(self, model: MeasurementModel, options: EstimatorOptions | None = None):
+        self.model = model
+        self.options = options or EstimatorOptions()
+        self._obs_cache: dict[bytes, Observability] = {}
+        self._default_status = model.network.default_in_service()
+
+    # ------------------------------------------------------------------ observability
+    def observability(self, available: np.ndarray, in_service: np.ndarray) -> Observability:
+        key = np.packbits(available).tobytes() + np.packbits(in_service).tobytes()
+        obs = self._obs_cache.get(key)
+        if obs is None:
+            net = self.model.network
+            obs = analyse_observability(
+                self.model.functions, available, self.model.constraints, in_service,
+                net.reference_position,
+            )
+            if len(self._obs_cache) > 4096:
+                self._obs_cache.clear()
+            self._obs_cache[key] = obs
+        return obs
+
+    # ------------------------------------------------------------------ one snapshot
+    def estimate(
+        self,
+        z: np.ndarray,
+        available: np.ndarray | None = None,
+        in_service: np.ndarray | None = None,
+        start: tuple[np.ndarray, np.ndarray] | None = None,
+        keep_jacobian: bool = True,
+    ) -> SnapshotEstimate:
+        """Estimate the state from measurements ``z`` in per unit (NaN = missing)."""
+        model, opt = self.model, self.options
+        net = model.network
+        n = net.n_bus
+        z = np.asarray(z, float)
+        avail = np.isfinite(z)
+        if available is not None:
+            avail &= np.asarray(available, bool)
+        status = self._default_status if in_service is None else np.asarray(in_service, bool)
+        obs = self.observability(avail, status)
+        layout = StateLayout.build(n, obs.references, obs.estimated_buses)
+        lost = ~obs.estimated_buses
+        used = avail & ~_rows_touching(model.functions, lost)
+        cons = model.constraints
+        cons_used = ~_rows_touching(cons, lost) if cons.m else np.zeros(0, bool)
+
+        if start is not None:
+            vm, va = np.array(start[0], float), np.array(start[1], float)
+            bad = ~np.isfinite(vm) | ~np.isfinite(va)
+            vm[bad], va[bad] = 1.0, 0.0
+        else:
+            vm, va = self._flat_start(z, used)
+        for ref in obs.references:
+            if start is None:
+                va[ref] = 0.0
+
+        idx = np.flatnonzero(used)
+        cidx = np.flatnonzero(cons_used)
+        sigma = model.sigma_pu[idx]
+        weights = np.ones(model.m)
+        w_used = np.ones(idx.size)
+        converged, reason, it = False, "", 0
+        H = C = system = None
+        step = np.inf
+        if layout.n_state == 0 or idx.size == 0:
+            reason = "no observable part: " + obs.reason
+        else:
+            z0 = np.where(used, z, 0.0)
+            inv_sigma = np.where(used, 1.0 / model.sigma_pu, 0.0)
+            for it in range(1, opt.max_iterations + 1):
+                r = z0 - model.functions.evaluate(vm, va, status)
+                if opt.robust and it > 1:
+                    w_used = _huber_weights(r[idx] / sigma, opt.huber_k)
+                    weights[idx] = w_used
+                H = model.functions.jacobian_triplets(vm, va, layout, status)
+                C = _constraint_rows(cons, cidx, vm, va, layout, status)
+                c = cons.evaluate(vm, va, status)[cidx] if cidx.size else np.zeros(0)
+                if system is None:
+                    system = _AugmentedSystem(H, C, model.m, layout.n_state, cidx.size)
+                try:
+                    dx = system.solve(H, C, np.sqrt(weights) * inv_sigma, r, c)
+                except RuntimeError as exc:
+                    reason = f"gain matrix singular at iteration {it}: {exc}"
+                    break
+                vm, va = layout.apply_step(vm, va, dx)
+                step = float(np.abs(dx).max())
+                if not np.isfinite(step) or vm[obs.estimated_buses].min() < _VM_RANGE[0] \
+                        or vm[obs.estimated_buses].max() > _VM_RANGE[1]:
+                    reason = f"diverged at iteration {it} (voltage out of range)"
+                    break
+                if step < opt.tolerance and (not opt.robust or it > 2):
+                    converged = True
+                    break
+            else:
+                reason = f"no convergence in {opt.max_iterations} iterations (last step {step:.2e})"
+        if converged:
+            reason = "converged"
+            if not obs.observable:
+                reason += " on the observable part; " + obs.reason
+
+        h_all = model.functions.evaluate(vm, va, status)
+        residual = np.full(model.m, np.nan)
+        residual[idx] = z[idx] - h_all[idx]
+        objective = float(np.sum((residual[idx] / model.sigma_pu[idx]) ** 2))
+        mismatch = float(np.abs(cons.evaluate(vm, va, status)[cidx]).max()) if cidx.size else 0.0
+        if converged and keep_jacobian:
+            # The Jacobian at the converged state, restricted to the rows used.
+            H = model.functions.jacobian(vm, va, layout, status)[idx]
+            C = cons.jacobian(vm, va, layout, status)[cidx]
+        else:
+            H = C = None
+        vm_out, va_out = vm.copy(), va.copy()
+        vm_out[lost], va_out[lost] = np.nan, np.nan
+        return SnapshotEstimate(
+            vm=vm_out, va=va_out, converged=converged, iterations=it, reason=reason, used=used,
+            weights=weights, h=h_all, residual=residual, objective=objective,
+            dof=int(idx.size - layout.n_state + cidx.size), observability=obs, layout=layout,
+            constraints_used=cons_used, constraint_mismatch=mismatch, in_service=status,
+            jacobian=H if keep_jacobian else None,
+            constraint_jacobian=C if keep_jacobian else None,
+        )
+
+    def _flat_start(self, z: np.ndarray, used: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Flat angles; magnitudes from measured voltages where there are any, else 1.0."""
+        model = self.model
+        n = model.network.n_bus
+        vm = np.ones(n)
+        vmeas = used & (model.code == V_MAG)
+        if vmeas.any():
+            buses = model.functions.element[vmeas]
+            vm[:] = float(np.median(z[vmeas]))
+            vm[buses] = z[vmeas]
+        return vm, np.zeros(n)
+
+
+def _huber_weights(u: np.ndarray, k: float) -> np.ndarray:
+    a = np.abs(u)
+    return np.where(a <= k, 1.0, k / np.maximum(a, 1e-300))
+
+
+def _constraint_rows(cons: MeasurementFunctions, cidx: np.ndarray, vm, va, layout, status):
+    """Triplets of the constraint Jacobian for the constraints in use, renumbered 0..len-1."""
+    if cidx.size == 0:
+        return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
+    r, c, v = cons.jacobian_triplets(vm, va, layout, status)
+    new_row = np.full(cons.m, -1, np.int64)
+    new_row[cidx] = np.arange(cidx.size)
+    keep = new_row[r] >= 0
+    return new_row[r[keep]], c[keep], v[keep]
+
+
+class _AugmentedSystem:
+    """Hachtel's augmented matrix with a sparsity pattern fixed for one state layout.
+
+    The (row, column) pattern of H and C is identical at every iteration, so the compressed
+    column structure is computed once and only the values are refreshed.
+    """
+
+    def __init__(self, H, C, m: int, nx: int, nc: int):
+        hr, hc, _ = H
+        cr, cc, _ = C
+        self.m, self.nx, self.nc = m, nx, nc
+        self.hr, self.hc = hr, hc
+        diag = np.arange(m)
+        rows = np.concatenate([diag, hr, m + hc, m + cc, m + nx + cr])
+        cols = np.concatenate([diag, m + hc, hr, m + nx + cr, m + cc])
+        size = m + nx + nc
+        order = np.lexsort((rows, cols))
+        self.order = order
+        self.indices = rows[order].astype(np.int32)
+        self.indptr = np.searchsorted(cols[order], np.arange(size + 1)).astype(np.int32)
+        self.size = size
+
+    def solve(self, H, C, sqrt_w: np.ndarray, r: np.ndarray, c: np.ndarray) -> np.ndarray:
+        """Gauss-Newton step Δx; rows with zero weight (missing) stay as zero rows of H̃."""
+        m, nx = self.m, self.nx
+        hv = H[2] * sqrt_w[self.hr]
+        cv = C[2]
+        # α near the smallest column norm of H̃ balances the blocks (Björck's scaling idea).
+        col_norm = np.sqrt(np.bincount(self.hc, hv ** 2, minlength=nx))
+        positive = col_norm > 0
+        alpha = 0.5 * float(col_norm[positive].min()) if positive.any() else 1.0
+        vals = np.concatenate([np.full(m, alpha), hv, hv, cv, cv])[self.order]
+        K = sp.csc_matrix((vals, self.indices, self.indptr), shape=(self.size, self.size))
+        rhs = np.concatenate([sqrt_w * r, np.zeros(nx), -c])
+        try:
+            lu = spla.splu(K, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.01,
+                           options={"SymmetricMode": True})
+        except RuntimeError as exc:  # "Factor is exactly singular"
+            raise RuntimeError(str(exc)) from None
+        sol = lu.solve(rhs)
+        if not np.all(np.isfinite(sol)):
+            raise RuntimeError("non-finite solution")
+        return sol[m:m + nx]
