@@ -29,7 +29,7 @@ QUANTITY_CODE = {
 }
 BRANCH_END_CODES = (P_FLOW, Q_FLOW, I_MAG)
 #: Smoothing of |I| near zero current: h = sqrt(|I|² + eps²), in per unit.
-CURRENT_EPS = 1e-4
+CURRENT_EPS = 1e-5
 
 
 @dataclass(frozen=True)
