@@ -65,7 +65,10 @@ class MeasurementFunctions:
         self._build_gather()
         self._is_p = np.isin(self.code, (P_FLOW, P_INJ))
         self._is_q = np.isin(self.code, (Q_FLOW, Q_INJ))
+        self._build_aggregators()
         self._values_cache: dict[bytes, np.ndarray] = {}
+        self._pattern_cache: dict[tuple[bytes, bytes], tuple] = {}
+        self._operator_cache: dict[int, tuple] = {}
 
     # ------------------------------------------------------------------ structure
     def _build_terminals(self) -> None:
@@ -152,40 +155,28 @@ class MeasurementFunctions:
         return y
 
     # ------------------------------------------------------------------ evaluation
-    def terminal_currents(self, V: np.ndarray, y: np.ndarray) -> np.ndarray:
-        """Terminal currents I = y·V for complex voltages V of shape (n,) or (n, k)."""
-        tm = self.terminals
-        contrib = y.reshape((-1,) + (1,) * (V.ndim - 1)) * V[tm.entry_col]
-        out = np.zeros((len(tm.kind),) + V.shape[1:], complex)
-        np.add.at(out, tm.entry_row, contrib)
-        return out
-
     def evaluate(self, vm: np.ndarray, va: np.ndarray, in_service=None) -> np.ndarray:
         """h(x) in per unit for states given as magnitudes and angles (radians).
 
         ``vm``/``va`` of shape (n,) give h of shape (m,); of shape (n, k) give (m, k).
         """
-        y = self.entry_admittances(in_service)
+        _, T = self._admittance_operator(in_service)
         V = vm * np.exp(1j * va)
-        current = self.terminal_currents(V, y)
-        return self._from_currents(V, current, vm)
+        return self._from_currents(V, T @ V, vm)
 
     def _from_currents(self, V, current, vm) -> np.ndarray:
-        shape = (self.m,) + V.shape[1:]
-        h = np.zeros(shape)
+        h = np.empty((self.m,) + V.shape[1:])
+        s_term = V[self.terminals.bus] * np.conj(current)
         t = self.terminal_of
-        c = self.code
-        sel = t >= 0
-        s = V[self.terminals.bus[t[sel]]] * np.conj(current[t[sel]])
-        is_p, is_q = self._is_p[sel], self._is_q[sel]
-        hs = np.where(
-            _bcast(is_p, s), s.real,
-            np.where(_bcast(is_q, s), s.imag,
-                     np.sqrt(np.abs(current[t[sel]]) ** 2 + CURRENT_EPS ** 2)),
-        )
-        h[sel] = hs
-        vsel = c == V_MAG
-        h[vsel] = vm[self.element[vsel]]
+        for mask, values in (
+            (self._is_p, lambda sel: s_term[t[sel]].real),
+            (self._is_q, lambda sel: s_term[t[sel]].imag),
+            (self.code == I_MAG,
+             lambda sel: np.sqrt(np.abs(current[t[sel]]) ** 2 + CURRENT_EPS ** 2)),
+            (self.code == V_MAG, lambda sel: vm[self.element[sel]]),
+        ):
+            if mask.any():
+                h[mask] = values(mask)
         return h
 
     def jacobian(
@@ -198,43 +189,135 @@ class MeasurementFunctions:
     def jacobian_triplets(
         self, vm: np.ndarray, va: np.ndarray, state: StateLayout, in_service=None
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """The Jacobian as (row, column, value) arrays, unsorted, without duplicates."""
-        y = self.entry_admittances(in_service)
-        V = vm * np.exp(1j * va)
-        Vn = np.exp(1j * va)
-        tm = self.terminals
-        current = self.terminal_currents(V, y)
-        col = tm.entry_col
-        row = tm.entry_row
-        vk = V[tm.bus[row]]
-        ik = current[row]
-        own = tm.entry_is_terminal
-        # dS/dθ_c and dS/d|V|_c for every pattern entry.
-        ds_dth = 1j * (own * np.conj(ik) * V[col] - vk * np.conj(y * V[col]))
-        ds_dvm = vk * np.conj(y * Vn[col]) + own * np.conj(ik) * Vn[col]
-        di_dth = y * 1j * V[col]
-        di_dvm = y * Vn[col]
-        imag_k = np.sqrt(np.abs(ik) ** 2 + CURRENT_EPS ** 2)
+        """The Jacobian as (row, column, value) arrays, unsorted, without duplicates.
 
+        For states of shape (n, k) the values have shape (nnz, k): one Jacobian per column,
+        all with the same sparsity pattern.
+        """
+        rows, cols = self.jacobian_pattern(state)
+        vals = self.jacobian_values(vm, va, state, in_service)
+        return rows, cols, vals
+
+    def jacobian_pattern(self, state: StateLayout) -> tuple[np.ndarray, np.ndarray]:
+        """Row and column of every Jacobian nonzero for a state layout (cached)."""
+        rows, cols, _ = self._pattern_entry(state)
+        return rows, cols
+
+    def _pattern_entry(self, state: StateLayout) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        key = (state.angle_column.tobytes(), state.magnitude_column.tobytes())
+        cached = self._pattern_cache.get(key)
+        if cached is not None:
+            return cached
         g = self._gather
-        part_p, part_q, part_i = g["p"], g["q"], g["i"]
-        ci_p = np.conj(ik[part_i[0]])
-        mag = imag_k[part_i[0]]
-        vals = np.concatenate([
-            ds_dth[part_p[0]].real, ds_dvm[part_p[0]].real,
-            ds_dth[part_q[0]].imag, ds_dvm[part_q[0]].imag,
-            (ci_p * di_dth[part_i[0]]).real / mag, (ci_p * di_dvm[part_i[0]]).real / mag,
-            np.ones(g["v"][1].size),
-        ])
-        rows = g["rows"]
+        col = self.terminals.entry_col
+        ent_p, ent_q, ent_i = g["p"][0], g["q"][0], g["i"][0]
         cols = np.concatenate([
-            state.angle_column[col[part_p[0]]], state.magnitude_column[col[part_p[0]]],
-            state.angle_column[col[part_q[0]]], state.magnitude_column[col[part_q[0]]],
-            state.angle_column[col[part_i[0]]], state.magnitude_column[col[part_i[0]]],
+            state.angle_column[col[ent_p]], state.magnitude_column[col[ent_p]],
+            state.angle_column[col[ent_q]], state.magnitude_column[col[ent_q]],
+            state.angle_column[col[ent_i]], state.magnitude_column[col[ent_i]],
             state.magnitude_column[self.element[g["v"][1]]],
         ])
         keep = cols >= 0
-        return rows[keep], cols[keep], vals[keep]
+        result = (g["rows"][keep], cols[keep], keep)
+        if len(self._pattern_cache) > 64:
+            self._pattern_cache.clear()
+        self._pattern_cache[key] = result
+        return result
+
+    def jacobian_values(self, vm, va, state: StateLayout, in_service=None) -> np.ndarray:
+        """Values of the Jacobian nonzeros, in the order of :meth:`jacobian_pattern`."""
+        y, T = self._admittance_operator(in_service)
+        V = vm * np.exp(1j * va)
+        Vn = np.exp(1j * va)
+        tm = self.terminals
+        current = T @ V
+        col = tm.entry_col
+        row = tm.entry_row
+        yy = _bcast(y, V[col])
+        own = _bcast(tm.entry_is_terminal, V[col])
+        vk = V[tm.bus[row]]
+        ik = current[row]
+        vc, vnc = V[col], Vn[col]
+        # dS/dθ_c and dS/d|V|_c for every pattern entry.
+        ds_dth = 1j * (own * np.conj(ik) * vc - vk * np.conj(yy * vc))
+        ds_dvm = vk * np.conj(yy * vnc) + own * np.conj(ik) * vnc
+        g = self._gather
+        ent_p, ent_q, ent_i = g["p"][0], g["q"][0], g["i"][0]
+        ci = np.conj(ik[ent_i])
+        mag = np.sqrt(np.abs(ik[ent_i]) ** 2 + CURRENT_EPS ** 2)
+        di_dth = yy[ent_i] * 1j * vc[ent_i]
+        di_dvm = yy[ent_i] * vnc[ent_i]
+        vals = np.concatenate([
+            ds_dth[ent_p].real, ds_dvm[ent_p].real,
+            ds_dth[ent_q].imag, ds_dvm[ent_q].imag,
+            (ci * di_dth).real / mag, (ci * di_dvm).real / mag,
+            np.ones((g["v"][1].size,) + V.shape[1:]),
+        ])
+        return vals[self._pattern_entry(state)[2]]
+
+    def _admittance_operator(self, in_service=None) -> tuple[np.ndarray, sp.csr_matrix]:
+        """Entry admittances and the sparse operator T with terminal currents I = T·V."""
+        y = self.entry_admittances(in_service)
+        key = id(y)
+        cached = self._operator_cache.get(key)
+        if cached is not None and cached[0] is y:
+            return y, cached[1]
+        tm = self.terminals
+        T = sp.csr_matrix((y, (tm.entry_row, tm.entry_col)),
+                          shape=(len(tm.kind), self.network.n_bus))
+        if len(self._operator_cache) > 64:
+            self._operator_cache.clear()
+        self._operator_cache[key] = (y, T)
+        return y, T
+
+    def gradient(self, vm: np.ndarray, va: np.ndarray, weighted: np.ndarray,
+                 state: StateLayout, in_service=None) -> np.ndarray:
+        """Hᵀ·w for states (n, k) and row weights ``weighted`` (m, k), without forming H.
+
+        With ωₜ = ρᴾₜ − jρᵠₜ the weights of a terminal's P and Q rows, aₜ = V_bus(t)·ωₜ and
+        κₜ = ρᴵₜ·conj(Iₜ)/|Iₜ| for current rows (B: terminal→bus incidence, T: terminal
+        admittance rows)::
+
+            ∂/∂θ   = Re( jV ∘ Bᵀ(conj(I)∘ω) − j conj(V) ∘ Tᴴa + jV ∘ Tᵀκ )
+            ∂/∂|V| = Re( Vn ∘ Bᵀ(conj(I)∘ω) + conj(Vn) ∘ Tᴴa + Vn ∘ Tᵀκ ) + ρⱽ
+        """
+        _, T = self._admittance_operator(in_service)
+        agg_p, agg_q, agg_i, agg_v, inc = self._aggregators
+        V = vm * np.exp(1j * va)
+        Vn = np.exp(1j * va)
+        current = T @ V
+        omega = agg_p @ weighted - 1j * (agg_q @ weighted)
+        a = V[self.terminals.bus] * omega
+        b_part = inc.T @ (np.conj(current) * omega)
+        t_part = T.conj().T @ a
+        mag = np.sqrt(np.abs(current) ** 2 + CURRENT_EPS ** 2)
+        kappa = (agg_i @ weighted) * np.conj(current) / mag
+        i_part = T.T @ kappa
+        g_th = (1j * V * b_part - 1j * np.conj(V) * t_part + 1j * V * i_part).real
+        g_vm = (Vn * b_part + np.conj(Vn) * t_part + Vn * i_part).real + agg_v @ weighted
+        out = np.zeros((state.n_state,) + np.shape(vm)[1:])
+        ang = state.angle_column >= 0
+        out[state.angle_column[ang]] = g_th[ang]
+        mg = state.magnitude_column >= 0
+        out[state.magnitude_column[mg]] = g_vm[mg]
+        return out
+
+    def _build_aggregators(self) -> None:
+        """Sparse maps from measurement rows to their terminals (by part) and buses."""
+        nt = len(self.terminals.kind)
+        n = self.network.n_bus
+        rows = np.arange(self.m)
+
+        def agg(mask, target, size):
+            sel = rows[mask]
+            return sp.csr_matrix((np.ones(sel.size), (target[sel], sel)), shape=(size, self.m))
+
+        t = np.maximum(self.terminal_of, 0)
+        inc = sp.csr_matrix((np.ones(nt), (np.arange(nt), self.terminals.bus)), shape=(nt, n))
+        self._aggregators = (
+            agg(self._is_p, t, nt), agg(self._is_q, t, nt), agg(self.code == I_MAG, t, nt),
+            agg(self.code == V_MAG, self.element, n), inc,
+        )
 
     def _build_gather(self) -> None:
         """Index arrays mapping pattern entries to Jacobian rows, by kind of derivative."""

@@ -1,0 +1,316 @@
+"""The week engine: estimate blocks of snapshots at once, with residual statistics.
+
+For a block of snapshots with one topology, every snapshot is solved by the same fixed-matrix
+iteration on the equality-constrained WLS optimality conditions::
+
+    [ G₀  C₀ᵀ ] [ Δx ]   [ H(x)ᵀ W (z − h(x)) − C(x)ᵀ λ ]
+    [ C₀  0   ] [ Δλ ] = [ −c(x)                         ]
+
+G₀ and C₀ are taken once at a reference snapshot's converged state; h, H, c and C are
+evaluated exactly for every snapshot (vectorised over the block, states as matrix columns).
+The fixed point satisfies the exact optimality conditions, so the converged states equal a fully
+converged Gauss-Newton solution of each snapshot (checked in the tests to 1e-6); G₀ only sets the
+speed of convergence. Snapshots that do not converge, or whose measurement pattern is not fully
+observable, fall back to the per-snapshot estimator and are reported as such.
+
+Residual covariance: Ω = R − H P Hᵀ is computed once per block at the reference state for the
+block's full measurement set; a snapshot that misses the measurements M gets the exact update
+Ω'ᵢᵢ = Ωᵢᵢ − Ωᵢₘ Ωₘₘ⁻¹ Ωₘᵢ (a block Sherman-Morrison-Woodbury step), so only the change of
+operating point within the block is approximated (see DEVELOPERS.md for the measured accuracy).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+import scipy.linalg as la
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from calibra.estimation.measurements import StateLayout
+from calibra.estimation.residuals import CRITICAL_S, analyse_residuals
+from calibra.estimation.wls import Estimator
+
+#: Largest number of missing measurements handled by the Woodbury update of Ω.
+MAX_WOODBURY = 400
+
+
+@dataclass
+class BlockResult:
+    """Estimates and residual statistics of k snapshots (arrays float32, NaN = not available).
+
+    ``omega`` is the diagonal of the residual covariance Ω (pu²); ``outcomes`` one row per
+    snapshot: converged, iterations, method ("block" or "single"), reason, objective, dof,
+    chi2_threshold, observable, n_used.
+    """
+
+    vm: np.ndarray
+    va: np.ndarray
+    residual: np.ndarray
+    omega: np.ndarray
+    outcomes: pd.DataFrame
+
+
+@dataclass
+class _MissingGroup:
+    """Snapshots of a block that miss the same base measurements M, with Ωₘₘ factorized."""
+
+    members: np.ndarray  # snapshot positions in the block
+    missing: np.ndarray  # positions in the base measurement list
+    factor: np.ndarray | None  # Ωₘₘ⁻¹, None when M is empty or leaves M unobservable
+    omega_diag: np.ndarray  # Ωᵢᵢ of the snapshot's pattern, over the base list
+    h_missing: np.ndarray | None = None  # Hₘ (|M| × nx), dense
+    q_missing: np.ndarray | None = None  # K₀⁻¹ [Hₘᵀ; 0] ((nx + nc) × |M|)
+
+
+class BlockSolver:
+    """Solves many snapshots of one topology around one reference state together."""
+
+    def __init__(self, estimator: Estimator, status: np.ndarray, tolerance: float = 1e-8,
+                 max_iterations: int = 40):
+        self.estimator = estimator
+        self.model = estimator.model
+        self.status = status
+        self.tolerance = tolerance
+        self.max_iterations = max_iterations
+
+    # ------------------------------------------------------------------ public
+    def solve(self, Z: np.ndarray, confidence: float = 0.99) -> BlockResult:
+        """Estimate every row of Z (k × m, per unit, NaN = missing)."""
+        model = self.model
+        k, m = Z.shape
+        n = model.network.n_bus
+        avail = np.isfinite(Z)
+        out = BlockResult(
+            np.full((k, n), np.nan, np.float32), np.full((k, n), np.nan, np.float32),
+            np.full((k, m), np.nan, np.float32), np.full((k, m), np.nan, np.float32),
+            pd.DataFrame(),
+        )
+        rows: list[dict] = [{} for _ in range(k)]
+        single = np.ones(k, bool)
+        ref = self._reference(Z, avail)
+        if ref is not None:
+            self._prepare(ref, avail.any(axis=0))
+            groups = self._groups(avail)
+            blockable = [g for g in groups if g.factor is not None or g.missing.size == 0]
+            if blockable:
+                members = np.concatenate([g.members for g in blockable])
+                done, iters = self._iterate(Z, avail, blockable, out)
+                for i in members[done[members]]:
+                    single[i] = False
+                    rows[i] = {"converged": True, "iterations": int(iters[i]), "method": "block",
+                               "reason": "converged", "observable": True}
+                self._residuals(Z, avail, blockable, single, out)
+        for i in np.flatnonzero(single):
+            rows[i] = self._single(i, Z[i], confidence, out)
+        sigma2 = model.sigma_pu ** 2
+        for i in range(k):
+            used = np.isfinite(out.residual[i])
+            rows[i]["n_used"] = int(used.sum())
+            rows[i]["objective"] = float(np.sum(out.residual[i][used].astype(float) ** 2
+                                                / sigma2[used]))
+        out.outcomes = pd.DataFrame(rows)
+        return out
+
+    # ------------------------------------------------------------------ set-up
+    def _reference(self, Z: np.ndarray, avail: np.ndarray):
+        """A converged, fully observable snapshot of the block (most measurements first)."""
+        base = avail.any(axis=0)
+        if not base.any() or not self.estimator.observability(base, self.status).observable:
+            return None
+        for cand in np.argsort(-avail.sum(axis=1), kind="stable")[:5]:
+            est = self.estimator.estimate(Z[cand], None, self.status)
+            if est.converged and est.observability.observable:
+                return est
+        return None
+
+    def _prepare(self, ref, base: np.ndarray) -> None:
+        """Iteration matrix K₀ at the reference state and Q = K₀⁻¹ [H₀ᵀ; 0] for the base set."""
+        model, status = self.model, self.status
+        funcs, cons = model.functions, model.constraints
+        layout: StateLayout = ref.layout
+        nx = layout.n_state
+        cidx = np.flatnonzero(ref.constraints_used)
+        nc = cidx.size
+        idx = np.flatnonzero(base)
+        var = model.sigma_pu[idx] ** 2
+        H0 = funcs.jacobian(ref.vm, ref.va, layout, status)[idx].tocsr()
+        G0 = (H0.T @ sp.diags(1.0 / var) @ H0).tocsc()
+        C0 = cons.jacobian(ref.vm, ref.va, layout, status)[cidx]
+        d = np.r_[np.sqrt(np.maximum(G0.diagonal(), 1e-300)), np.ones(nc)]
+        Dinv = sp.diags(1.0 / d)
+        K0 = sp.bmat([[G0, C0.T], [C0, None]], format="csc") if nc else G0
+        lu = spla.splu((Dinv @ K0 @ Dinv).tocsc(), permc_spec="MMD_AT_PLUS_A",
+                       diag_pivot_thresh=0.01)
+        self._solve_k0 = lambda B: lu.solve(B / (d[:, None] if B.ndim == 2 else d)) / (
+            d[:, None] if B.ndim == 2 else d)
+        U = np.zeros((nx + nc, idx.size))
+        U[:nx] = (H0.T @ sp.diags(1.0 / var)).toarray()
+        Q = self._solve_k0(U)  # K₀⁻¹ U W-scaled: state block is P H₀ᵀ R⁻¹
+        self._Qw = Q  # columns: K₀⁻¹ [H₀ᵀ R⁻¹]ᵢ
+        self._HP = (Q[:nx] * var[None, :]).T  # rows H₀ᵢ P (idx × nx)
+        self._H0 = H0
+        # A dense copy makes row access cheap; only when it stays small.
+        self._H0_dense = H0.toarray() if idx.size * nx <= 5_000_000 else None
+        self._var = var
+        self._idx = idx
+        self._omega_diag = var - np.asarray((H0.multiply(self._HP)).sum(axis=1)).ravel()
+        self._layout, self._cidx, self._nx, self._ref = layout, cidx, nx, ref
+
+    def _groups(self, avail: np.ndarray) -> list[_MissingGroup]:
+        """Group snapshots by the base measurements they miss; factorize each Ωₘₘ."""
+        idx = self._idx
+        miss = ~avail[:, idx]
+        keys = np.packbits(miss, axis=1)
+        _, first, inverse = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+        inverse = inverse.ravel()
+        groups = []
+        for g, f in enumerate(first):
+            members = np.flatnonzero(inverse == g)
+            mset = np.flatnonzero(miss[f])
+            if mset.size == 0:
+                groups.append(_MissingGroup(members, mset, None, self._omega_diag))
+                continue
+            if mset.size > MAX_WOODBURY:
+                groups.append(_MissingGroup(members, mset, None, self._omega_diag))
+                continue
+            om_ma = self._omega_rows(mset)
+            om_mm = om_ma[:, mset]
+            scale = np.sqrt(self._var[mset])
+            try:
+                fac = la.cho_factor(om_mm / scale[:, None] / scale[None, :], lower=True)
+            except la.LinAlgError:
+                fac = None
+            if fac is not None and np.diag(fac[0]).min() ** 2 < CRITICAL_S:
+                fac = None  # removing M leaves the snapshot unobservable
+            if fac is None:
+                groups.append(_MissingGroup(members, mset, None, self._omega_diag))
+                continue
+            inv = la.cho_solve(fac, np.eye(mset.size)) / scale[:, None] / scale[None, :]
+            diag = self._omega_diag - np.sum(om_ma * (inv @ om_ma), axis=0)
+            groups.append(_MissingGroup(
+                members, mset, inv, np.maximum(diag, 0.0),
+                self._H0_rows(mset), self._Qw[:, mset] * self._var[mset][None, :],
+            ))
+        return groups
+
+    def _H0_rows(self, rows: np.ndarray) -> np.ndarray:
+        if self._H0_dense is not None:
+            return self._H0_dense[rows]
+        return self._H0[rows].toarray()
+
+    def _omega_rows(self, rows: np.ndarray) -> np.ndarray:
+        """Rows of Ω = R − H P Hᵀ over the base list."""
+        om = -(self._H0 @ self._HP[rows].T).T
+        om[np.arange(rows.size), rows] += self._var[rows]
+        return om
+
+    # ------------------------------------------------------------------ block iteration
+    def _iterate(self, Z: np.ndarray, avail: np.ndarray, groups: list[_MissingGroup],
+                 out: BlockResult):
+        model, status, layout = self.model, self.status, self._layout
+        funcs, cons = model.functions, model.constraints
+        nx, cidx = self._nx, self._cidx
+        nc = cidx.size
+        ref = self._ref
+        k = Z.shape[0]
+        inv_var = 1.0 / model.sigma_pu ** 2
+        group_of = np.full(k, -1, np.int64)
+        for gi, g in enumerate(groups):
+            group_of[g.members] = gi
+        W = np.where(avail, inv_var, 0.0).T
+        Zt = np.where(avail, Z, 0.0).T
+        vm = np.repeat(ref.vm[:, None], k, axis=1)
+        va = np.repeat(ref.va[:, None], k, axis=1)
+        lost = ~ref.observability.estimated_buses
+        vm[lost], va[lost] = 1.0, 0.0
+        lam = np.zeros((nc, k))
+        active = np.flatnonzero(group_of >= 0)
+        done = np.zeros(k, bool)
+        iters = np.zeros(k, np.int64)
+        for it in range(1, self.max_iterations + 1):
+            if active.size == 0:
+                break
+            vma, vaa = vm[:, active], va[:, active]
+            r = (Zt[:, active] - funcs.evaluate(vma, vaa, status)) * W[:, active]
+            rhs = funcs.gradient(vma, vaa, r, layout, status)
+            if nc:
+                lam_rows = np.zeros((cons.m, active.size))
+                lam_rows[cidx] = lam[:, active]
+                rhs = np.vstack([rhs - cons.gradient(vma, vaa, lam_rows, layout, status),
+                                 -cons.evaluate(vma, vaa, status)[cidx]])
+            sol = self._solve_k0(rhs)
+            self._woodbury(sol, active, group_of, groups)
+            dx = sol[:nx]
+            if nc:
+                lam[:, active] += sol[nx:]
+            vm[:, active], va[:, active] = _apply(layout, vma, vaa, dx)
+            step = np.abs(dx).max(axis=0)
+            iters[active] = it
+            finished = step < self.tolerance
+            bad = ~np.isfinite(step) | (step > 10.0)
+            done[active[finished]] = True
+            active = active[~finished & ~bad]
+        vm[lost], va[lost] = np.nan, np.nan
+        ok = np.flatnonzero(done)
+        out.vm[ok], out.va[ok] = vm[:, ok].T, va[:, ok].T
+        self._states = (vm, va)  # float64, for residuals
+        return done, iters
+
+    def _woodbury(self, sol: np.ndarray, active: np.ndarray, group_of: np.ndarray,
+                  groups: list[_MissingGroup]) -> None:
+        """Turn K₀⁻¹b into K_s⁻¹b for snapshots missing measurements M (in place).
+
+        K_s = K₀ − Uₘ Wₘ Uₘᵀ; the Woodbury capacitance Rₘ − Hₘ P Hₘᵀ is Ωₘₘ.
+        """
+        nx = self._nx
+        gids = group_of[active]
+        for gi in np.unique(gids):
+            g = groups[gi]
+            if g.factor is None:
+                continue
+            cols = np.flatnonzero(gids == gi)
+            sol[:, cols] += g.q_missing @ (g.factor @ (g.h_missing @ sol[:nx, cols]))
+
+    # ------------------------------------------------------------------ residual statistics
+    def _residuals(self, Z, avail, groups, single, out: BlockResult) -> None:
+        model = self.model
+        idx = self._idx
+        ok = np.flatnonzero(~single)
+        if ok.size == 0:
+            return
+        vm = self._states[0][:, ok]
+        va = self._states[1][:, ok]
+        h = model.functions.evaluate(np.nan_to_num(vm, nan=1.0), np.nan_to_num(va),
+                                     self.status).T
+        out.residual[ok] = np.where(avail[ok], Z[ok] - h, np.nan)
+        for g in groups:
+            mem = g.members[~single[g.members]]
+            if mem.size == 0:
+                continue
+            full = np.full(model.m, np.nan)
+            full[idx] = g.omega_diag
+            out.omega[mem] = np.where(avail[mem], full[None, :], np.nan)
+
+    # ------------------------------------------------------------------ fallback
+    def _single(self, i: int, z: np.ndarray, confidence: float, out: BlockResult) -> dict:
+        est = self.estimator.estimate(z, None, self.status)
+        row = {"converged": est.converged, "iterations": est.iterations, "method": "single",
+               "reason": est.reason, "observable": est.observability.observable}
+        if est.converged:
+            out.vm[i], out.va[i] = est.vm, est.va
+            out.residual[i] = est.residual
+            out.omega[i] = analyse_residuals(self.estimator, est, confidence).omega_diag
+        return row
+
+
+def _apply(layout: StateLayout, vm: np.ndarray, va: np.ndarray, dx: np.ndarray):
+    vm = vm.copy()
+    va = va.copy()
+    a = layout.angle_column >= 0
+    va[a] += dx[layout.angle_column[a]]
+    mcol = layout.magnitude_column >= 0
+    vm[mcol] += dx[layout.magnitude_column[mcol]]
+    return vm, va
