@@ -1,0 +1,107 @@
+"""Reading ``network/buses.csv`` and ``network/branches.csv`` into bus and branch tables."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from calibra.io.cells import bool_cells, choice_cells, id_cells, number_cells, text_cells
+from calibra.io.problems import ProblemLog
+from calibra.io.text_files import read_small_table
+from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS
+
+BUSES_FILE = "network/buses.csv"
+BRANCHES_FILE = "network/branches.csv"
+
+BUS_REQUIRED = ["bus", "substation", "kv", "zero_injection", "g_shunt_mw", "b_shunt_mvar"]
+BUS_OPTIONAL = ["name"]
+BRANCH_REQUIRED = ["branch", "from_bus", "to_bus", "r", "x", "b", "tap", "shift_deg", "kind"]
+BRANCH_OPTIONAL = ["in_service", "name"]
+BRANCH_KINDS = {"line": "line", "transformer": "transformer"}
+
+
+def read_buses(folder: Path, log: ProblemLog) -> pd.DataFrame | None:
+    """The bus table indexed by bus id (columns of ``BUS_COLUMNS``), or None if unreadable.
+
+    The table is returned even when some cells are bad (so later checks can use the ids);
+    the caller decides from the log whether it is usable. Empty shunt cells mean zero.
+    """
+    t = read_small_table(folder / BUSES_FILE, BUSES_FILE, log, BUS_REQUIRED, BUS_OPTIONAL)
+    if t is None:
+        return None
+    ids = id_cells(t, "bus", log, "bus id")
+    name = text_cells(t, "name", log, required=False)
+    buses = pd.DataFrame(
+        {
+            "substation": text_cells(t, "substation", log, required=True),
+            "kv": number_cells(t, "kv", log, positive=True),
+            "zero_injection": bool_cells(t, "zero_injection", log, default=None),
+            "g_shunt_mw": number_cells(t, "g_shunt_mw", log, required=False, default=0.0),
+            "b_shunt_mvar": number_cells(t, "b_shunt_mvar", log, required=False, default=0.0),
+            "name": name.where(name.ne(""), ids),
+        }
+    )
+    buses.index = pd.Index(ids, name="bus")
+    buses = buses[~buses.index.duplicated(keep="first") & (buses.index.str.len() > 0)]
+    return buses[BUS_COLUMNS]
+
+
+def read_branches(
+    folder: Path, bus_ids: pd.Index | None, log: ProblemLog
+) -> pd.DataFrame | None:
+    """The branch table indexed by branch id (columns of ``BRANCH_COLUMNS``).
+
+    ``bus_ids`` are the known buses (None when the bus table could not be read: the
+    references are then not checked). Empty ``b``/``shift_deg`` cells mean zero, an empty
+    ``tap`` means 1, an empty ``in_service`` means true.
+    """
+    t = read_small_table(
+        folder / BRANCHES_FILE, BRANCHES_FILE, log, BRANCH_REQUIRED, BRANCH_OPTIONAL
+    )
+    if t is None:
+        return None
+    ids = id_cells(t, "branch", log, "branch id")
+    from_bus = text_cells(t, "from_bus", log, required=True)
+    to_bus = text_cells(t, "to_bus", log, required=True)
+    for column, ends in (("from_bus", from_bus), ("to_bus", to_bus)):
+        if bus_ids is None:
+            continue
+        unknown = ends.ne("") & ~ends.isin(bus_ids)
+        for i in np.flatnonzero(unknown):
+            log.error(t.file, int(t.rows[i]), column, f"unknown bus '{ends.iloc[i]}'")
+    for i in np.flatnonzero(from_bus.ne("") & from_bus.eq(to_bus)):
+        log.error(
+            t.file, int(t.rows[i]), "to_bus",
+            f"the branch connects bus '{to_bus.iloc[i]}' to itself",
+        )
+    r = number_cells(t, "r", log)
+    x = number_cells(t, "x", log)
+    for i in np.flatnonzero((r == 0) & (x == 0)):
+        log.error(
+            t.file, int(t.rows[i]), "x",
+            "r and x are both zero: the branch has no impedance (merge its buses instead)",
+        )
+    name = text_cells(t, "name", log, required=False)
+    branches = pd.DataFrame(
+        {
+            "from_bus": from_bus,
+            "to_bus": to_bus,
+            "r": r,
+            "x": x,
+            "b": number_cells(t, "b", log, required=False, default=0.0),
+            "tap": number_cells(t, "tap", log, required=False, default=1.0, positive=True),
+            "shift_deg": number_cells(t, "shift_deg", log, required=False, default=0.0),
+            "kind": choice_cells(
+                t, "kind", BRANCH_KINDS, log, required=True, what="branch kind"
+            ),
+            "in_service": bool_cells(t, "in_service", log, default=True),
+            "name": name.where(name.ne(""), ids),
+        }
+    )
+    branches.index = pd.Index(ids, name="branch")
+    branches = branches[
+        ~branches.index.duplicated(keep="first") & (branches.index.str.len() > 0)
+    ]
+    return branches[BRANCH_COLUMNS]

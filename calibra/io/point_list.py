@@ -1,0 +1,171 @@
+"""Reading ``points.csv``: what each telemetered point measures, where, and how well."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from calibra.io.cells import choice_cells, id_cells, number_cells, text_cells
+from calibra.io.problems import ProblemLog
+from calibra.io.text_files import RawTable, read_small_table
+from calibra.model.points import (
+    ENDS,
+    OPTIONAL_POINT_COLUMNS,
+    POINT_COLUMNS,
+    QUANTITIES,
+    REQUIRED_POINT_COLUMNS,
+    parse_ratio,
+)
+
+POINTS_FILE = "points.csv"
+_UNITS = {u.lower(): u for spec in QUANTITIES.values() for u in spec["units"]}
+
+
+def read_points(
+    folder: Path,
+    buses: pd.DataFrame | None,
+    branches: pd.DataFrame | None,
+    log: ProblemLog,
+) -> tuple[pd.DataFrame | None, pd.Series]:
+    """The point list indexed by tag (columns of ``POINT_COLUMNS``; None if unreadable) and
+    the spreadsheet row of each tag.
+
+    ``buses`` and ``branches`` are for checking elements and substations (None when a table
+    could not be read: its references are then not checked).
+    Empty optional cells are "" (text) or NaN (``sigma``); ``end`` is "" for quantities
+    without an end; ``full_scale``/``accuracy_pct`` may be empty for ``branch_status``.
+    """
+    t = read_small_table(
+        folder / POINTS_FILE, POINTS_FILE, log, ["tag"] + REQUIRED_POINT_COLUMNS,
+        OPTIONAL_POINT_COLUMNS,
+    )
+    if t is None:
+        return None, pd.Series(dtype=int)
+    tags = id_cells(t, "tag", log, "tag")
+    quantity = choice_cells(
+        t, "quantity", {q: q for q in QUANTITIES}, log, required=True, what="quantity"
+    )
+    element = text_cells(t, "element", log, required=True)
+    end = choice_cells(t, "end", {e: e for e in ENDS}, log, required=False, what="branch end")
+    unit = choice_cells(t, "unit", _UNITS, log, required=True, what="unit")
+    analog = quantity.ne("branch_status")
+    full_scale = number_cells(t, "full_scale", log, required=False, positive=True)
+    accuracy = number_cells(t, "accuracy_pct", log, required=False, positive=True)
+    for column in ("full_scale", "accuracy_pct"):
+        if not t.has(column):
+            continue
+        for i in np.flatnonzero(analog & quantity.ne("") & t.data[column].eq("")):
+            log.error(
+                t.file, int(t.rows[i]), column,
+                f"empty; a positive number is required for {quantity.iloc[i]}",
+            )
+    points = pd.DataFrame(
+        {
+            "quantity": quantity,
+            "element": element,
+            "end": end,
+            "unit": unit,
+            "full_scale": full_scale,
+            "accuracy_pct": accuracy,
+            "substation": text_cells(t, "substation", log, required=True),
+            "device": text_cells(t, "device", log, required=True),
+            "rtu": text_cells(t, "rtu", log, required=False),
+            "channel": text_cells(t, "channel", log, required=False),
+            "ct_ratio": _ratio_cells(t, "ct_ratio", log),
+            "vt_ratio": _ratio_cells(t, "vt_ratio", log),
+            "sigma": number_cells(t, "sigma", log, required=False, positive=True),
+            "note": text_cells(t, "note", log, required=False),
+        }
+    )
+    _check_meaning(t, points, log)
+    _check_elements(t, points, buses, branches, log)
+    points.index = pd.Index(tags, name="tag")
+    keep = ~points.index.duplicated(keep="first") & (points.index.str.len() > 0)
+    rows = pd.Series(t.rows[keep], index=points.index[keep])
+    return points[keep][POINT_COLUMNS], rows
+
+
+def _ratio_cells(t: RawTable, column: str, log: ProblemLog) -> pd.Series:
+    """Instrument-transformer ratios such as ``1200:5`` (kept as text once checked)."""
+    s = text_cells(t, column, log, required=False)
+    for i in np.flatnonzero(s.ne("")):
+        try:
+            value = parse_ratio(s.iloc[i])
+            ok = value is not None and np.isfinite(value)
+        except ValueError:
+            ok = False
+        if not ok:
+            log.error(
+                t.file, int(t.rows[i]), column,
+                f"'{s.iloc[i]}' is not a ratio of two positive numbers such as 1200:5",
+            )
+    return s
+
+
+def _check_meaning(t: RawTable, points: pd.DataFrame, log: ProblemLog) -> None:
+    """Branch end and unit against what the quantity allows."""
+    for i, (q, unit) in enumerate(zip(points["quantity"], points["unit"], strict=True)):
+        if q == "":
+            continue
+        spec = QUANTITIES[q]
+        row = int(t.rows[i])
+        raw_end = t.data["end"].iloc[i] if t.has("end") else ""
+        if spec["end"] and raw_end == "":
+            log.error(t.file, row, "end", f"empty; {q} needs the branch end: from or to")
+        elif not spec["end"] and raw_end != "":
+            log.error(
+                t.file, row, "end", f"'{raw_end}' given, but {q} has no branch end; leave it empty"
+            )
+        if unit and unit not in spec["units"]:
+            allowed = " or ".join(spec["units"])
+            log.error(t.file, row, "unit", f"unit '{unit}' is not allowed for {q} (use {allowed})")
+
+
+def _check_elements(
+    t: RawTable,
+    points: pd.DataFrame,
+    buses: pd.DataFrame | None,
+    branches: pd.DataFrame | None,
+    log: ProblemLog,
+) -> None:
+    """Each element must be a known bus or branch of the kind the quantity needs; the point's
+    substation should be that of the measured bus or branch end (a warning otherwise)."""
+    bus_sub = buses["substation"] if buses is not None else None
+    for i, (q, element, end, sub) in enumerate(
+        zip(points["quantity"], points["element"], points["end"], points["substation"],
+            strict=True)
+    ):
+        if q == "" or element == "":
+            continue
+        row = int(t.rows[i])
+        kind = QUANTITIES[q]["element"]
+        known = branches if kind == "branch" else buses
+        other = buses if kind == "branch" else branches
+        if known is None:
+            continue
+        if element not in known.index:
+            if other is not None and element in other.index:
+                other_kind = "bus" if kind == "branch" else "branch"
+                log.error(
+                    t.file, row, "element", f"'{element}' is a {other_kind}, but {q} needs a {kind}"
+                )
+            else:
+                log.error(t.file, row, "element", f"unknown {kind} '{element}'")
+            continue
+        if bus_sub is None or sub == "":
+            continue
+        if kind == "bus":
+            at = [element]
+        elif end in ENDS:
+            at = [known.at[element, f"{end}_bus"]]
+        else:
+            at = [known.at[element, "from_bus"], known.at[element, "to_bus"]]
+        subs = [bus_sub.get(b, "") for b in at]
+        if sub not in subs:
+            where = " or ".join(f"'{s}' (bus '{b}')" for s, b in zip(subs, at, strict=True))
+            log.warning(
+                t.file, row, "substation",
+                f"point is in substation '{sub}', but its {kind} end is in {where}",
+            )

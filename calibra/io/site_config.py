@@ -1,0 +1,99 @@
+"""Reading ``site.toml``: the site's name, system base, frequency, timezone and reference bus."""
+
+from __future__ import annotations
+
+import re
+import tomllib
+import zoneinfo
+from dataclasses import dataclass
+from pathlib import Path
+
+from calibra.io.problems import ProblemLog
+from calibra.io.text_files import read_text
+
+SITE_FILE = "site.toml"
+_KEYS = ("name", "base_mva", "frequency_hz", "timezone", "reference_bus")
+
+
+@dataclass(frozen=True)
+class SiteConfig:
+    """The ``[site]`` table; ``base_mva`` may be None when a CDF network supplies it."""
+
+    name: str
+    base_mva: float | None
+    frequency_hz: float
+    timezone: str
+    reference_bus: str | None
+
+
+def _line_of(text: str, key: str) -> int | None:
+    name = re.escape(key)
+    match = re.search(rf"^\s*(?:{name}\s*=|\[+\s*{name}\s*\])", text, re.MULTILINE)
+    return text.count("\n", 0, match.start()) + 1 if match else None
+
+
+def check_timezone(name: str) -> str | None:
+    """None when ``name`` is a known IANA timezone, else why not."""
+    try:
+        zoneinfo.ZoneInfo(name)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError, TypeError):
+        return f"'{name}' is not an IANA timezone name such as Europe/Berlin or America/Chicago"
+    return None
+
+
+def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
+    """Read and check ``site.toml``; None when it is missing or unusable (errors logged)."""
+    path = folder / SITE_FILE
+    if not path.is_file():
+        log.error(SITE_FILE, None, None, "file not found")
+        return None
+    text = read_text(path, SITE_FILE, log)
+    if text is None:
+        return None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        found = re.search(r"line (\d+)", str(exc))
+        log.error(SITE_FILE, int(found.group(1)) if found else None, None, f"not valid TOML: {exc}")
+        return None
+    for key in doc:
+        if key != "site":
+            log.warning(SITE_FILE, _line_of(text, key), key, "unknown entry; ignored")
+    site = doc.get("site")
+    if not isinstance(site, dict):
+        log.error(SITE_FILE, None, None, "the [site] table is missing")
+        return None
+    for key in site:
+        if key not in _KEYS:
+            log.warning(SITE_FILE, _line_of(text, key), key, "unknown key in [site]; ignored")
+    start = log.error_count()
+
+    def value(key: str, kind: str, required: bool = True):
+        if key not in site:
+            if required:
+                log.error(SITE_FILE, None, key, "required key is missing from [site]")
+            return None
+        v = site[key]
+        row = _line_of(text, key)
+        if kind == "text":
+            if isinstance(v, int) and not isinstance(v, bool):
+                v = str(v)
+            if not isinstance(v, str) or not v.strip():
+                log.error(SITE_FILE, row, key, f"must be a non-empty text, not {v!r}")
+                return None
+            return v.strip()
+        if isinstance(v, bool) or not isinstance(v, int | float) or not 0 < v < float("inf"):
+            log.error(SITE_FILE, row, key, f"must be a number greater than zero, not {v!r}")
+            return None
+        return float(v)
+
+    name = value("name", "text")
+    base = value("base_mva", "number", required=False)
+    freq = value("frequency_hz", "number")
+    tz = value("timezone", "text")
+    ref = value("reference_bus", "text", required=False)
+    if tz is not None and (why := check_timezone(tz)):
+        log.error(SITE_FILE, _line_of(text, "timezone"), "timezone", why)
+    if log.error_count() > start:
+        return None
+    return SiteConfig(name, base, freq, tz, ref)

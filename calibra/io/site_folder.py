@@ -1,0 +1,187 @@
+"""Loading a site folder: ``site.toml``, the network, ``points.csv`` and ``snapshots/``.
+
+The folder format is documented in ``sample_site/README.md``. Every problem found is a
+:class:`~calibra.model.site.LoadProblem` naming the file (relative to the site folder), the
+row as a spreadsheet shows it (header = row 1) and the column. All problems are collected
+before :func:`load_site` decides: errors make the site unusable and raise
+:class:`~calibra.model.site.SiteLoadError`; warnings (something skipped or repaired, with a
+count) stay in ``Site.problems``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from calibra.io.cdf import parse_cdf
+from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE, read_branches, read_buses
+from calibra.io.point_list import POINTS_FILE, read_points
+from calibra.io.problems import ProblemLog
+from calibra.io.site_config import SITE_FILE, SiteConfig, read_site_config
+from calibra.io.snapshots import read_snapshots
+from calibra.io.text_files import read_text
+from calibra.model.network import Network
+from calibra.model.points import QUANTITIES
+from calibra.model.site import Site, SiteLoadError
+
+NETWORK_DIR = "network"
+CDF_SUFFIXES = (".cdf", ".txt")
+
+
+def load_site(path: str | Path, *, strict: bool = False, require_snapshots: bool = True) -> Site:
+    """Read and check a site folder.
+
+    Raises :class:`SiteLoadError` with every problem found when any is an error (with
+    ``strict``, also when any is a warning). ``require_snapshots=False`` accepts a folder
+    without snapshot files (the frame is then empty), e.g. before a simulation fills it.
+    """
+    folder = Path(path)
+    log = ProblemLog()
+    if not folder.is_dir():
+        log.error(".", None, None, f"site folder '{folder}' not found")
+        raise SiteLoadError(log.items)
+    config = read_site_config(folder, log)
+    network, buses, branches = _read_network(folder, config, log)
+    points, point_rows = read_points(folder, buses, branches, log)
+    timezone = config.timezone if config is not None else "UTC"
+    snapshots = read_snapshots(folder, points, timezone, log, required=require_snapshots)
+    if points is not None and snapshots is not None and len(snapshots.index):
+        _report_points_without_data(points, point_rows, snapshots, log)
+    unusable = log.has_errors or (strict and log.items)
+    if unusable or config is None or network is None or points is None or snapshots is None:
+        raise SiteLoadError(log.items)
+    return Site(folder, config.name, config.timezone, network, points, snapshots, log.items)
+
+
+# ----------------------------------------------------------------------------- network
+Tables = tuple[Network | None, pd.DataFrame | None, pd.DataFrame | None]
+
+
+def _read_network(folder: Path, config: SiteConfig | None, log: ProblemLog) -> Tables:
+    """The network, and the bus and branch tables as far as they could be read (for checking
+    the point list even when the network has errors)."""
+    directory = folder / NETWORK_DIR
+    if not directory.is_dir():
+        log.error(NETWORK_DIR, None, None, "folder not found")
+        return None, None, None
+    cdf_files = sorted(
+        p for p in directory.iterdir()
+        if p.is_file() and p.suffix.lower() in CDF_SUFFIXES and not p.name.startswith(".")
+    )
+    csv_files = [n for n in (BUSES_FILE, BRANCHES_FILE) if (folder / n).is_file()]
+    for p in sorted(directory.iterdir()):
+        rel = f"{NETWORK_DIR}/{p.name}"
+        if not p.name.startswith(".") and p not in cdf_files and rel not in csv_files:
+            log.warning(rel, None, None, "not a network file; ignored")
+    if cdf_files and csv_files:
+        log.error(
+            NETWORK_DIR, None, None,
+            "has both buses.csv/branches.csv and a Common Data Format file "
+            f"({cdf_files[0].name}); keep one description of the network",
+        )
+        return None, None, None
+    if len(cdf_files) > 1:
+        log.error(
+            NETWORK_DIR, None, None,
+            "has several Common Data Format files (" + ", ".join(p.name for p in cdf_files)
+            + "); keep one",
+        )
+        return None, None, None
+    if cdf_files:
+        network = _network_from_cdf(cdf_files[0], config, log)
+        if network is None:
+            return None, None, None
+        return network, network.buses, network.branches
+    buses = read_buses(folder, log)
+    branches = read_branches(folder, buses.index if buses is not None else None, log)
+    if config is not None and config.base_mva is None:
+        log.error(SITE_FILE, None, "base_mva", "required key is missing from [site]")
+    reference = None
+    if config is not None and buses is not None:
+        reference = config.reference_bus or str(buses.index[0])
+        if reference not in buses.index:
+            log.error(SITE_FILE, None, "reference_bus", f"unknown bus '{reference}'")
+    if config is None or buses is None or branches is None or log.has_errors:
+        return None, buses, branches
+    network = Network(
+        config.name, config.base_mva, buses, branches, reference, config.frequency_hz
+    )
+    return network, buses, branches
+
+
+def _network_from_cdf(path: Path, config: SiteConfig | None, log: ProblemLog) -> Network | None:
+    rel = f"{NETWORK_DIR}/{path.name}"
+    text = read_text(path, rel, log)
+    if text is None:
+        return None
+    freq = config.frequency_hz if config is not None else 60.0
+    case = parse_cdf(text, rel, log, frequency_hz=freq)
+    if case is None or config is None:
+        return None
+    network = case.network
+    if config.base_mva is not None and config.base_mva != case.base_mva:
+        log.error(
+            SITE_FILE, None, "base_mva",
+            f"{config.base_mva:g} MVA differs from the {case.base_mva:g} MVA base of {rel}",
+        )
+        return None
+    if config.reference_bus is not None:
+        if config.reference_bus not in network.buses.index:
+            log.error(SITE_FILE, None, "reference_bus", f"unknown bus '{config.reference_bus}'")
+            return None
+        network.reference_bus = config.reference_bus
+    network.name = config.name
+    return network
+
+
+# ----------------------------------------------------------------------------- points
+def _report_points_without_data(
+    points: pd.DataFrame, rows: pd.Series, snapshots: pd.DataFrame, log: ProblemLog
+) -> None:
+    present = snapshots.notna().any(axis=0)
+    for tag in points.index[~present.reindex(points.index, fill_value=False).to_numpy()]:
+        log.warning(
+            POINTS_FILE, int(rows.get(tag, 0)) or None, "tag",
+            f"point '{tag}' has no values in the snapshot files",
+        )
+
+
+# ----------------------------------------------------------------------------- summary
+def summarize(site: Site) -> dict:
+    """Counts and spans of a loaded site, for the command line and the GUI.
+
+    Keys: ``name``, ``timezone``, ``buses``, ``branches``, ``branches_in_service``,
+    ``substations``, ``zero_injection_buses``, ``points``, ``points_by_quantity``
+    (quantity → count, every quantity listed), ``snapshots``, ``first_snapshot`` and
+    ``last_snapshot`` (UTC Timestamps or None), ``typical_interval`` (median spacing,
+    Timedelta or None), ``missing_fraction`` (of all point × snapshot cells),
+    ``missing_by_point`` (tag → number of missing snapshots), ``errors``, ``warnings``.
+    """
+    net, points, snaps = site.network, site.points, site.snapshots
+    by_quantity = points["quantity"].value_counts()
+    missing = snaps.isna().sum(axis=0) if len(snaps.index) else pd.Series(0, index=points.index)
+    cells = snaps.size
+    index = snaps.index
+    return {
+        "name": site.name,
+        "timezone": site.timezone,
+        "buses": net.n_bus,
+        "branches": net.n_branch,
+        "branches_in_service": int(net.default_in_service().sum()),
+        "substations": int(net.buses["substation"].nunique()),
+        "zero_injection_buses": int(net.buses["zero_injection"].sum()),
+        "points": len(points),
+        "points_by_quantity": {q: int(by_quantity.get(q, 0)) for q in QUANTITIES},
+        "snapshots": len(index),
+        "first_snapshot": index[0] if len(index) else None,
+        "last_snapshot": index[-1] if len(index) else None,
+        "typical_interval": (
+            pd.Timedelta(np.median(np.diff(index.asi8)), unit="ns") if len(index) > 1 else None
+        ),
+        "missing_fraction": float(missing.sum() / cells) if cells else 0.0,
+        "missing_by_point": {str(t): int(n) for t, n in missing.items()},
+        "errors": len(site.errors),
+        "warnings": len(site.warnings),
+    }

@@ -1,0 +1,326 @@
+"""Reading the historian snapshot tables in ``snapshots/`` into one time × tag frame.
+
+Each file is a wide table (``.csv``, ``.csv.gz`` or ``.parquet``): a ``timestamp`` column,
+then one column per tag. Values stay in the point's own unit as float64; an empty cell is
+missing. Cells that cannot be used (text, NaN, infinity, a status other than 0/1) are set
+missing and counted per column; rows without a usable time are skipped and reported.
+The checks are vectorised over the whole table: a week of one-minute data is fast.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import re
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from calibra.io.problems import ProblemLog
+from calibra.io.text_files import read_csv_text
+from calibra.io.timestamps import parse_times
+
+SNAPSHOT_DIR = "snapshots"
+SNAPSHOT_SUFFIXES = (".csv", ".csv.gz", ".parquet")
+
+
+def empty_snapshots(tags: pd.Index) -> pd.DataFrame:
+    """A snapshot frame with no rows, one float column per tag."""
+    index = pd.DatetimeIndex([], tz="UTC", name="timestamp").as_unit("ns")
+    return pd.DataFrame(np.empty((0, len(tags))), index=index, columns=pd.Index(tags, dtype=str))
+
+
+def snapshot_files(folder: Path, log: ProblemLog) -> list[Path]:
+    """The snapshot files, by name; other files are reported and ignored."""
+    directory = folder / SNAPSHOT_DIR
+    if not directory.is_dir():
+        return []
+    files = []
+    for path in sorted(directory.iterdir()):
+        if path.name.startswith("."):
+            continue
+        if path.is_file() and path.name.lower().endswith(SNAPSHOT_SUFFIXES):
+            files.append(path)
+        else:
+            log.warning(
+                f"{SNAPSHOT_DIR}/{path.name}", None, None,
+                "not a snapshot file (.csv, .csv.gz or .parquet); ignored",
+            )
+    return files
+
+
+def read_snapshots(
+    folder: Path,
+    points: pd.DataFrame | None,
+    timezone: str,
+    log: ProblemLog,
+    *,
+    required: bool = True,
+) -> pd.DataFrame | None:
+    """All snapshot files as one frame: tz-aware UTC index ``timestamp``, one float64 column
+    per point of ``points`` (all NaN when a point has no column), rows in time order.
+
+    ``points`` may be None when the point list could not be read: every named column is then
+    loaded. Files whose time ranges overlap are reported; a time that appears in several
+    files keeps the values of the file that starts first. Returns None when nothing usable
+    was found and snapshots are ``required`` (an error is logged).
+    """
+    files = snapshot_files(folder, log)
+    if not files:
+        if required:
+            log.error(
+                SNAPSHOT_DIR, None, None,
+                "no snapshot files (.csv, .csv.gz or .parquet) found"
+                if (folder / SNAPSHOT_DIR).is_dir() else "folder not found",
+            )
+            return None
+        return empty_snapshots(points.index if points is not None else pd.Index([]))
+    quantities = points["quantity"] if points is not None else None
+    frames: list[tuple[str, pd.DataFrame]] = []
+    errors_before = log.error_count()
+    for path in files:
+        rel = f"{SNAPSHOT_DIR}/{path.name}"
+        frame = _read_file(path, rel, quantities, timezone, log)
+        if frame is not None and len(frame):
+            frames.append((rel, frame))
+    if not frames:
+        if required:
+            if log.error_count() == errors_before:
+                log.error(SNAPSHOT_DIR, None, None, "no snapshot rows could be read")
+            return None
+        return empty_snapshots(points.index if points is not None else pd.Index([]))
+    frames.sort(key=lambda item: item[1].index[0])
+    _report_overlaps(frames, log)
+    merged = pd.concat([f for _, f in frames], axis=0, sort=False)
+    if len(frames) > 1:
+        order = np.argsort(merged.index.asi8, kind="stable")
+        merged = merged.iloc[order]
+        merged = merged[~merged.index.duplicated(keep="first")]
+    tags = points.index if points is not None else merged.columns
+    merged = merged.reindex(columns=pd.Index(tags, dtype=str)).astype(np.float64)
+    merged.index.name = "timestamp"
+    return merged
+
+
+def _report_overlaps(frames: list[tuple[str, pd.DataFrame]], log: ProblemLog) -> None:
+    for k in range(1, len(frames)):
+        rel, frame = frames[k]
+        for prev_rel, prev in frames[:k]:
+            if frame.index[0] > prev.index[-1]:
+                continue
+            start, end = frame.index[0], min(frame.index[-1], prev.index[-1])
+            shared = int(frame.index.isin(prev.index).sum())
+            log.warning(
+                rel, None, "timestamp",
+                f"overlaps {prev_rel} from {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC; "
+                + (f"{shared} time{' appears' if shared == 1 else 's appear'} in both and keep "
+                   f"the values of {prev_rel}" if shared
+                   else "no time appears in both, so the rows are merged"),
+                count=max(shared, 1),
+            )
+
+
+# ----------------------------------------------------------------------------- one file
+def _read_file(
+    path: Path, rel: str, quantities: pd.Series | None, timezone: str, log: ProblemLog
+) -> pd.DataFrame | None:
+    if path.name.lower().endswith(".parquet"):
+        table = _read_parquet(path, rel, log)
+    else:
+        table = _read_csv(path, rel, log)
+    if table is None:
+        return None
+    if table.shape[0] == 0:
+        log.warning(rel, None, None, "the file has a header but no data rows")
+        return None
+    names = [str(c).strip() for c in table.columns]
+    if names[0].lower() != "timestamp":
+        log.error(rel, 1, names[0], "the first column must be 'timestamp'")
+        return None
+    rows = np.arange(2, table.shape[0] + 2)
+    keep = _value_columns(table, names, quantities, rel, log)
+    times = parse_times(table.iloc[:, 0], rows, timezone, file=rel, log=log)
+    valid = np.asarray(times.notna())
+    _report_rows_without_time(table, valid, rows, rel, log)
+    tags = [names[p] for p in keep]
+    values = _values(table, keep, tags, rows, valid, rel, log)
+    if quantities is not None:
+        status = [j for j, t in enumerate(tags) if quantities.get(t) == "branch_status"]
+        _check_status(values, status, tags, rows, valid, rel, log)
+    frame = pd.DataFrame(values[valid], index=times[valid], columns=pd.Index(tags, dtype=str))
+    return _order(frame, rows[valid], rel, log)
+
+
+def _report_rows_without_time(
+    table: pd.DataFrame, valid: np.ndarray, rows: np.ndarray, rel: str, log: ProblemLog
+) -> None:
+    stamp = table.iloc[:, 0]
+    no_stamp = stamp.isna().to_numpy().copy()
+    if not pd.api.types.is_datetime64_any_dtype(stamp.dtype):
+        no_stamp |= stamp.astype(str).str.strip().eq("").to_numpy()
+    filled = table.iloc[:, 1:].notna().any(axis=1).to_numpy()
+    lost = no_stamp & filled & ~valid
+    if lost.any():
+        log.per_row(rel, rows[lost], "timestamp", "values without a time; row skipped")
+
+
+def _read_csv(path: Path, rel: str, log: ProblemLog) -> pd.DataFrame | None:
+    found = read_csv_text(path, rel, log)
+    if found is None:
+        return None
+    text, dialect = found
+    header = next(csv.reader([text.split("\n", 1)[0].rstrip("\r")], delimiter=dialect.sep))
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", pd.errors.ParserWarning)
+            table = pd.read_csv(
+                io.StringIO(text), sep=dialect.sep, decimal=dialect.decimal, header=None,
+                skiprows=1, names=list(range(len(header))), dtype={0: str}, index_col=False,
+                keep_default_na=False, na_values=[""], skip_blank_lines=False, low_memory=False,
+            )
+    except (pd.errors.ParserError, ValueError) as exc:
+        found = re.search(r"line (\d+)", str(exc))
+        log.error(
+            rel, int(found.group(1)) if found else None, None,
+            f"not readable as a table: {str(exc).split('C error: ')[-1].strip()}",
+        )
+        return None
+    if any(issubclass(w.category, pd.errors.ParserWarning) for w in caught):
+        log.per_row(
+            rel, _rows_with_extra_values(text, dialect.sep, len(header)) or [2], None,
+            f"more values than the {len(header)} columns named in the header",
+            severity="error",
+        )
+        return None
+    table.columns = header
+    return table
+
+
+def _rows_with_extra_values(text: str, sep: str, width: int) -> list[int]:
+    rows = []
+    for number, record in enumerate(csv.reader(io.StringIO(text), delimiter=sep), start=1):
+        if len(record) > width and any(cell.strip() for cell in record[width:]):
+            rows.append(number)
+    return rows
+
+
+def _read_parquet(path: Path, rel: str, log: ProblemLog) -> pd.DataFrame | None:
+    try:
+        table = pd.read_parquet(path)
+    except Exception as exc:  # noqa: BLE001 - pyarrow raises many kinds; all mean "unreadable"
+        log.error(rel, None, None, f"cannot read as Parquet: {exc}")
+        return None
+    if isinstance(table.index, pd.DatetimeIndex) or table.index.name == "timestamp":
+        table = table.reset_index()
+    if table.shape[1] == 0:
+        log.error(rel, None, None, "the file has no columns")
+        return None
+    return table
+
+
+def _value_columns(
+    table: pd.DataFrame, names: list[str], quantities: pd.Series | None, rel: str,
+    log: ProblemLog,
+) -> list[int]:
+    """Positions of the columns to load: named, first of their name, and a point's tag."""
+    keep, seen = [], {}
+    for pos in range(1, len(names)):
+        name = names[pos]
+        if name == "":
+            if table.iloc[:, pos].notna().any():
+                log.warning(rel, 1, None, f"column {pos + 1} has values but no name; ignored")
+        elif name in seen:
+            log.error(rel, 1, name, f"column appears twice (columns {seen[name]} and {pos + 1})")
+        elif quantities is not None and name not in quantities.index:
+            seen[name] = pos + 1
+            log.warning(rel, 1, name, "not a tag of points.csv; column not loaded")
+        else:
+            seen[name] = pos + 1
+            keep.append(pos)
+    return keep
+
+
+def _values(
+    table: pd.DataFrame, keep: list[int], tags: list[str], rows: np.ndarray, valid: np.ndarray,
+    rel: str, log: ProblemLog,
+) -> np.ndarray:
+    """The chosen columns as one float64 array; unusable cells become NaN and are counted
+    (in the rows that have a usable time)."""
+    values = np.empty((table.shape[0], len(keep)), dtype=np.float64)
+    dtypes = table.dtypes.to_numpy()
+    numeric = [
+        j for j, pos in enumerate(keep)
+        if pd.api.types.is_numeric_dtype(dtypes[pos]) or pd.api.types.is_bool_dtype(dtypes[pos])
+    ]
+    if numeric:
+        block = table.iloc[:, [keep[j] for j in numeric]]
+        values[:, numeric] = block.to_numpy(dtype=np.float64, na_value=np.nan)
+    for j in sorted(set(range(len(keep))) - set(numeric)):
+        column = table.iloc[:, keep[j]]
+        text = column.astype(str).str.strip().where(column.notna(), "")
+        number = pd.to_numeric(text, errors="coerce").to_numpy(dtype=np.float64)
+        filled = text.ne("").to_numpy() & valid
+        nan_word = text.str.lower().str.lstrip("+-").eq("nan").to_numpy()
+        wrong = filled & np.isnan(number) & ~nan_word
+        if wrong.any():
+            first = np.flatnonzero(wrong)[0]
+            _count(log, rel, int(rows[first]), tags[j], int(wrong.sum()),
+                   f"'{text.iloc[first]}' is not a number")
+        if (filled & nan_word).any():
+            first = np.flatnonzero(filled & nan_word)[0]
+            _count(log, rel, int(rows[first]), tags[j], int((filled & nan_word).sum()),
+                   f"'{text.iloc[first]}' is not a finite number")
+        values[:, j] = number
+    infinite = np.isinf(values) & valid[:, None]
+    for j in np.flatnonzero(infinite.any(axis=0)):
+        where = np.flatnonzero(infinite[:, j])
+        _count(log, rel, int(rows[where[0]]), tags[j], len(where),
+               f"{values[where[0], j]:g} is not a finite number")
+    values[np.isinf(values)] = np.nan
+    return values
+
+
+def _count(log: ProblemLog, rel: str, row: int, tag: str, n: int, what: str) -> None:
+    more = f"; {n} cells of this column, the first in this row, are" if n > 1 else ";"
+    log.warning(rel, row, tag, f"{what}{more} treated as missing", count=n)
+
+
+def _check_status(
+    values: np.ndarray, status: list[int], tags: list[str], rows: np.ndarray, valid: np.ndarray,
+    rel: str, log: ProblemLog,
+) -> None:
+    """Status cells other than 0 or 1 become missing (counted per column)."""
+    if not status:
+        return
+    block = values[:, status]
+    bad = ~np.isnan(block) & (block != 0.0) & (block != 1.0)
+    for k in np.flatnonzero((bad & valid[:, None]).any(axis=0)):
+        where = np.flatnonzero(bad[:, k] & valid)
+        _count(log, rel, int(rows[where[0]]), tags[status[k]], len(where),
+               f"status {block[where[0], k]:g} is not 1 (closed) or 0 (open)")
+    block[bad] = np.nan
+    values[:, status] = block
+
+
+def _order(frame: pd.DataFrame, rows: np.ndarray, rel: str, log: ProblemLog) -> pd.DataFrame:
+    """Rows in time order; a time repeated within the file keeps its first row."""
+    stamps = frame.index.asi8
+    backwards = np.flatnonzero(np.diff(stamps) < 0) + 1
+    if len(backwards):
+        log.warning(
+            rel, int(rows[backwards[0]]), "timestamp",
+            f"times go backwards {len(backwards)} times (first in this row); rows sorted by time",
+            count=len(backwards),
+        )
+        order = np.argsort(stamps, kind="stable")
+        frame, rows = frame.iloc[order], rows[order]
+    repeated = frame.index.duplicated(keep="first")
+    if repeated.any():
+        log.per_row(
+            rel, rows[repeated], "timestamp",
+            "the same time as an earlier row; row skipped (the first row with this time is kept)",
+        )
+        frame = frame[~repeated]
+    return frame

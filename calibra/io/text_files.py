@@ -1,0 +1,170 @@
+"""Reading the text files of a site: encodings, separators, and small CSV tables.
+
+Row numbers follow what a spreadsheet shows: the header is row 1, the first data record row 2,
+and blank lines keep their row numbers.
+"""
+
+from __future__ import annotations
+
+import csv
+import gzip
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from calibra.io.problems import ProblemLog
+
+_DECIMAL_COMMA = re.compile(r"(?:^|[;\t])\s*[-+]?\d+,\d+\s*(?:[;\t]|$)", re.MULTILINE)
+
+
+@dataclass(frozen=True)
+class Dialect:
+    """Field separator and decimal mark of a CSV file."""
+
+    sep: str = ","
+    decimal: str = "."
+
+    def describe(self) -> str:
+        names = {";": "semicolon", "\t": "tab", ",": "comma"}
+        text = f"{names[self.sep]}-separated text"
+        if self.decimal == ",":
+            text += " with decimal commas"
+        return text
+
+
+def read_text(path: Path, rel: str, log: ProblemLog) -> str | None:
+    """The decoded text of a file (``.gz`` decompressed); UTF-8 with or without BOM,
+    else Latin-1 with a warning. Unreadable files are logged as errors and give None."""
+    try:
+        raw = path.read_bytes()
+        if path.name.lower().endswith(".gz"):
+            raw = gzip.decompress(raw)
+    except (OSError, EOFError) as exc:
+        log.error(rel, None, None, f"cannot read the file: {exc}")
+        return None
+    try:
+        return raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[: exc.start].count(b"\n") + 1
+        log.warning(
+            rel, line, None,
+            "not valid UTF-8 (first bad byte in this row); read as Latin-1 (ISO 8859-1) — "
+            "check accented names",
+        )
+        return raw.decode("latin-1")
+
+
+def sniff_dialect(text: str) -> Dialect:
+    """Guess the separator from the header line and the decimal mark from the data."""
+    head = text.lstrip("\r\n").split("\n", 1)[0]
+    counts = {sep: head.count(sep) for sep in (",", ";", "\t")}
+    sep = max(counts, key=lambda s: (counts[s], s == ","))
+    if counts[sep] == 0:
+        sep = ","
+    decimal = "."
+    if sep != ",":
+        body = text.lstrip("\r\n").split("\n", 1)[-1]
+        if _DECIMAL_COMMA.search(body.replace("\t", ";") if sep == "\t" else body):
+            decimal = ","
+    return Dialect(sep, decimal)
+
+
+def read_csv_text(path: Path, rel: str, log: ProblemLog) -> tuple[str, Dialect] | None:
+    """The decoded text of a CSV file and its dialect (a warning when not comma-separated);
+    None, with an error logged, when it cannot be read or is empty."""
+    text = read_text(path, rel, log)
+    if text is None:
+        return None
+    if not text.strip():
+        log.error(rel, None, None, "the file is empty")
+        return None
+    dialect = sniff_dialect(text)
+    if dialect.sep != ",":
+        log.warning(rel, None, None, f"read as {dialect.describe()}")
+    return text, dialect
+
+
+@dataclass
+class RawTable:
+    """A CSV table read as stripped text.
+
+    ``data`` has one str column per named header column (lower-cased; a required column that
+    is missing from the file is absent here too); ``rows`` holds the spreadsheet row number of
+    each record.
+    """
+
+    file: str
+    data: pd.DataFrame
+    rows: np.ndarray
+    dialect: Dialect
+
+    def has(self, column: str) -> bool:
+        return column in self.data.columns
+
+
+def read_small_table(
+    path: Path, rel: str, log: ProblemLog, required: list[str], optional: list[str]
+) -> RawTable | None:
+    """Read a CSV table of the network or point list and check its header.
+
+    Missing required columns and duplicate column names are errors; unknown columns are
+    warnings (ignored); values beyond the last named column are errors. Returns None only
+    when there is nothing to read (missing, unreadable or empty file, or no data rows).
+    """
+    if not path.is_file():
+        log.error(rel, None, None, "file not found")
+        return None
+    found = read_csv_text(path, rel, log)
+    if found is None:
+        return None
+    text, dialect = found
+    try:
+        records = list(csv.reader(text.splitlines(), delimiter=dialect.sep))
+    except csv.Error as exc:
+        log.error(rel, None, None, f"not readable as CSV: {exc}")
+        return None
+    header = [h.strip().lower() for h in records[0]]
+    width = len(header)
+    values: list[list[str]] = []
+    rows: list[int] = []
+    for number, record in enumerate(records[1:], start=2):
+        cells = [c.strip() for c in record]
+        if not any(cells):
+            continue
+        if len(cells) > width:
+            if any(cells[width:]):
+                log.error(
+                    rel, number, None,
+                    f"row has {len(cells)} values but the header names {width} columns",
+                )
+            cells = cells[:width]
+        values.append(cells + [""] * (width - len(cells)))
+        rows.append(number)
+    if not values:
+        log.error(rel, None, None, "the table has a header but no data rows")
+        return None
+    data = pd.DataFrame(values, columns=range(width), dtype=str)
+    keep: dict[int, str] = {}
+    seen: dict[str, int] = {}
+    for pos, name in enumerate(header):
+        if name == "":
+            if data[pos].ne("").any():
+                log.error(rel, 1, None, f"column {pos + 1} has values but no name in the header")
+        elif name in seen:
+            log.error(rel, 1, name, f"column appears twice (columns {seen[name]} and {pos + 1})")
+        else:
+            seen[name] = pos + 1
+            keep[pos] = name
+    for name in required:
+        if name not in seen:
+            log.error(rel, 1, name, "required column is missing")
+    known = set(required) | set(optional)
+    for name in seen:
+        if name not in known:
+            log.warning(rel, 1, name, "unknown column; ignored")
+            keep = {p: n for p, n in keep.items() if n != name}
+    data = data[list(keep)].set_axis(list(keep.values()), axis=1)
+    return RawTable(rel, data, np.asarray(rows, dtype=int), dialect)

@@ -1,0 +1,103 @@
+"""Turning the ``timestamp`` column of a snapshot file into UTC times.
+
+Times with a UTC offset (``2024-03-04T10:00:00+01:00``, ``…Z``) are converted to UTC; times
+without one are local times of the site's timezone. Local times that do not exist (the hour
+skipped when daylight saving time starts) are skipped; local times that occur twice (the hour
+repeated when it ends) are placed by their order in the file when that is possible.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from calibra.io.problems import ProblemLog
+
+_OFFSET = r"\d:\d\d(?::\d\d(?:[.,]\d+)?)?\s*(?:Z|z|[+-]\d\d(?::?\d\d)?)$"
+
+
+def parse_times(
+    values: pd.Series, rows: np.ndarray, timezone: str, file: str, log: ProblemLog
+) -> pd.DatetimeIndex:
+    """UTC times (NaT where a row must be skipped); every skipped row is logged.
+
+    ``values`` are the cells of the timestamp column (text, or datetimes from Parquet);
+    ``rows`` the spreadsheet row number of each. Empty cells give NaT without a message.
+    """
+    if isinstance(values.dtype, pd.DatetimeTZDtype):
+        return pd.DatetimeIndex(values).tz_convert("UTC").as_unit("ns")
+    if pd.api.types.is_datetime64_dtype(values.dtype):
+        return _localize(pd.DatetimeIndex(values).as_unit("ns"), rows, timezone, file, log)
+    text = values.astype(str).str.strip().where(values.notna(), "").reset_index(drop=True)
+    empty = text.eq("").to_numpy()
+    aware = text.str.contains(_OFFSET, regex=True).to_numpy() & ~empty
+    naive = ~aware & ~empty
+    result = np.full(len(text), np.datetime64("NaT", "ns"))
+    unparsed = np.zeros(len(text), dtype=bool)
+    if aware.any():
+        parsed = pd.DatetimeIndex(
+            pd.to_datetime(text[aware], format="ISO8601", utc=True, errors="coerce")
+        ).as_unit("ns")
+        unparsed[aware] = np.asarray(parsed.isna())
+        result[aware] = parsed.tz_localize(None).to_numpy()
+    if naive.any():
+        parsed = pd.DatetimeIndex(
+            pd.to_datetime(text[naive], format="ISO8601", errors="coerce")
+        ).as_unit("ns")
+        unparsed[naive] = np.asarray(parsed.isna())
+        result[naive] = _localize(parsed, rows[naive], timezone, file, log).tz_localize(None)
+        if aware.any():
+            log.warning(
+                file, int(rows[np.flatnonzero(naive)[0]]), "timestamp",
+                f"the file mixes times with and without a UTC offset; {int(naive.sum())} times "
+                f"without one are read as {timezone} local time",
+                count=int(naive.sum()),
+            )
+    if unparsed.any():
+        log.per_row(
+            file, rows[unparsed], "timestamp",
+            "not an ISO 8601 time such as 2024-03-04 13:45 or 2024-03-04T13:45:00+01:00; "
+            "row skipped",
+        )
+    return pd.DatetimeIndex(result).tz_localize("UTC")
+
+
+def _localize(
+    local: pd.DatetimeIndex,
+    rows: np.ndarray,
+    timezone: str,
+    file: str,
+    log: ProblemLog,
+) -> pd.DatetimeIndex:
+    """Site-time → UTC, logging times skipped or made ambiguous by daylight saving time."""
+    strict = local.tz_localize(timezone, ambiguous="NaT", nonexistent="NaT")
+    shifted = local.tz_localize(timezone, ambiguous="NaT", nonexistent="shift_forward")
+    valid = np.asarray(local.notna())
+    missing_hour = valid & np.asarray(strict.isna()) & np.asarray(shifted.notna())
+    repeated = valid & np.asarray(shifted.isna())
+    placed = strict
+    if repeated.any():
+        try:
+            placed = local.tz_localize(timezone, ambiguous="infer", nonexistent="NaT")
+        except ValueError:
+            placed = strict
+        if placed[repeated].notna().all():
+            log.warning(
+                file, int(rows[np.flatnonzero(repeated)[0]]), "timestamp",
+                f"{int(repeated.sum())} local times fall in the hour repeated when daylight "
+                "saving time ends; placed by their order (first before, then after the change)",
+                count=int(repeated.sum()),
+            )
+        else:
+            log.per_row(
+                file, rows[repeated], "timestamp",
+                "local time occurs twice when daylight saving time ends and its order does not "
+                "tell which is meant (give a UTC offset); row skipped",
+            )
+    if missing_hour.any():
+        log.per_row(
+            file, rows[missing_hour], "timestamp",
+            f"local time does not exist in {timezone} (skipped when daylight saving time "
+            "starts); row skipped",
+        )
+    return placed.tz_convert("UTC")
