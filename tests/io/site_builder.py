@@ -1,0 +1,174 @@
+"""Writing small site folders for the loader tests: a valid invented site, then mutations.
+
+The site (four invented substations) is the same as the example in ``sample_site/README.md``.
+Rows are addressed as a spreadsheet shows them: the header is row 1.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from calibra.io import load_site
+from calibra.model.site import LoadProblem, SiteLoadError
+
+SITE_TOML = """\
+[site]
+name = "Fenwick Hollow district"
+base_mva = 100.0
+frequency_hz = 50.0
+timezone = "Europe/Berlin"
+reference_bus = "FNH132"
+"""
+
+BUSES = """\
+bus,substation,kv,zero_injection,g_shunt_mw,b_shunt_mvar,name
+FNH132,Fenwick Hollow,132,false,0,0,Fenwick Hollow 132 kV
+TLR132,Tallis Reach,132,false,0,0,Tallis Reach 132 kV
+TLR33,Tallis Reach,33,false,0,4.5,Tallis Reach 33 kV
+ORB132,Orrin Bay,132,true,0,0,Orrin Bay switching station
+PLM33,Pellham Mill,33,false,0,0,Pellham Mill 33 kV
+"""
+
+BRANCHES = """\
+branch,from_bus,to_bus,r,x,b,tap,shift_deg,kind,in_service,name
+FNH-TLR-1,FNH132,TLR132,0.012,0.061,0.021,1,0,line,true,Fenwick–Tallis circuit 1
+FNH-ORB-1,FNH132,ORB132,0.009,0.044,0.015,1,0,line,true,Fenwick–Orrin
+ORB-TLR-1,ORB132,TLR132,0.010,0.052,0.018,1,0,line,true,Orrin–Tallis
+TLR-T1,TLR132,TLR33,0.004,0.125,0,0.985,0,transformer,true,Tallis Reach T1
+TLR-PLM-1,TLR33,PLM33,0.031,0.082,0.002,1,0,line,true,Tallis–Pellham
+"""
+
+POINTS = """\
+tag,quantity,element,end,unit,full_scale,accuracy_pct,substation,device,rtu,channel,ct_ratio,vt_ratio,sigma,note
+FNH.TLR1.P,p_flow,FNH-TLR-1,from,MW,200,0.5,Fenwick Hollow,FNH-TD1,FNH-RTU,AI01,800:1,132000:110,,
+FNH.TLR1.Q,q_flow,FNH-TLR-1,from,Mvar,200,0.5,Fenwick Hollow,FNH-TD1,FNH-RTU,AI02,800:1,132000:110,,
+TLR.FNH1.P,p_flow,FNH-TLR-1,to,MW,200,0.5,Tallis Reach,TLR-TD1,TLR-RTU,AI01,800:1,132000:110,,
+TLR.T1.I,i_magnitude,TLR-T1,from,A,600,0.5,Tallis Reach,TLR-TD5,TLR-RTU,AI05,600:1,,,
+FNH.V,v_magnitude,FNH132,,kV,150,0.5,Fenwick Hollow,FNH-TD9,FNH-RTU,AI10,,132000:110,0.3,
+PLM.LOAD.P,p_injection,PLM33,,MW,50,1.0,Pellham Mill,PLM-TD1,PLM-RTU,AI01,400:5,,,feeder total
+TLR.PLM1.CB,branch_status,TLR-PLM-1,,status,,,Tallis Reach,TLR-CB3,TLR-RTU,DI03,,,,
+"""
+
+SNAPSHOTS = """\
+timestamp,FNH.TLR1.P,FNH.TLR1.Q,TLR.FNH1.P,TLR.T1.I,FNH.V,PLM.LOAD.P,TLR.PLM1.CB
+2024-03-04 10:00:00,61.2,12.4,-60.8,301.5,133.1,-18.2,1
+2024-03-04 10:01:00,60.7,12.1,-60.3,299.8,133.0,-18.0,1
+2024-03-04 10:02:00,60.9,12.6,-60.5,300.6,133.2,-18.4,1
+2024-03-04 10:03:00,61.5,12.2,-61.1,302.2,133.1,-18.3,0
+"""
+
+
+class Table:
+    """A CSV table held as header + rows of text, edited by spreadsheet row number."""
+
+    def __init__(self, text: str) -> None:
+        records = list(csv.reader(io.StringIO(text)))
+        self.header = records[0]
+        self.rows = [r + [""] * (len(self.header) - len(r)) for r in records[1:]]
+
+    def set(self, row: int, column: str, value: str) -> Table:
+        self.rows[row - 2][self.header.index(column)] = value
+        return self
+
+    def get(self, row: int, column: str) -> str:
+        return self.rows[row - 2][self.header.index(column)]
+
+    def drop_column(self, column: str) -> Table:
+        k = self.header.index(column)
+        self.header.pop(k)
+        for r in self.rows:
+            r.pop(k)
+        return self
+
+    def add_column(self, column: str, value: str = "") -> Table:
+        self.header.append(column)
+        for r in self.rows:
+            r.append(value)
+        return self
+
+    def add_row(self, values: list[str]) -> Table:
+        self.rows.append(list(values))
+        return self
+
+    def text(self, sep: str = ",") -> str:
+        out = io.StringIO()
+        csv.writer(out, delimiter=sep, lineterminator="\n").writerows([self.header, *self.rows])
+        return out.getvalue()
+
+
+@dataclass
+class SiteFiles:
+    """The text of every file of a site folder; ``write`` puts them in a folder."""
+
+    toml: str = SITE_TOML
+    buses: Table = field(default_factory=lambda: Table(BUSES))
+    branches: Table = field(default_factory=lambda: Table(BRANCHES))
+    points: Table = field(default_factory=lambda: Table(POINTS))
+    snapshots: dict[str, Table | str | bytes] = field(
+        default_factory=lambda: {"week.csv": Table(SNAPSHOTS)}
+    )
+    extra: dict[str, str | bytes] = field(default_factory=dict)
+
+    def write(self, root: Path) -> Path:
+        (root / "network").mkdir(parents=True, exist_ok=True)
+        (root / "snapshots").mkdir(exist_ok=True)
+        files: dict[str, str | bytes | Table | None] = {
+            "site.toml": self.toml,
+            "network/buses.csv": self.buses,
+            "network/branches.csv": self.branches,
+            "points.csv": self.points,
+        }
+        files.update({f"snapshots/{k}": v for k, v in self.snapshots.items()})
+        files.update(self.extra)
+        for rel, content in files.items():
+            if content is None:
+                continue
+            path = root / rel
+            path.parent.mkdir(parents=True, exist_ok=True)
+            if isinstance(content, Table):
+                content = content.text()
+            if isinstance(content, bytes):
+                path.write_bytes(content)
+            else:
+                path.write_text(content, encoding="utf-8")
+        return root
+
+
+TABLE_FILES = {
+    "buses": "network/buses.csv",
+    "branches": "network/branches.csv",
+    "points": "points.csv",
+}
+
+
+def problem_for_cell(
+    files: SiteFiles, root: Path, table: str, row: int, column: str, value: str,
+    severity: str = "error",
+) -> LoadProblem:
+    """Put ``value`` in one cell of a valid site and return the problem reported there."""
+    getattr(files, table).set(row, column, value)
+    return find(problems_of(files.write(root)), TABLE_FILES[table], row, column, severity)
+
+
+def problems_of(root: Path, **kwargs) -> list[LoadProblem]:
+    """Every problem the loader reports for a folder, whether or not it is usable."""
+    try:
+        return load_site(root, **kwargs).problems
+    except SiteLoadError as exc:
+        return exc.problems
+
+
+def find(
+    problems: list[LoadProblem], file: str, row: int | None, column: str | None,
+    severity: str = "error",
+) -> LoadProblem:
+    """The one problem at that place and severity (the test fails with the list if none)."""
+    hits = [
+        p for p in problems
+        if p.file == file and p.row == row and p.column == column and p.severity == severity
+    ]
+    assert hits, "no such problem; found:\n" + "\n".join(str(p) for p in problems)
+    return hits[0]
