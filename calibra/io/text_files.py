@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import csv
 import gzip
+import io
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -122,7 +123,7 @@ def read_small_table(
         return None
     text, dialect = found
     try:
-        records = list(csv.reader(text.splitlines(), delimiter=dialect.sep))
+        records = list(csv.reader(io.StringIO(text), delimiter=dialect.sep))
     except csv.Error as exc:
         log.error(rel, None, None, f"not readable as CSV: {exc}")
         return None

@@ -102,3 +102,11 @@ def test_points_checked_even_when_the_network_has_errors(files, tmp_path):
     problems = problems_of(files.write(tmp_path))
     find(problems, "network/buses.csv", 2, "kv")
     find(problems, POINTS, 6, "element")
+
+
+def test_rows_count_records_like_a_spreadsheet(files, tmp_path):
+    # a quoted note with a line break is one cell; the next record is still row 8
+    files.points.set(7, "note", "feeder total\nincludes embedded generation")
+    files.points.set(8, "device", "")
+    p = find(problems_of(files.write(tmp_path)), POINTS, 8, "device")
+    assert p.message == "empty; a value is required"
