@@ -1,0 +1,220 @@
+"""Simulated telemetry of a week: true states, measured values, faults, gaps, as a Site.
+
+Pipeline per snapshot: loads and generation → Newton power flow → noise-free point values →
+transducer noise (σ from the accuracy class, :func:`calibra.model.points.default_sigma`) →
+meter faults → historian rounding → missing values (scattered values, short gaps, one RTU
+communication outage). Independent random streams drive the operating point, the noise, the
+gaps and the faults, so a run with ``faults=False`` differs from the faulted run with the same
+seed only in the faulted columns.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from calibra.model.points import ANALOG_QUANTITIES, default_sigma
+from calibra.model.site import Site
+from calibra.simulate.case import GridCase
+from calibra.simulate.faultmix import DEFAULT_MIX, random_faults
+from calibra.simulate.faults import TRUTH_COLUMNS, FaultSpec, apply_faults
+from calibra.simulate.powerflow import solve_snapshots
+from calibra.simulate.profiles import (
+    OperatingSeries,
+    PlannedOutage,
+    choose_planned_outage,
+    make_operating_series,
+)
+from calibra.simulate.quantities import point_values_series
+from calibra.simulate.redundancy import RedundancyReport, redundancy_report
+
+
+@dataclass(frozen=True)
+class TelemetryOptions:
+    """Imperfections of the data path besides meter faults.
+
+    ``missing_rate``: share of single analog values lost; ``gaps_per_point``: expected number
+    of 2–30 minute gaps per analog point over the period; ``rtu_outage_hours``: length of one
+    RTU communication outage (0: none) on ``rtu_outage`` (default: a random RTU); it is placed
+    outside planned outages and left out when the period has no room for it.
+    """
+
+    missing_rate: float = 0.002
+    gaps_per_point: float = 0.5
+    rtu_outage_hours: float = 3.0
+    rtu_outage: str | None = None
+
+
+@dataclass
+class SimulationResult:
+    """A simulated site and everything that was true while its data were made."""
+
+    site: Site
+    true_vm: pd.DataFrame  # snapshots × buses, pu (float32)
+    true_va: pd.DataFrame  # snapshots × buses, rad (float32)
+    true_values: pd.DataFrame  # snapshots × tags, noise-free values in each point's unit
+    truth: pd.DataFrame  # ground truth of the faults, columns TRUTH_COLUMNS
+    faulted: bool  # False: the clean week
+    operating: OperatingSeries
+    redundancy: RedundancyReport
+    rtu_outage: tuple[str, pd.Timestamp, pd.Timestamp] | None
+    iterations: np.ndarray  # Newton iterations per snapshot
+
+
+def snapshot_index(start, periods: int, timezone: str, freq: str = "1min") -> pd.DatetimeIndex:
+    """UTC timestamps of ``periods`` snapshots from ``start`` (naive = local time in timezone)."""
+    first = pd.Timestamp(start)
+    first = first.tz_localize(timezone) if first.tzinfo is None else first.tz_convert(timezone)
+    return pd.date_range(first, periods=periods, freq=freq).tz_convert("UTC").rename("timestamp")
+
+
+def historian_resolution(points: pd.DataFrame) -> pd.Series:
+    """Storage step of each point: the power of ten at or below σ/5 (0.001 … 1; status: 0)."""
+    sigma = default_sigma(points).to_numpy(float)
+    with np.errstate(divide="ignore"):
+        step = 10.0 ** np.floor(np.log10(np.maximum(sigma, 1e-12) / 5.0))
+    step = np.clip(step, 1e-3, 1.0)
+    step[~points["quantity"].isin(ANALOG_QUANTITIES).to_numpy()] = 0.0
+    return pd.Series(step, index=points.index)
+
+
+def round_to_historian(values: np.ndarray, step: np.ndarray) -> np.ndarray:
+    """Round each column to its step (columns with step 0 are left alone)."""
+    safe = np.where(step > 0, step, 1.0)
+    rounded = np.round(values / safe) * safe
+    return np.where(step > 0, rounded, values)
+
+
+def add_noise(values: np.ndarray, points: pd.DataFrame, rng: np.random.Generator) -> np.ndarray:
+    """Transducer noise, gaussian with the default σ, on analog points only."""
+    sigma = default_sigma(points).to_numpy(float)
+    sigma = np.where(points["quantity"].isin(ANALOG_QUANTITIES).to_numpy(), sigma, 0.0)
+    return values + rng.standard_normal(values.shape) * sigma[None, :]
+
+
+def missing_mask(
+    index: pd.DatetimeIndex,
+    points: pd.DataFrame,
+    opts: TelemetryOptions,
+    rng: np.random.Generator,
+    avoid: Sequence[PlannedOutage] = (),
+) -> tuple[np.ndarray, tuple[str, pd.Timestamp, pd.Timestamp] | None]:
+    """Where values are missing (K × points, bool) and the RTU outage (rtu, start, end)."""
+    k, m = len(index), len(points)
+    analog = points["quantity"].isin(ANALOG_QUANTITIES).to_numpy()
+    mask = (rng.random((k, m)) < opts.missing_rate) & analog[None, :]
+    n_gaps = rng.poisson(opts.gaps_per_point, m) * analog
+    for col in np.flatnonzero(n_gaps):
+        for _ in range(n_gaps[col]):
+            start = int(rng.integers(k))
+            mask[start:start + int(rng.integers(2, 31)), col] = True
+    outage = None
+    rtus = sorted(points["rtu"].dropna().astype(str).unique()) if "rtu" in points else []
+    span = int(round(opts.rtu_outage_hours * 60 / max(_minutes(index), 1e-9)))
+    if opts.rtu_outage_hours > 0 and rtus and 0 < span < k:
+        rtu = opts.rtu_outage or rtus[int(rng.integers(len(rtus)))]
+        if rtu not in rtus:
+            raise ValueError(f"RTU {rtu!r} for the communication outage is not in the point list")
+        busy = np.zeros(k, bool)
+        for out in avoid:
+            busy |= np.asarray((index >= out.start) & (index < out.end))
+        starts = [s for s in range(0, k - span) if not busy[s:s + span].any()]
+        if starts:
+            s = starts[int(rng.integers(len(starts)))]
+            mask[s:s + span, (points["rtu"].astype(str) == rtu).to_numpy()] = True
+            outage = (rtu, index[s], index[s + span])
+    return mask, outage
+
+
+def _minutes(index: pd.DatetimeIndex) -> float:
+    if len(index) < 2:
+        return 1.0
+    return float((index[1] - index[0]) / pd.Timedelta(minutes=1))
+
+
+def simulate_site(
+    case: GridCase,
+    points: pd.DataFrame,
+    *,
+    start,
+    periods: int = 10080,
+    timezone: str = "UTC",
+    seed: int = 0,
+    faults: bool | Sequence[FaultSpec] = True,
+    fault_kinds: Sequence[str] = DEFAULT_MIX,
+    outages: str | Sequence[PlannedOutage] | None = "auto",
+    options: TelemetryOptions | None = None,
+    name: str | None = None,
+    mix: np.ndarray | None = None,
+    wind_mw: dict[str, float] | None = None,
+    freq: str = "1min",
+) -> SimulationResult:
+    """Simulate ``periods`` snapshots of telemetry for ``points`` on ``case``.
+
+    ``faults``: True draws a random mix of ``fault_kinds`` (on points with enough redundancy),
+    False gives the clean data, a sequence applies exactly those faults. ``outages``: "auto"
+    picks one planned line outage (a branch with a status point), None none, or a list.
+    """
+    opts = options or TelemetryOptions()
+    net = case.network
+    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(5)]
+    rng_ops, rng_outage, rng_noise, rng_missing, rng_faults = streams
+    index = snapshot_index(start, periods, timezone, freq)
+    if isinstance(outages, str):
+        if outages != "auto":
+            raise ValueError(f"outages must be 'auto', None or a list, not {outages!r}")
+        status_branches = points.loc[points["quantity"] == "branch_status", "element"]
+        chosen = choose_planned_outage(case, index, timezone, rng_outage,
+                                       candidates=status_branches.astype(str))
+        outages = [chosen] if chosen else []
+    ops = make_operating_series(case, index, timezone, rng_ops, outages=list(outages or []),
+                                mix=mix, wind_mw=wind_mw)
+    p, q = ops.net_injection()
+    pf = solve_snapshots(net, p, q, ops.v_set, ops.pv, ops.in_service)
+    if not pf.converged.all():
+        bad = np.flatnonzero(~pf.converged)
+        raise RuntimeError(
+            f"power flow did not converge in {len(bad)} snapshot(s), first at {index[bad[0]]}"
+        )
+    true = point_values_series(net, points, pf.vm, pf.va_rad, ops.in_service)
+    measured = pd.DataFrame(add_noise(true, points, rng_noise), index=index, columns=points.index)
+    true_df = pd.DataFrame(true, index=index, columns=points.index)
+
+    normal = np.flatnonzero((ops.in_service == net.default_in_service()).all(axis=1))
+    load = ops.load_mw.sum(axis=1)[normal]
+    at = normal[np.argsort(load)[len(load) // 2]] if len(normal) else 0
+    report = redundancy_report(net, points, pf.vm[at], pf.va_rad[at], ops.in_service[at])
+
+    if faults is True:
+        specs = random_faults(points, true_df, fault_kinds, rng=rng_faults, exclude=report.weak())
+    elif faults is False:
+        specs = []
+    else:
+        specs = list(faults)
+    if specs:
+        measured, truth = apply_faults(measured, points, specs, rng_faults)
+    else:
+        truth = pd.DataFrame(columns=TRUTH_COLUMNS)
+    step = historian_resolution(points).to_numpy(float)
+    values = round_to_historian(measured.to_numpy(float), step)
+    mask, rtu_out = missing_mask(index, points, opts, rng_missing, ops.outages)
+    values[mask] = np.nan
+    snapshots = pd.DataFrame(values, index=index, columns=points.index)
+    snapshots.columns.name = None
+    site = Site(None, name or net.name, timezone, net, points.copy(), snapshots)
+    buses = net.buses.index
+    return SimulationResult(
+        site=site,
+        true_vm=pd.DataFrame(pf.vm.astype(np.float32), index=index, columns=buses),
+        true_va=pd.DataFrame(pf.va_rad.astype(np.float32), index=index, columns=buses),
+        true_values=true_df,
+        truth=truth,
+        faulted=bool(specs),
+        operating=ops,
+        redundancy=report,
+        rtu_outage=rtu_out,
+        iterations=pf.iterations,
+    )
