@@ -6,7 +6,7 @@ and Norrance, a new 110/33 kV substation being commissioned (its points come las
 point list, noted ``commissioning``). Drummel is a small 33 kV substation without an RTU, fed
 radially from Ulvenholm, so the meters of that feeder are critical.
 
-Regenerate the bundled folder (about a minute on two cores) with::
+Regenerate the bundled folder (about ten seconds on two cores) with::
 
     python -m calibra.simulate.sample_site --out sample_site --seed 7
 
