@@ -119,12 +119,70 @@ def run_check(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def load_for_command(folder: Path) -> Site | None:
+    """Load a site for a command that works on it; print problems; None when not usable."""
+    try:
+        site = load_site(_site_folder(folder))
+    except SiteLoadError as exc:
+        for problem in exc.problems:
+            print(problem)
+        print(f"result: not usable ({_tally(exc.problems)}); see 'calibra check {folder}'")
+        return None
+    for line in format_summary(site):
+        print(line)
+    if site.problems:
+        print(f"load: {_tally(site.problems)} (listed by 'calibra check {folder}')")
+    return site
+
+
+def period_arguments(parser: argparse.ArgumentParser) -> None:
+    """--from/--to options shared by the commands that work on a period."""
+    parser.add_argument("--from", dest="start", metavar="TIME",
+                        help="first snapshot to use (ISO 8601; naive times in the site timezone)")
+    parser.add_argument("--to", dest="end", metavar="TIME", help="last snapshot to use")
+
+
+def parse_period(site: Site, args: argparse.Namespace):
+    """The --from/--to values as UTC timestamps (None when not given)."""
+    import pandas as pd
+
+    out = []
+    for text in (args.start, args.end):
+        if text is None:
+            out.append(None)
+            continue
+        try:
+            ts = pd.Timestamp(text)
+        except ValueError as exc:
+            raise UsageError(f"not a time: {text!r}") from exc
+        ts = ts.tz_localize(site.timezone) if ts.tzinfo is None else ts
+        out.append(ts.tz_convert("UTC"))
+    return out
+
+
+def _lazy(module: str, name: str) -> Callable:
+    """A function from another module, imported on first call (keeps start-up light)."""
+
+    def call(*args, **kwargs):
+        import importlib
+
+        return getattr(importlib.import_module(module), name)(*args, **kwargs)
+
+    return call
+
+
 COMMANDS: list[Command] = [
     Command(
         "check",
         "load a site folder and list what was loaded and every problem found",
         _check_arguments,
         run_check,
+    ),
+    Command(
+        "estimate",
+        "estimate every snapshot of a site and summarise convergence and the chi-square test",
+        _lazy("calibra.cli_estimate", "add_arguments"),
+        _lazy("calibra.cli_estimate", "run"),
     ),
 ]
 

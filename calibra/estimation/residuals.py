@@ -48,7 +48,9 @@ def _state_covariance(H: np.ndarray, C: np.ndarray, inv_var: np.ndarray) -> np.n
     nc = C.shape[0]
     G = H.T @ (H * inv_var[:, None])
     # Scale rows/columns to unit diagonal so the dense factorization sees a balanced matrix.
-    d = np.sqrt(np.maximum(np.diag(G), 1e-300))
+    # A state seen only through the constraints has a zero diagonal: leave it unscaled.
+    gd = np.diag(G)
+    d = np.where(gd > 1e-12 * max(gd.max(initial=0.0), 1e-300), np.sqrt(np.abs(gd)), 1.0)
     Gs = G / d[:, None] / d[None, :]
     Cs = C / d[None, :]
     if nc:

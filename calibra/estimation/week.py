@@ -106,9 +106,11 @@ class BlockSolver:
         for i in np.flatnonzero(single):
             rows[i] = self._single(i, Z[i], confidence, out)
         sigma2 = model.sigma_pu ** 2
+        n_free = (self._nx - self._cidx.size) if ref is not None else 0
         for i in range(k):
             used = np.isfinite(out.residual[i])
             rows[i]["n_used"] = int(used.sum())
+            rows[i].setdefault("dof", int(used.sum()) - n_free)
             rows[i]["objective"] = float(np.sum(out.residual[i][used].astype(float) ** 2
                                                 / sigma2[used]))
         out.outcomes = pd.DataFrame(rows)
@@ -298,7 +300,8 @@ class BlockSolver:
     def _single(self, i: int, z: np.ndarray, confidence: float, out: BlockResult) -> dict:
         est = self.estimator.estimate(z, None, self.status)
         row = {"converged": est.converged, "iterations": est.iterations, "method": "single",
-               "reason": est.reason, "observable": est.observability.observable}
+               "reason": est.reason, "observable": est.observability.observable,
+               "dof": est.dof}
         if est.converged:
             out.vm[i], out.va[i] = est.vm, est.va
             out.residual[i] = est.residual
@@ -314,3 +317,73 @@ def _apply(layout: StateLayout, vm: np.ndarray, va: np.ndarray, dx: np.ndarray):
     mcol = layout.magnitude_column >= 0
     vm[mcol] += dx[layout.magnitude_column[mcol]]
     return vm, va
+
+
+@dataclass
+class PeriodResult:
+    """Block results of a whole period, stacked in time order (arrays as in BlockResult)."""
+
+    index: pd.Index
+    vm: np.ndarray
+    va: np.ndarray
+    residual: np.ndarray
+    omega: np.ndarray
+    outcomes: pd.DataFrame
+
+
+def topology_runs(in_service: np.ndarray, max_block: int) -> list[tuple[int, int]]:
+    """Split snapshot positions into runs of one topology, each at most ``max_block`` long."""
+    k = in_service.shape[0]
+    if k == 0:
+        return []
+    change = np.r_[True, np.any(in_service[1:] != in_service[:-1], axis=1)]
+    starts = np.flatnonzero(change)
+    ends = np.r_[starts[1:], k]
+    runs = []
+    for a, b in zip(starts, ends, strict=True):
+        for s in range(a, b, max_block):
+            runs.append((int(s), int(min(s + max_block, b))))
+    return runs
+
+
+def estimate_period(
+    estimator: Estimator,
+    z: np.ndarray,
+    in_service: np.ndarray,
+    index: pd.Index | None = None,
+    max_block: int = 360,
+    confidence: float = 0.99,
+    progress=None,
+) -> PeriodResult:
+    """Estimate every snapshot of a period (k × m per unit) block by block.
+
+    Blocks hold one topology and at most ``max_block`` consecutive snapshots (6 h of one-minute
+    data by default), so the reference state of a block stays close to all its snapshots.
+    """
+    from scipy.stats import chi2
+
+    k, m = z.shape
+    n = estimator.model.network.n_bus
+    vm = np.full((k, n), np.nan, np.float32)
+    va = np.full((k, n), np.nan, np.float32)
+    res = np.full((k, m), np.nan, np.float32)
+    om = np.full((k, m), np.nan, np.float32)
+    frames = []
+    runs = topology_runs(in_service, max_block)
+    for a, b in runs:
+        if progress is not None:
+            progress.update(a, k, "estimating snapshots")
+        block = BlockSolver(estimator, in_service[a]).solve(z[a:b], confidence)
+        vm[a:b], va[a:b], res[a:b], om[a:b] = block.vm, block.va, block.residual, block.omega
+        frames.append(block.outcomes)
+    if progress is not None:
+        progress.update(k, k, "estimating snapshots")
+    outcomes = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+    if len(outcomes):
+        dof = outcomes["dof"].clip(lower=1)
+        outcomes["chi2_threshold"] = chi2.ppf(confidence, dof)
+        outcomes["chi2_passed"] = outcomes["objective"] <= outcomes["chi2_threshold"]
+        outcomes.loc[~outcomes["converged"].astype(bool), "chi2_passed"] = False
+    idx = index if index is not None else pd.RangeIndex(k, name="snapshot")
+    outcomes.index = idx
+    return PeriodResult(idx, vm, va, res, om, outcomes)

@@ -1,0 +1,150 @@
+"""Classify one point's week: healthy, or which fault model explains it, with parameters.
+
+The decision rules (all documented in DEVELOPERS.md):
+
+1. Too few snapshots with both a measured and an implied value → "insufficient data".
+2. Runs of frozen values while the implied value moves → stuck (those snapshots are then left
+   out of the other fits).
+3. Fit gain (z = k·y), offset (z = y + c) and drift (z = y + a·(t − t₀)⁺). A model is a
+   candidate when it explains the data clearly better than "healthy" (median error at most
+   half the healthy one) and its systematic error is beyond the accuracy class limit at the
+   point's typical reading and statistically significant. The candidate with the lowest
+   median error wins; simpler models win near-ties (offset, scale before drift).
+4. Otherwise, a scatter well beyond the expected noise (meter class and the implied value's
+   own uncertainty) → noisy.
+
+Confidence is the share of snapshots, among those where the chosen model and "healthy" predict
+clearly different values, in which the chosen model is the closer one.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from calibra.diagnosis.fits import find_stuck_runs, fit_drift, fit_gain, robust_scale
+
+
+@dataclass
+class ClassifySettings:
+    """Thresholds of the per-point classification (see module docstring)."""
+
+    min_snapshots: int = 120  #: fewer valid snapshots → insufficient data
+    improvement: float = 2.0  #: healthy median error / model median error at least this
+    significance: float = 4.0  #: parameter / standard error at least this
+    noisy_factor: float = 3.0  #: scatter / expected scatter above this → noisy
+    stuck_minutes: int = 60  #: shortest frozen run counted as stuck (snapshots)
+    class_margin: float = 1.0  #: systematic error must exceed class limit × this
+
+
+@dataclass
+class PointSeries:
+    """A point's week: times in days from the period start, measured and implied values in
+    the point's unit, and its accuracy (σ and the class limit = accuracy % × full scale)."""
+
+    t_days: np.ndarray
+    z: np.ndarray
+    y: np.ndarray
+    sigma: float
+    class_limit: float
+    sigma_implied: float = 0.0
+    resolution: float = 0.0  #: historian rounding step, for frozen-value detection
+
+
+@dataclass
+class PointDiagnosis:
+    kind: str  # healthy, reversed, scale, offset, drift, stuck, noisy, insufficient
+    confidence: float = 0.0
+    params: dict = field(default_factory=dict)
+    n_used: int = 0
+    loss_healthy: float = float("nan")
+    loss_model: float = float("nan")
+    reason: str = ""
+
+
+def _confidence(e_model: np.ndarray, e_healthy: np.ndarray, noise: float) -> float:
+    differ = np.abs(np.abs(e_model) - np.abs(e_healthy)) > noise
+    if not differ.any():
+        return 0.0
+    return float((np.abs(e_model[differ]) < np.abs(e_healthy[differ])).mean())
+
+
+def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) -> PointDiagnosis:
+    """Classify one point from its measured and implied series."""
+    st = settings or ClassifySettings()
+    valid = np.isfinite(ps.z) & np.isfinite(ps.y)
+    n = int(valid.sum())
+    if n < st.min_snapshots:
+        return PointDiagnosis("insufficient", n_used=n,
+                              reason=f"only {n} snapshots with a measured and an implied value")
+    t, z, y = ps.t_days[valid], ps.z[valid], ps.y[valid]
+    noise = float(np.hypot(ps.sigma, ps.sigma_implied))
+    limit = ps.class_limit * st.class_margin
+
+    # Frozen values first: they would distort every other fit.
+    runs = find_stuck_runs(z, y, max(ps.resolution, 1e-9 * max(1.0, np.abs(z).max())),
+                           st.stuck_minutes, max(4 * noise, limit))
+    if runs:
+        frozen = np.zeros(n, bool)
+        for r in runs:
+            frozen[r.start:r.stop] = True
+        e_f = z[frozen] - y[frozen]
+        first, last = runs[0], runs[-1]
+        if np.median(np.abs(e_f)) > max(limit, 2 * noise):
+            return PointDiagnosis(
+                "stuck", confidence=float((np.abs(e_f) > noise).mean()), n_used=n,
+                params={"value": first.value, "onset_days": float(t[first.start]),
+                        "until_days": float(t[last.stop - 1]) if last.stop < n else None,
+                        "frozen_snapshots": int(frozen.sum()),
+                        "implied_min": float(y[frozen].min()),
+                        "implied_max": float(y[frozen].max())},
+                loss_healthy=float(np.median(np.abs(e_f))), loss_model=0.0,
+            )
+
+    e0 = z - y
+    loss0 = float(np.median(np.abs(e0)))
+    typical = float(np.median(np.abs(y)))
+    candidates: list[tuple[float, int, str, dict, np.ndarray]] = []
+
+    k = fit_gain(z, y, noise)
+    e_k = z - k * y
+    se_k = noise / max(np.sqrt(np.sum(y * y)), 1e-300)
+    loss_k = float(np.median(np.abs(e_k)))
+    if (abs(k - 1) * typical > limit and abs(k - 1) > st.significance * se_k
+            and loss0 >= st.improvement * loss_k):
+        kind = "reversed" if k < 0 else "scale"
+        candidates.append((loss_k, 0, kind, {"factor": k}, e_k))
+
+    c = float(np.median(e0))
+    e_c = e0 - c
+    loss_c = float(np.median(np.abs(e_c)))
+    se_c = 1.2533 * robust_scale(e0) / np.sqrt(n)
+    if abs(c) > limit and abs(c) > st.significance * se_c and loss0 >= st.improvement * loss_c:
+        candidates.append((loss_c, 1, "offset", {"offset": c}, e_c))
+
+    t0, a, loss_d = fit_drift(t, e0)
+    if np.isfinite(t0):
+        reach = abs(a) * (t.max() - t0)
+        ramp = np.maximum(t - t0, 0.0)
+        se_a = noise / max(np.sqrt(np.sum(ramp * ramp)), 1e-300)
+        if reach > limit and abs(a) > st.significance * se_a and loss0 >= st.improvement * loss_d:
+            candidates.append((loss_d, 2, "drift", {"drift_per_day": a, "onset_days": t0},
+                               e0 - a * ramp))
+
+    if candidates:
+        # Lowest loss wins; a simpler model wins when within 10 % of the best loss.
+        best_loss = min(cand[0] for cand in candidates)
+        near = [cand for cand in candidates if cand[0] <= 1.1 * best_loss + 1e-12]
+        loss, _, kind, params, e_m = min(near, key=lambda cand: cand[1])
+        return PointDiagnosis(kind, _confidence(e_m, e0, noise), params, n, loss0, loss)
+
+    scatter = robust_scale(e0)
+    if scatter > st.noisy_factor * noise and scatter > ps.class_limit / 3.0 * st.noisy_factor:
+        return PointDiagnosis(
+            "noisy", confidence=float(min(1.0, 1 - st.noisy_factor * noise / scatter + 0.5)),
+            params={"scatter": scatter, "expected": noise}, n_used=n, loss_healthy=loss0,
+            loss_model=loss0,
+        )
+    return PointDiagnosis("healthy", n_used=n, loss_healthy=loss0, loss_model=loss0,
+                          params={"scatter": scatter, "bias": c})

@@ -1,0 +1,176 @@
+"""Turn per-point diagnoses into findings: device-level conclusions, causes, plain evidence."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from calibra.diagnosis.causes import likely_scale_cause
+from calibra.diagnosis.classify import PointDiagnosis
+from calibra.diagnosis.findings import Finding
+from calibra.model.site import Site
+
+_POWER = ("p_flow", "q_flow", "p_injection", "q_injection")
+
+
+def _fmt(x: float, unit: str, signed: bool = True) -> str:
+    digits = 2 if abs(x) < 10 else 1
+    return f"{x:+,.{digits}f} {unit}" if signed else f"{x:,.{digits}f} {unit}"
+
+
+def _stamp(ts: pd.Timestamp, tz: str) -> str:
+    return ts.tz_convert(tz).strftime("%a %Y-%m-%d %H:%M")
+
+
+def _representative_pair(z: np.ndarray, y: np.ndarray) -> tuple[float, float]:
+    """A typical snapshot with a well-loaded reading: 75th percentile of |implied|."""
+    ok = np.isfinite(z) & np.isfinite(y)
+    if not ok.any():
+        return float("nan"), float("nan")
+    zz, yy = z[ok], y[ok]
+    j = int(np.argsort(np.abs(yy))[int(0.75 * (yy.size - 1))])
+    return float(zz[j]), float(yy[j])
+
+
+def _evidence(kind: str, d: PointDiagnosis, z: np.ndarray, y: np.ndarray, unit: str,
+              limit: float, index: pd.DatetimeIndex, tz: str, extra: dict) -> str:
+    n = f"{d.n_used:,}"
+    share = f"{100 * d.confidence:.1f} %"
+    p = d.params
+    if kind in ("reversed", "scale"):
+        zr, yr = _representative_pair(z, y)
+        verb = "reads" if kind == "reversed" else "reads"
+        text = (f"{verb} {_fmt(zr, unit)} where the network implies {_fmt(yr, unit)}; "
+                f"measured ≈ {p['factor']:.3f} × implied in {share} of {n} snapshots")
+        return text
+    if kind == "offset":
+        return (f"reads {_fmt(p['offset'], unit)} off the implied value (class limit "
+                f"±{_fmt(limit, unit, False)}), consistent in {share} of {n} snapshots")
+    if kind == "drift":
+        onset = index[0] + pd.Timedelta(days=p["onset_days"])
+        reach = p["drift_per_day"] * ((index[-1] - onset).total_seconds() / 86400)
+        return (f"error grows {_fmt(p['drift_per_day'], unit)}/day from "
+                f"{_stamp(onset, tz)}, reaching {_fmt(reach, unit)} (class limit "
+                f"±{_fmt(limit, unit, False)}); {n} snapshots")
+    if kind == "stuck":
+        onset = index[0] + pd.Timedelta(days=p["onset_days"])
+        text = (f"frozen at {_fmt(p['value'], unit, False)} from {_stamp(onset, tz)} "
+                f"({p['frozen_snapshots']:,} snapshots) while the network implies "
+                f"{_fmt(p['implied_min'], unit)} … {_fmt(p['implied_max'], unit)}")
+        return text
+    if kind == "noisy":
+        return (f"scatters ±{_fmt(p['scatter'], unit, False)} (1σ) around the implied value, "
+                f"{p['scatter'] / max(p['expected'], 1e-12):.1f}× what its accuracy class and "
+                f"the network explain; {n} snapshots")
+    if kind == "mismapped":
+        return (f"follows {extra['matched']} (median difference "
+                f"{_fmt(extra['loss'], unit, False)}) rather than its own quantity "
+                f"(median difference {_fmt(d.loss_healthy, unit, False)}); {n} snapshots")
+    if kind == "unverifiable":
+        sugg = extra.get("suggestion")
+        more = (f"; a meter on {sugg} would make it checkable" if sugg else
+                "; no single nearby meter would make it checkable")
+        return "critical measurement: no other meter checks it" + more
+    return ""
+
+
+_ACTIONS = {
+    "reversed": "check CT polarity marks and secondary wiring; check the sign in the RTU/IED",
+    "scale": "check CT/VT ratio and tap against the point list; check transducer and RTU scaling",
+    "offset": "check transducer zero; calibrate",
+    "drift": "calibrate against a reference meter; replace if out of class",
+    "stuck": "check RTU/IED communication and the transducer output",
+    "noisy": "check wiring, shielding and earthing; check transducer health",
+    "mismapped": "check the point mapping in the RTU/IED against the point list",
+    "unverifiable": "add the suggested meter or verify with a portable reference meter",
+}
+
+
+def build_findings(site: Site, ev, diagnoses: dict[str, PointDiagnosis], mismaps: dict,
+                   unverifiable: dict) -> list[Finding]:
+    """Findings per point, merged to device level where all channels agree."""
+    pts = site.points
+    model = ev.model
+    tz = site.timezone
+    findings: list[Finding] = []
+    for i, tag in enumerate(model.tags):
+        tag = str(tag)
+        d = diagnoses[tag]
+        kind = d.kind
+        extra: dict = {}
+        if tag in mismaps:
+            kind, extra = "mismapped", mismaps[tag]
+        elif tag in unverifiable:
+            kind, extra = "unverifiable", unverifiable[tag]
+        if kind in ("healthy", "insufficient"):
+            continue
+        pt = pts.loc[tag]
+        unit = str(pt["unit"])
+        limit = float(pt["accuracy_pct"]) / 100.0 * float(pt["full_scale"])
+        z = ev.measured[:, i].astype(float)
+        y = ev.implied[:, i].astype(float)
+        f = Finding(
+            tag=tag, device=str(pt["device"]), substation=str(pt["substation"]), finding=kind,
+            confidence=round(float(d.confidence), 3) if kind != "unverifiable" else 1.0,
+            evidence=_evidence(kind, d, z, y, unit, limit, ev.index, tz, extra),
+            quantity=str(pt["quantity"]), element=str(pt["element"]), end=str(pt["end"]),
+            unit=unit, rtu=str(pt.get("rtu", "")), channel=str(pt.get("channel", "")),
+            action=_ACTIONS[kind], snapshots_used=d.n_used,
+            share_supporting=round(float(d.confidence), 3),
+        )
+        p = d.params
+        if kind in ("reversed", "scale"):
+            f.factor = round(float(p["factor"]), 4)
+            if kind == "scale":
+                f.cause = likely_scale_cause(p["factor"], f.quantity, str(pt.get("ct_ratio", "")))
+        elif kind == "offset":
+            f.offset = float(p["offset"])
+        elif kind == "drift":
+            f.drift_per_day = float(p["drift_per_day"])
+            f.onset = ev.index[0] + pd.Timedelta(days=p["onset_days"])
+        elif kind == "stuck":
+            f.onset = ev.index[0] + pd.Timedelta(days=p["onset_days"])
+            if p.get("until_days") is not None:
+                f.until = ev.index[0] + pd.Timedelta(days=p["until_days"])
+        elif kind == "mismapped":
+            f.matched = extra["matched"]
+            f.confidence = round(float(min(1.0, 1 - extra["loss"] / max(d.loss_healthy, 1e-12))), 3)
+        findings.append(f)
+    _merge_devices(findings, pts)
+    return findings
+
+
+def _merge_devices(findings: list[Finding], pts: pd.DataFrame) -> None:
+    """Mark device-level conclusions: every power channel of a device reversed (CT polarity),
+    scaled alike (CT/VT ratio), or P and Q crossed."""
+    by_device: dict[str, list[Finding]] = {}
+    for f in findings:
+        by_device.setdefault(f.device, []).append(f)
+    for device, group in by_device.items():
+        channels = pts.index[(pts["device"].astype(str) == device)
+                             & pts["quantity"].isin(_POWER)]
+        if len(channels) < 2:
+            continue
+        found = {f.tag: f for f in group if f.quantity in _POWER}
+        if set(found) != set(channels):
+            continue
+        kinds = {f.finding for f in found.values()}
+        if kinds == {"reversed"}:
+            for f in found.values():
+                f.scope = "device"
+                f.cause = "CT polarity reversed: all power channels of the device read negated"
+        elif kinds == {"scale"}:
+            factors = np.array([f.factor for f in found.values()], float)
+            if np.ptp(factors) <= 0.03 * np.abs(factors).mean():
+                for f in found.values():
+                    f.scope = "device"
+                    f.cause = f.cause or "one ratio error on the device's CT or VT"
+        elif kinds == {"mismapped"}:
+            crossed = all(f.matched.split(" of ")[0] in ("p_flow", "q_flow", "p_injection",
+                                                         "q_injection")
+                          and f.matched.split(" of ")[0][0] != f.quantity[0]
+                          for f in found.values())
+            if crossed:
+                for f in found.values():
+                    f.scope = "device"
+                    f.cause = "P and Q channels crossed at the device"

@@ -1,0 +1,247 @@
+"""Week evidence: every point's measured values against what the rest of the network implies.
+
+Several bad meters contaminate each other's residuals, so the evidence is built in rounds
+(a week-long form of largest-normalized-residual identification, after Handschin et al., IEEE
+Trans. PAS-94(2), 1975, applied to statistics over many snapshots):
+
+1. Screening rounds on a subsample of the period (every ``screening_step``-th snapshot):
+   estimate, take each point's ``screening_quantile`` of normalized residuals over the
+   snapshots; points above the threshold are suspects. The strongest suspect is set aside, and
+   so is every further suspect whose residuals are not correlated with an already chosen one
+   (a bad meter inflates its neighbours' residuals; those recover once it is set aside).
+   Repeat until no suspect remains. A point is never set aside if that would leave part of the
+   network unobservable.
+2. A full-resolution estimate without the set-aside points. The implied value of a point in
+   the estimate is z − r/S (the value the other measurements imply: b̂ = r/S is the estimated
+   error); for a point set aside it is h(x̂), an estimate made without it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from calibra.estimation.model import MeasurementModel
+from calibra.estimation.residuals import (
+    CRITICAL_S,
+    analyse_residuals,
+    residual_correlation,
+)
+from calibra.estimation.site_estimate import topology_per_snapshot
+from calibra.estimation.week import PeriodResult, estimate_period
+from calibra.estimation.wls import Estimator, SnapshotEstimate
+from calibra.model.site import Site
+from calibra.progress import Progress
+
+
+@dataclass
+class EvidenceSettings:
+    confidence: float = 0.99  #: chi-square test level
+    normalized_threshold: float = 3.0  #: common practice (value from memory)
+    screening_quantile: float = 0.8  #: "consistently" = in at least 20 % of snapshots
+    screening_step: int = 10
+    max_rounds: int = 12
+    max_block: int = 360
+    min_sensitivity: float = 0.02  #: below this S the implied value is too uncertain to use
+
+
+@dataclass
+class Representative:
+    """A fully analysed snapshot with the final set of points, for per-point redundancy."""
+
+    estimate: SnapshotEstimate
+    sensitivity: np.ndarray  # Sᵢᵢ per point (NaN for points not used)
+    critical: np.ndarray
+    sigma_implied: np.ndarray  # σ of the implied value per point, in the point's unit
+    position: int
+    covariance: np.ndarray = field(repr=False, default_factory=lambda: np.zeros((0, 0)))
+
+
+@dataclass
+class WeekEvidence:
+    """Per-point evidence over the period (arrays k × m float32, values in the points' units)."""
+
+    index: pd.DatetimeIndex
+    model: MeasurementModel
+    measured: np.ndarray
+    implied: np.ndarray
+    normalized: np.ndarray
+    set_aside: np.ndarray  # bool per point
+    period: PeriodResult
+    in_service: np.ndarray
+    representative: Representative | None
+    rounds: list[dict] = field(default_factory=list)
+
+    @property
+    def tags(self) -> pd.Index:
+        return self.model.tags
+
+
+def _normalized(period: PeriodResult) -> np.ndarray:
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.abs(period.residual) / np.sqrt(period.omega)
+
+
+def _quantile_over_snapshots(x: np.ndarray, q: float, min_count: int = 20) -> np.ndarray:
+    count = np.isfinite(x).sum(axis=0)
+    out = np.full(x.shape[1], np.nan)
+    ok = count >= min_count
+    if ok.any():
+        out[ok] = np.nanquantile(x[:, ok], q, axis=0)
+    return out
+
+
+def _representative(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
+                    set_aside: np.ndarray, confidence: float) -> Representative | None:
+    """The most complete snapshot, estimated and analysed exactly without the set-aside points."""
+    avail = np.isfinite(z) & ~set_aside[None, :]
+    order = np.argsort(-avail.sum(axis=1), kind="stable")
+    model = estimator.model
+    for pos in order[:10]:
+        zz = np.where(set_aside, np.nan, z[pos])
+        est = estimator.estimate(zz, None, in_service[pos])
+        if not est.converged:
+            continue
+        a = analyse_residuals(estimator, est, confidence)
+        sig_y = np.full(model.m, np.nan)
+        used = est.used
+        s = a.sensitivity_diag
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sig_y[used] = model.sigma_pu[used] * np.sqrt(np.maximum(1 - s[used], 0) / s[used])
+        # Points not used: σ of h(x̂) from the state covariance.
+        others = np.flatnonzero(~used)
+        if others.size and a.state_covariance.size:
+            H = model.functions.jacobian(est.vm, est.va, est.layout, est.in_service)[others]
+            H = H.toarray()
+            var = np.einsum("ij,jk,ik->i", H, a.state_covariance, H)
+            sig_y[others] = np.sqrt(np.maximum(var, 0.0))
+        return Representative(est, s, a.critical, sig_y / model.to_pu, int(pos),
+                              a.state_covariance)
+    return None
+
+
+def _pick_suspects(estimator: Estimator, rep: Representative | None, candidates: np.ndarray,
+                   stat: np.ndarray, base: np.ndarray, set_aside: np.ndarray,
+                   in_service: np.ndarray, threshold: float) -> list[int]:
+    """Strongest suspects first; skip those whose excess the picked ones may explain.
+
+    A gross error bᵢ shows in another point's normalized residual as |ρᵢⱼ|·rᴺᵢ (ρ: residual
+    correlation), so a suspect j is left for the next round when its statistic minus the
+    share the picked points explain falls below 1.5 × the threshold.
+    """
+    picked: list[int] = []
+    corr_rows: list[np.ndarray] = []
+    analysis = None
+    for i in candidates[np.argsort(-stat[candidates])]:
+        explained = sum(abs(np.nan_to_num(row[i])) * stat[p]
+                        for row, p in zip(corr_rows, picked, strict=True))
+        if corr_rows and stat[i] - explained < 1.5 * threshold:
+            continue
+        trial = base & ~set_aside
+        trial[picked + [int(i)]] = False
+        if not estimator.observability(trial, in_service).observable:
+            continue
+        picked.append(int(i))
+        if rep is not None and rep.estimate.used[i]:
+            if analysis is None:
+                analysis = analyse_residuals(estimator, rep.estimate)
+            corr_rows.append(residual_correlation(estimator, rep.estimate, analysis, int(i)))
+        else:
+            break  # no correlation available: one suspect per round
+    return picked
+
+
+def gather_evidence(
+    site: Site,
+    settings: EvidenceSettings | None = None,
+    snapshots: pd.DataFrame | None = None,
+    progress: Progress | None = None,
+    initial_set_aside: np.ndarray | None = None,
+    screen: bool = True,
+) -> WeekEvidence:
+    """Build the week evidence for every analog point of ``site``.
+
+    ``snapshots`` (default: the site's) are the values to review, already corrected for any
+    software corrections in force. ``initial_set_aside`` marks points to leave out from the
+    start; ``screen=False`` skips the screening rounds.
+    """
+    st = settings or EvidenceSettings()
+    snaps = site.snapshots if snapshots is None else snapshots
+    model = MeasurementModel.from_points(site.network, site.points)
+    estimator = Estimator(model)
+    values = snaps.reindex(columns=model.tags).to_numpy(float)
+    z = model.to_per_unit(values)
+    in_service = topology_per_snapshot(site, snaps)
+    k, m = z.shape
+    base = np.isfinite(z).any(axis=0)
+    set_aside = np.zeros(m, bool) if initial_set_aside is None else initial_set_aside.copy()
+    rounds: list[dict] = []
+    step = max(1, st.screening_step)
+    sub = np.arange(0, k, step)
+    z_sub, ins_sub = z[sub], in_service[sub]
+    for rnd in range(st.max_rounds if screen else 0):
+        if progress is not None:
+            progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
+        zr = np.where(set_aside[None, :], np.nan, z_sub)
+        period = estimate_period(estimator, zr, ins_sub, max_block=max(60, st.max_block // step),
+                                 confidence=st.confidence)
+        stat = _quantile_over_snapshots(_normalized(period), st.screening_quantile)
+        cand = np.flatnonzero((stat > st.normalized_threshold) & ~set_aside)
+        rounds.append({
+            "round": rnd + 1, "snapshots": len(sub),
+            "chi2_failed": int((~period.outcomes["chi2_passed"].astype(bool)).sum()),
+            "suspects": int(cand.size),
+        })
+        if cand.size == 0:
+            break
+        rep = _representative(estimator, z_sub, ins_sub, set_aside, st.confidence)
+        picked = _pick_suspects(estimator, rep, cand, stat, base, set_aside, ins_sub[0],
+                                st.normalized_threshold)
+        if not picked:
+            break
+        set_aside[picked] = True
+        rounds[-1]["set_aside"] = [str(model.tags[i]) for i in picked]
+
+    if progress is not None:
+        progress.update(st.max_rounds, st.max_rounds + 2, "estimating the full period")
+    zf = np.where(set_aside[None, :], np.nan, z)
+    period = estimate_period(estimator, zf, in_service, snaps.index, st.max_block, st.confidence)
+    implied = _implied_values(model, z, period, set_aside, in_service, st.min_sensitivity)
+    rep = _representative(estimator, z, in_service, set_aside, st.confidence)
+    return WeekEvidence(
+        index=snaps.index, model=model, measured=values.astype(np.float32),
+        implied=implied, normalized=_normalized(period).astype(np.float32),
+        set_aside=set_aside, period=period, in_service=in_service, representative=rep,
+        rounds=rounds,
+    )
+
+
+def _implied_values(model: MeasurementModel, z: np.ndarray, period: PeriodResult,
+                    set_aside: np.ndarray, in_service: np.ndarray,
+                    min_sensitivity: float) -> np.ndarray:
+    """z − r/S for points in the estimate; h(x̂) for points set aside (in the points' units)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s = period.omega / model.sigma_pu[None, :] ** 2
+        implied = z - period.residual / s
+    implied[~(s >= max(min_sensitivity, CRITICAL_S))] = np.nan
+    cols = np.flatnonzero(set_aside)
+    if cols.size:
+        k = z.shape[0]
+        sub = model.functions
+        chunk = 2048
+        for a in range(0, k, chunk):
+            b = min(a + chunk, k)
+            vm = period.vm[a:b].T.astype(float)
+            va = period.va[a:b].T.astype(float)
+            ok = np.isfinite(vm).all(axis=0)
+            # One topology per call: group the chunk's snapshots by their branch status.
+            stat = in_service[a:b]
+            for row in {r.tobytes(): r for r in stat}.values():
+                sel = np.flatnonzero(ok & np.all(stat == row, axis=1))
+                if sel.size == 0:
+                    continue
+                h = sub.evaluate(vm[:, sel], va[:, sel], row)
+                implied[a + sel[:, None], cols[None, :]] = h[cols].T
+    return (implied / model.to_pu[None, :]).astype(np.float32)

@@ -1,0 +1,85 @@
+"""Findings: what the week review concludes about a point or a device, as plain data.
+
+``findings.csv`` is an interface (documented in README.md): one row per finding with at least
+the columns of :data:`FINDING_COLUMNS`, in that order; further columns follow.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+
+import pandas as pd
+
+#: Kinds of finding, in the words the findings file uses.
+FINDING_KINDS = (
+    "reversed", "scale", "offset", "drift", "stuck", "noisy", "mismapped", "unverifiable",
+)
+
+#: The stable leading columns of findings.csv.
+FINDING_COLUMNS = [
+    "tag", "device", "substation", "finding", "factor", "offset", "drift_per_day", "onset",
+    "confidence", "evidence",
+]
+#: Further columns, also written to findings.csv after the stable ones.
+EXTRA_COLUMNS = [
+    "scope", "quantity", "element", "end", "unit", "rtu", "channel", "cause", "action",
+    "matched", "until", "snapshots_used", "share_supporting", "finding_id",
+]
+
+
+@dataclass
+class Finding:
+    """One conclusion about one point.
+
+    ``scope`` is ``"device"`` when the same conclusion holds for every channel of the device
+    (e.g. CT polarity reverses P and Q), else ``"point"``. ``factor``: measured ≈ factor ×
+    implied (reversed, scale); ``offset``: measured ≈ implied + offset (offset, in the point's
+    unit); ``drift_per_day``: the error grows by this much per day from ``onset``;
+    ``matched``: for a mismapped point, the quantity it actually reads; ``until``: the end of a
+    stuck or drifting interval when it ended inside the period.
+    """
+
+    tag: str
+    device: str
+    substation: str
+    finding: str
+    confidence: float
+    evidence: str
+    factor: float | None = None
+    offset: float | None = None
+    drift_per_day: float | None = None
+    onset: pd.Timestamp | None = None
+    scope: str = "point"
+    quantity: str = ""
+    element: str = ""
+    end: str = ""
+    unit: str = ""
+    rtu: str = ""
+    channel: str = ""
+    cause: str = ""
+    action: str = ""
+    matched: str = ""
+    until: pd.Timestamp | None = None
+    snapshots_used: int = 0
+    share_supporting: float = 0.0
+    details: dict = field(default_factory=dict)
+
+    @property
+    def finding_id(self) -> str:
+        """Stable key used to match a finding across reviews: tag and kind."""
+        return f"{self.tag}|{self.finding}"
+
+    def as_row(self) -> dict:
+        row = asdict(self)
+        row.pop("details")
+        row["finding_id"] = self.finding_id
+        return row
+
+
+def findings_table(findings: list[Finding]) -> pd.DataFrame:
+    """Findings as a DataFrame with the findings.csv columns, stable columns first."""
+    cols = FINDING_COLUMNS + EXTRA_COLUMNS
+    if not findings:
+        return pd.DataFrame(columns=cols)
+    df = pd.DataFrame([f.as_row() for f in findings])
+    return df[cols]

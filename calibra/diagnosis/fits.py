@@ -1,0 +1,123 @@
+"""Fault models fitted to one point's week: measured value z against the implied value y.
+
+Every model explains the measured series from the implied one (what the rest of the network
+says the point should read). The models and their parameters:
+
+- healthy: z = y
+- reversed / scale: z = k·y (k = −1 for a reversal)
+- offset: z = y + c
+- drift: z = y + a·(t − t₀)⁺ (error growing linearly from an onset t₀)
+- stuck: z frozen at one value over a run of snapshots while y moves
+- noisy: z = y + e with a scatter of e well beyond the accuracy class
+
+Fits use robust statistics (medians, Huber-weighted least squares), because a week of
+telemetry has transients, missing data and the occasional spike. Thresholds are tied to the
+meter's accuracy class: a systematic deviation must exceed the class limit (accuracy_pct % of
+full scale) at the point's typical reading to count as a fault.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+#: Scale factor of the median absolute deviation to a gaussian standard deviation.
+MAD_TO_SIGMA = 1.4826
+
+
+@dataclass
+class ModelFit:
+    """One fitted model: its name, parameters, and robust loss (median |error|)."""
+
+    name: str
+    loss: float
+    params: dict = field(default_factory=dict)
+    support: float = 0.0  # share of snapshots the model explains better than "healthy"
+
+
+def robust_scale(x: np.ndarray) -> float:
+    """Gaussian-equivalent spread from the median absolute deviation."""
+    if x.size == 0:
+        return float("nan")
+    return float(MAD_TO_SIGMA * np.median(np.abs(x - np.median(x))))
+
+
+def _support(e_model: np.ndarray, e_healthy: np.ndarray, floor: float) -> float:
+    """Share of snapshots where the model's error is clearly below the healthy model's."""
+    if e_model.size == 0:
+        return 0.0
+    better = np.abs(e_model) + floor < np.abs(e_healthy)
+    return float(better.mean())
+
+
+def fit_gain(z: np.ndarray, y: np.ndarray, noise: float, iterations: int = 8) -> float:
+    """Robust least-squares gain k in z ≈ k·y (Huber weights at 2 noise units)."""
+    w = np.ones_like(y)
+    k = float(np.sum(z * y) / max(np.sum(y * y), 1e-300))
+    for _ in range(iterations):
+        e = z - k * y
+        a = np.abs(e) / max(noise, 1e-12)
+        w = np.where(a <= 2.0, 1.0, 2.0 / np.maximum(a, 1e-12))
+        den = np.sum(w * y * y)
+        if den <= 0:
+            break
+        k = float(np.sum(w * z * y) / den)
+    return k
+
+
+def fit_drift(t: np.ndarray, e: np.ndarray,
+              grid_step: float = 1.0 / 24) -> tuple[float, float, float]:
+    """Best linear drift from an onset: e ≈ a·(t − t₀)⁺, t in days.
+
+    Scans onsets on a grid (hourly by default) then refines around the best one; returns
+    (t₀, a, loss) with loss the median |residual|.
+    """
+    if t.size < 3:
+        return float("nan"), 0.0, float("inf")
+    t0s = np.arange(t.min(), t.max() - grid_step, grid_step)
+    if t0s.size == 0:
+        return float("nan"), 0.0, float("inf")
+    best = (float("nan"), 0.0, float("inf"))
+    # Vectorised least squares for every candidate onset.
+    ramp = np.maximum(t[None, :] - t0s[:, None], 0.0)  # (onsets, snapshots)
+    den = np.sum(ramp * ramp, axis=1)
+    a = np.where(den > 0, (ramp @ e) / np.maximum(den, 1e-300), 0.0)
+    sse = np.sum((e[None, :] - a[:, None] * ramp) ** 2, axis=1)
+    j = int(np.argmin(sse))
+    # Refine on a finer grid around the best coarse onset.
+    fine = np.linspace(t0s[max(j - 1, 0)], t0s[min(j + 1, t0s.size - 1)], 25)
+    ramp_f = np.maximum(t[None, :] - fine[:, None], 0.0)
+    den_f = np.sum(ramp_f * ramp_f, axis=1)
+    a_f = np.where(den_f > 0, (ramp_f @ e) / np.maximum(den_f, 1e-300), 0.0)
+    sse_f = np.sum((e[None, :] - a_f[:, None] * ramp_f) ** 2, axis=1)
+    jf = int(np.argmin(sse_f))
+    loss = float(np.median(np.abs(e - a_f[jf] * ramp_f[jf])))
+    best = (float(fine[jf]), float(a_f[jf]), loss)
+    return best
+
+
+@dataclass
+class StuckRun:
+    start: int  # index into the valid series
+    stop: int  # exclusive
+    value: float
+
+
+def find_stuck_runs(z: np.ndarray, y: np.ndarray, resolution: float, min_length: int,
+                    min_implied_spread: float) -> list[StuckRun]:
+    """Runs of at least ``min_length`` snapshots where z does not change (within
+    ``resolution``) while the implied value moves by more than ``min_implied_spread``."""
+    if z.size < min_length:
+        return []
+    same = np.abs(np.diff(z)) <= resolution
+    runs = []
+    start = 0
+    for i in range(1, z.size + 1):
+        if i == z.size or not same[i - 1]:
+            if i - start >= min_length:
+                seg = y[start:i]
+                if np.ptp(seg) > min_implied_spread:
+                    runs.append(StuckRun(start, i, float(np.median(z[start:i]))))
+            start = i
+    return runs

@@ -1,0 +1,152 @@
+"""The week review: evidence, per-point classification, crossed points, unverifiable meters,
+and device-level conclusions, as a list of :class:`~calibra.diagnosis.findings.Finding`."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from calibra.diagnosis.classify import ClassifySettings, PointDiagnosis, PointSeries, classify_point
+from calibra.diagnosis.describe import build_findings
+from calibra.diagnosis.evidence import EvidenceSettings, WeekEvidence, gather_evidence
+from calibra.diagnosis.mismap import (
+    QuantityEvaluator,
+    best_match,
+    own_quantity,
+    substation_quantities,
+    unit_family,
+)
+from calibra.diagnosis.redundancy import suggest_meter
+from calibra.model.points import analog_points
+from calibra.model.site import Site
+from calibra.progress import Progress
+
+
+@dataclass
+class ReviewSettings:
+    """Everything that tunes a review (saved per site by the application)."""
+
+    evidence: EvidenceSettings = field(default_factory=EvidenceSettings)
+    classify: ClassifySettings = field(default_factory=ClassifySettings)
+    #: Full-resolution passes: points found faulty but still in the estimate are set aside and
+    #: the period estimated again, until nothing new is set aside.
+    max_passes: int = 3
+
+
+@dataclass
+class ReviewResult:
+    site_name: str
+    period_start: pd.Timestamp
+    period_end: pd.Timestamp
+    evidence: WeekEvidence
+    diagnoses: dict[str, PointDiagnosis]
+    findings: list
+    summary: dict
+
+
+def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSeries:
+    model = ev.model
+    tag = model.tags[i]
+    pt = site.points.loc[tag]
+    sigma = float(model.sigma_pu[i] / model.to_pu[i])
+    limit = float(pt["accuracy_pct"]) / 100.0 * float(pt["full_scale"])
+    sig_y = 0.0
+    rep = ev.representative
+    if rep is not None and np.isfinite(rep.sigma_implied[i]):
+        sig_y = float(rep.sigma_implied[i])
+    return PointSeries(t_days, ev.measured[:, i].astype(float), ev.implied[:, i].astype(float),
+                       sigma, limit, sig_y)
+
+
+def _classify_all(site: Site, ev: WeekEvidence, settings: ClassifySettings) -> dict:
+    t_days = ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
+    return {str(ev.model.tags[i]): classify_point(_series(site, ev, t_days, i), settings)
+            for i in range(ev.model.m)}
+
+
+def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
+    """Check suspicious points against the other quantities of their substation."""
+    pts = site.points
+    suspicious = [t for t, d in diagnoses.items()
+                  if d.kind not in ("healthy", "insufficient")]
+    out: dict[str, dict] = {}
+    by_sub: dict[str, list[str]] = {}
+    bus_sub = site.network.buses["substation"].astype(str).to_numpy()
+    for tag in suspicious:
+        # The substation where the point really sits, from the network model.
+        sub = bus_sub[ev.model.bus_of_point[ev.model.tags.get_loc(tag)]]
+        by_sub.setdefault(sub, []).append(tag)
+    vm = ev.period.vm
+    va = ev.period.va
+    for sub, tags in by_sub.items():
+        quantities = substation_quantities(site.network, sub)
+        if not quantities:
+            continue
+        values = QuantityEvaluator(site.network, quantities).evaluate(vm, va, ev.in_service)
+        for tag in tags:
+            i = ev.model.tags.get_loc(tag)
+            z = ev.measured[:, i].astype(float)
+            own = own_quantity(pts.loc[tag])
+            match = best_match(z, values.astype(float), quantities, own,
+                               unit_family(own.quantity))
+            d = diagnoses[tag]
+            if match is None:
+                continue
+            sigma = float(ev.model.sigma_pu[i] / ev.model.to_pu[i])
+            rival = d.loss_model if np.isfinite(d.loss_model) else d.loss_healthy
+            # Reading another quantity needs no fitted parameter: it wins when it explains the
+            # point about as well as the best fault model, at noise level, where the point's
+            # own quantity does not.
+            standard = (d.kind == "reversed" and abs(d.params.get("factor", 0) + 1) <= 0.1)
+            clearly_better = match.loss < 0.5 * rival
+            if ((clearly_better or (not standard and match.loss <= 1.1 * rival))
+                    and match.loss < 2.0 * sigma and d.loss_healthy > 3.0 * match.loss):
+                out[tag] = {"matched": match.quantity.label(), "loss": match.loss,
+                            "sign": match.factor, "matched_quantity": match.quantity}
+    return out
+
+
+def review_site(
+    site: Site,
+    settings: ReviewSettings | None = None,
+    snapshots: pd.DataFrame | None = None,
+    progress: Progress | None = None,
+) -> ReviewResult:
+    """Review a period of a site (``snapshots``: the values to review, corrections applied)."""
+    st = settings or ReviewSettings()
+    snaps = site.snapshots if snapshots is None else snapshots
+    ev = gather_evidence(site, st.evidence, snaps, progress)
+    diagnoses = _classify_all(site, ev, st.classify)
+    for _ in range(st.max_passes - 1):
+        faulty = np.array([diagnoses[str(t)].kind not in ("healthy", "insufficient")
+                           for t in ev.model.tags])
+        extra = faulty & ~ev.set_aside
+        if not extra.any():
+            break
+        ev = gather_evidence(site, st.evidence, snaps, progress,
+                             initial_set_aside=ev.set_aside | extra, screen=False)
+        diagnoses = _classify_all(site, ev, st.classify)
+    mismaps = _mismapped(site, ev, diagnoses)
+    unverifiable = {}
+    rep = ev.representative
+    if rep is not None:
+        for i in np.flatnonzero(rep.critical):
+            tag = str(ev.model.tags[i])
+            unverifiable[tag] = suggest_meter(site, ev, i)
+    findings = build_findings(site, ev, diagnoses, mismaps, unverifiable)
+    outcomes = ev.period.outcomes
+    conv = outcomes["converged"].astype(bool)
+    summary = {
+        "snapshots": int(len(outcomes)),
+        "converged": int(conv.sum()),
+        "chi2_failed": int((~outcomes.loc[conv, "chi2_passed"].astype(bool)).sum()),
+        "not_observable": int((~outcomes["observable"].astype(bool)).sum()),
+        "points": int(len(analog_points(site.points))),
+        "set_aside": int(ev.set_aside.sum()),
+        "findings": len(findings),
+        "rounds": ev.rounds,
+    }
+    return ReviewResult(site.name, snaps.index[0], snaps.index[-1], ev, diagnoses, findings,
+                        summary)
