@@ -6,10 +6,11 @@ The decision rules (all documented in DEVELOPERS.md):
 2. Runs of frozen values while the implied value moves → stuck (those snapshots are then left
    out of the other fits).
 3. Fit gain (z = k·y), offset (z = y + c) and drift (z = y + a·(t − t₀)⁺). A model is a
-   candidate when it explains the data clearly better than "healthy" (median error at most
-   half the healthy one) and its systematic error is beyond the accuracy class limit at the
-   point's typical reading and statistically significant. The candidate with the lowest
-   median error wins; simpler models win near-ties (offset, scale before drift).
+   candidate when it explains the data clearly better than "healthy" where the two differ
+   (median error at most half the healthy one there) and its systematic error is beyond the
+   accuracy class limit at the point's typical reading and statistically significant. The
+   candidate with the lowest mean error wins; simpler models win near-ties (scale, offset,
+   then drift).
 4. Otherwise, a scatter well beyond the expected noise (meter class and the implied value's
    own uncertainty) → noisy.
 
@@ -63,6 +64,18 @@ class PointDiagnosis:
     reason: str = ""
 
 
+def _improves(e_model: np.ndarray, e_healthy: np.ndarray, noise: float, ratio: float,
+              min_count: int) -> bool:
+    """Where the model and "healthy" differ by more than the noise (at least ``min_count``
+    snapshots), the healthy median error is at least ``ratio`` × the model's. Judging only
+    there lets a fault that lasts part of the period (a drift from Friday) count fully."""
+    differ = np.abs(e_model - e_healthy) > noise
+    if differ.sum() < min_count:
+        return False
+    return bool(np.median(np.abs(e_healthy[differ]))
+                >= ratio * np.median(np.abs(e_model[differ])))
+
+
 def _confidence(e_model: np.ndarray, e_healthy: np.ndarray, noise: float) -> float:
     differ = np.abs(np.abs(e_model) - np.abs(e_healthy)) > noise
     if not differ.any():
@@ -107,36 +120,41 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
     typical = float(np.median(np.abs(y)))
     candidates: list[tuple[float, int, str, dict, np.ndarray]] = []
 
+    def better(e_m: np.ndarray) -> bool:
+        return _improves(e_m, e0, noise, st.improvement, st.stuck_minutes)
+
+    def mean_loss(e_m: np.ndarray) -> float:
+        return float(np.mean(np.abs(e_m)))
+
     k = fit_gain(z, y, noise)
     e_k = z - k * y
     se_k = noise / max(np.sqrt(np.sum(y * y)), 1e-300)
-    loss_k = float(np.median(np.abs(e_k)))
-    if (abs(k - 1) * typical > limit and abs(k - 1) > st.significance * se_k
-            and loss0 >= st.improvement * loss_k):
+    if abs(k - 1) * typical > limit and abs(k - 1) > st.significance * se_k and better(e_k):
         kind = "reversed" if k < 0 else "scale"
-        candidates.append((loss_k, 0, kind, {"factor": k}, e_k))
+        candidates.append((mean_loss(e_k), 0, kind, {"factor": k}, e_k))
 
     c = float(np.median(e0))
     e_c = e0 - c
-    loss_c = float(np.median(np.abs(e_c)))
     se_c = 1.2533 * robust_scale(e0) / np.sqrt(n)
-    if abs(c) > limit and abs(c) > st.significance * se_c and loss0 >= st.improvement * loss_c:
-        candidates.append((loss_c, 1, "offset", {"offset": c}, e_c))
+    if abs(c) > limit and abs(c) > st.significance * se_c and better(e_c):
+        candidates.append((mean_loss(e_c), 1, "offset", {"offset": c}, e_c))
 
-    t0, a, loss_d = fit_drift(t, e0)
+    t0, a, _ = fit_drift(t, e0)
     if np.isfinite(t0):
         reach = abs(a) * (t.max() - t0)
         ramp = np.maximum(t - t0, 0.0)
+        e_d = e0 - a * ramp
         se_a = noise / max(np.sqrt(np.sum(ramp * ramp)), 1e-300)
-        if reach > limit and abs(a) > st.significance * se_a and loss0 >= st.improvement * loss_d:
-            candidates.append((loss_d, 2, "drift", {"drift_per_day": a, "onset_days": t0},
-                               e0 - a * ramp))
+        if reach > limit and abs(a) > st.significance * se_a and better(e_d):
+            candidates.append((mean_loss(e_d), 2, "drift", {"drift_per_day": a, "onset_days": t0},
+                               e_d))
 
     if candidates:
-        # Lowest loss wins; a simpler model wins when within 10 % of the best loss.
+        # Lowest mean error wins; a simpler model wins when within 10 % of the best.
         best_loss = min(cand[0] for cand in candidates)
         near = [cand for cand in candidates if cand[0] <= 1.1 * best_loss + 1e-12]
-        loss, _, kind, params, e_m = min(near, key=lambda cand: cand[1])
+        _, _, kind, params, e_m = min(near, key=lambda cand: cand[1])
+        loss = float(np.median(np.abs(e_m)))
         return PointDiagnosis(kind, _confidence(e_m, e0, noise), params, n, loss0, loss)
 
     scatter = robust_scale(e0)
