@@ -1,0 +1,192 @@
+"""What a field crew should check for each kind of finding.
+
+Each finding becomes a short list of checks in the order a crew would do them on site, made
+specific with what the finding and the point list say (factor, CT/VT ratio, channel, unit).
+The safety cautions in :mod:`calibra.reports.safety` come before all of these on the sheet.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Callable, Mapping
+
+from calibra.diagnosis.findings import FINDING_KINDS
+from calibra.reports._values import fmt, number, text, timestamp
+
+#: How each kind of finding is named on the checklist.
+FINDING_LABELS = {
+    "reversed": "Reversed sign",
+    "scale": "Scale error",
+    "offset": "Constant offset",
+    "drift": "Drifting reading",
+    "stuck": "Reading frozen",
+    "noisy": "Erratic reading",
+    "mismapped": "Reads another quantity",
+    "unverifiable": "Cannot be checked remotely",
+}
+
+_CT_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection", "i_magnitude")
+_VT_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection", "v_magnitude")
+_SQRT3 = math.sqrt(3.0)
+
+
+def checklist_items(finding_row: Mapping) -> list[str]:
+    """Checks for one finding (a findings.csv row, optionally with point-list columns such as
+    ``ct_ratio``, ``vt_ratio``, ``accuracy_pct``). Unknown kinds raise ``ValueError``."""
+    kind = text(finding_row, "finding")
+    if kind not in _CHECKS:
+        raise ValueError(f"{text(finding_row, 'tag')}: unknown finding kind {kind!r}; "
+                         f"known kinds are {', '.join(FINDING_KINDS)}")
+    return _CHECKS[kind](finding_row)
+
+
+def _channel(row: Mapping) -> str:
+    channel, rtu = text(row, "channel"), text(row, "rtu")
+    if channel and rtu:
+        return f"channel {channel} of RTU {rtu}"
+    if channel:
+        return f"channel {channel}"
+    return f"the channel of {text(row, 'tag') or 'this point'}"
+
+
+def _reversed(row: Mapping) -> list[str]:
+    if text(row, "scope") == "device":
+        return [
+            "CT polarity: check the P1/P2 marks on the primary and S1/S2 on the secondary "
+            "against the connection drawing (positive = power flowing out of the bus into "
+            "the branch).",
+            "Secondary wiring at the transducer/IED terminals: check that S1 and S2 are not "
+            "interchanged on any phase (CT secondary shorted at the test switch first).",
+            "RTU/IED: check the sign convention set for these points (which direction counts "
+            "as positive).",
+        ]
+    device = text(row, "device") or "the device"
+    return [
+        f"Configuration of {_channel(row)}: check the sign (inversion) and the scaling set "
+        "for this point in the RTU or IED.",
+        f"Only this point of {device} reads reversed: look at its configuration before the "
+        "CT wiring, which the other points share.",
+    ]
+
+
+def _scale(row: Mapping) -> list[str]:
+    quantity = text(row, "quantity")
+    factor = number(row, "factor")
+    unit = text(row, "unit")
+    items = []
+    if factor is not None:
+        items.append(f"Readings are about {fmt(factor)} × the expected values: look for "
+                     "the cause of exactly that ratio in the checks below.")
+    if quantity in _CT_QUANTITIES or not quantity:
+        ct = text(row, "ct_ratio") or "none given"
+        items.append(f"CT: read the ratio and the tap in use on the nameplate and compare "
+                     f"them with the point list (CT ratio {ct}). A factor equal to the ratio "
+                     "of two taps (e.g. 1200/800 = 1.5) means the wrong tap is set or wired.")
+    if quantity in _VT_QUANTITIES or not quantity:
+        vt = text(row, "vt_ratio") or "none given"
+        items.append(f"VT: read the ratio on the nameplate and compare it with the point list "
+                     f"(VT ratio {vt}); check whether the input is connected and configured "
+                     "line-to-line or line-to-neutral.")
+    if factor is not None and any(abs(abs(factor) / r - 1.0) < 0.03
+                                  for r in (_SQRT3, 1.0 / _SQRT3)):
+        items.append("The factor is close to √3 (1.732) or 1/√3: a line-to-line versus "
+                     "line-to-neutral mix-up is the likely cause.")
+    ratios = {"v_magnitude": "VT ratio", "i_magnitude": "CT ratio"}.get(quantity,
+                                                                        "CT and VT ratios")
+    items += [
+        f"Transducer/IED: check the {ratios} and the input and output ranges configured in "
+        "it.",
+        f"RTU: check the conversion of {_channel(row)} from raw counts to engineering units"
+        f"{f' ({unit})' if unit else ''}, including the full-scale value.",
+    ]
+    return items
+
+
+def _offset(row: Mapping) -> list[str]:
+    offset, unit = number(row, "offset"), text(row, "unit")
+    size = f" of about {offset:+.4g}{f' {unit}' if unit else ''}" if offset is not None else ""
+    return [
+        "Transducer/IED zero: compare its reading with a portable reference meter at the "
+        f"same moment; a constant difference{size} confirms the offset.",
+        "Recalibrate the zero (and then the span) of the transducer/IED following the "
+        "maker's procedure.",
+        f"RTU: check the zero of the scaling of {_channel(row)}, e.g. a 4–20 mA input "
+        "scaled as if it started at 0 mA.",
+    ]
+
+
+def _drift(row: Mapping) -> list[str]:
+    rate, unit = number(row, "drift_per_day"), text(row, "unit")
+    onset = timestamp(row, "onset")
+    growth = ""
+    if rate is not None:
+        growth = f"; the error grew by about {fmt(rate, 3)}{f' {unit}' if unit else ''} a day"
+        if onset is not None:
+            growth += f" from {onset:%Y-%m-%d}"
+    accuracy = number(row, "accuracy_pct")
+    limit = f" (class {fmt(accuracy, 3)} %)" if accuracy is not None else ""
+    return [
+        "Compare the reading with a portable reference meter at the same moment" + growth + ".",
+        f"Calibrate the transducer/IED; replace it if its error is outside its accuracy "
+        f"class{limit}.",
+        "Look for causes of ageing: heat in the cubicle, loose or corroded terminals, an "
+        "unstable auxiliary supply.",
+    ]
+
+
+def _stuck(row: Mapping) -> list[str]:
+    return [
+        "RTU/IED communication: check that the point updates (communication status, "
+        "quality flags, time of the last change).",
+        "Transducer output: measure the output signal and check that it follows the load.",
+        f"Configuration of {_channel(row)}: check that the point is not substituted, set to "
+        "a manual or frozen value, or given too wide a deadband.",
+    ]
+
+
+def _noisy(row: Mapping) -> list[str]:
+    return [
+        "Wiring: check the secondary and signal wiring for loose, corroded or damaged "
+        "terminals and cables.",
+        "Screens and earthing: check that cable screens are earthed as the drawing shows and "
+        "that each instrument-transformer secondary circuit has its single ground point.",
+        "Transducer/IED health: check the auxiliary supply and watch the output; replace "
+        "the unit if it stays erratic.",
+    ]
+
+
+def _mismapped(row: Mapping) -> list[str]:
+    tag, quantity, matched = text(row, "tag"), text(row, "quantity"), text(row, "matched")
+    where = " ".join(x for x in (quantity, text(row, "element"), text(row, "end")) if x)
+    items = [f"Point mapping: check the RTU/IED address of {tag or 'this point'} against the "
+             f"point list{f' ({where})' if where else ''}."]
+    if _pq_crossed(quantity, matched):
+        items.append("Active and reactive power look interchanged: check which channel "
+                     "carries P and which carries Q, in the transducer/IED and in the RTU.")
+    elif matched:
+        items.append(f"The values match {matched} instead: look for that channel wired or "
+                     "mapped to this point.")
+    items.append("Control-centre database: check that the point is linked to the right "
+                 "network element and end.")
+    return items
+
+
+def _pq_crossed(quantity: str, matched: str) -> bool:
+    kinds = {quantity[:2]} | set(re.findall(r"\b([pq]_)(?:flow|injection)\b", matched))
+    return {"p_", "q_"} <= kinds
+
+
+def _unverifiable(row: Mapping) -> list[str]:
+    action = text(row, "action")
+    add = (f"Suggested: {action}" if action else
+           "Add a meter that makes this point redundant (a flow or injection measured on a "
+           "neighbouring element).")
+    return [add, "Until then, check the point in the field against a portable reference "
+                 "meter."]
+
+
+_CHECKS: dict[str, Callable[[Mapping], list[str]]] = {
+    "reversed": _reversed, "scale": _scale, "offset": _offset, "drift": _drift,
+    "stuck": _stuck, "noisy": _noisy, "mismapped": _mismapped, "unverifiable": _unverifiable,
+}
