@@ -1,0 +1,1 @@
+"""Qt user interface of calibra: the only package that imports PySide6."""
