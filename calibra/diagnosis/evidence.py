@@ -23,12 +23,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from calibra.diagnosis.suspects import pick_suspects
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.residuals import (
-    CRITICAL_S,
-    analyse_residuals,
-    residual_correlation,
-)
+from calibra.estimation.residuals import CRITICAL_S, analyse_residuals
 from calibra.estimation.site_estimate import topology_per_snapshot
 from calibra.estimation.week import PeriodResult, estimate_period
 from calibra.estimation.wls import Estimator, SnapshotEstimate
@@ -45,6 +42,7 @@ class EvidenceSettings:
     max_rounds: int = 12
     max_block: int = 360
     min_sensitivity: float = 0.02  #: below this S the implied value is too uncertain to use
+    probe_snapshots: int = 8  #: snapshots re-estimated to test which suspect to set aside
 
 
 @dataclass
@@ -122,35 +120,12 @@ def _representative(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
     return None
 
 
-def _pick_suspects(estimator: Estimator, rep: Representative | None, candidates: np.ndarray,
-                   stat: np.ndarray, base: np.ndarray, set_aside: np.ndarray,
-                   in_service: np.ndarray, threshold: float) -> list[int]:
-    """Strongest suspects first; skip those whose excess the picked ones may explain.
-
-    A gross error bᵢ shows in another point's normalized residual as |ρᵢⱼ|·rᴺᵢ (ρ: residual
-    correlation), so a suspect j is left for the next round when its statistic minus the
-    share the picked points explain falls below 1.5 × the threshold.
-    """
-    picked: list[int] = []
-    corr_rows: list[np.ndarray] = []
-    analysis = None
-    for i in candidates[np.argsort(-stat[candidates])]:
-        explained = sum(abs(np.nan_to_num(row[i])) * stat[p]
-                        for row, p in zip(corr_rows, picked, strict=True))
-        if corr_rows and stat[i] - explained < 1.5 * threshold:
-            continue
-        trial = base & ~set_aside
-        trial[picked + [int(i)]] = False
-        if not estimator.observability(trial, in_service).observable:
-            continue
-        picked.append(int(i))
-        if rep is not None and rep.estimate.used[i]:
-            if analysis is None:
-                analysis = analyse_residuals(estimator, rep.estimate)
-            corr_rows.append(residual_correlation(estimator, rep.estimate, analysis, int(i)))
-        else:
-            break  # no correlation available: one suspect per round
-    return picked
+def _device_index(site: Site, model: MeasurementModel) -> np.ndarray:
+    """Device number of each power-flow/injection point (-1 for other quantities)."""
+    pts = site.points.loc[model.tags]
+    power = pts["quantity"].isin(("p_flow", "q_flow", "p_injection", "q_injection")).to_numpy()
+    codes, _ = pd.factorize(pts["device"].astype(str))
+    return np.where(power, codes, -1)
 
 
 def gather_evidence(
@@ -181,6 +156,8 @@ def gather_evidence(
     step = max(1, st.screening_step)
     sub = np.arange(0, k, step)
     z_sub, ins_sub = z[sub], in_service[sub]
+    probe = np.unique(np.linspace(0, len(sub) - 1, min(st.probe_snapshots, len(sub))).astype(int))
+    device_of = _device_index(site, model)
     for rnd in range(st.max_rounds if screen else 0):
         if progress is not None:
             progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
@@ -197,8 +174,8 @@ def gather_evidence(
         if cand.size == 0:
             break
         rep = _representative(estimator, z_sub, ins_sub, set_aside, st.confidence)
-        picked = _pick_suspects(estimator, rep, cand, stat, base, set_aside, ins_sub[0],
-                                st.normalized_threshold)
+        picked = pick_suspects(estimator, rep, cand, stat, base, set_aside, z_sub[probe],
+                               ins_sub[probe], device_of, st.normalized_threshold)
         if not picked:
             break
         set_aside[picked] = True

@@ -1,0 +1,128 @@
+"""Choosing which suspects to set aside in a screening round.
+
+With several gross errors, or one large enough to bend the AC estimate, the largest normalized
+residual can sit on an innocent neighbour (Mili, Phaniraj & Rousseeuw, IEEE TPWRS 6(2), 1991:
+normalized-residual tests break down with interacting bad data). So suspects are tested by
+elimination: for the strongest suspect and the strongest of its correlated neighbours, each
+candidate *unit* — the point alone, or every power channel of its device together — is left
+out of a few probe snapshots, which are estimated again; the unit whose removal lowers the
+objective J(x̂) most is set aside. Neighbours whose excess the chosen units can explain wait
+for the next round.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from calibra.estimation.residuals import analyse_residuals, residual_correlation
+from calibra.estimation.wls import Estimator
+
+#: Candidates of one cluster tried by elimination (strongest first).
+CLUSTER_SIZE = 4
+#: Residual correlation above which a candidate belongs to the strongest suspect's cluster.
+CLUSTER_CORRELATION = 0.02
+
+
+def probe_objective(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
+                    removed: np.ndarray) -> float:
+    """Sum of J(x̂) over probe snapshots with the ``removed`` points left out."""
+    total, failed = 0.0, 0
+    for zi, status in zip(z, in_service, strict=True):
+        est = estimator.estimate(np.where(removed, np.nan, zi), None, status,
+                                 keep_jacobian=False)
+        if est.converged:
+            total += est.objective
+        else:
+            failed += 1
+    # A snapshot that no longer converges counts as the worst one seen.
+    return total * (1 + failed / max(len(z) - failed, 1)) if failed < len(z) else np.inf
+
+
+def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.ndarray,
+                  base: np.ndarray, set_aside: np.ndarray, probe_z: np.ndarray,
+                  probe_status: np.ndarray, device_of: np.ndarray, threshold: float,
+                  max_points: int = 32) -> list[int]:
+    """Points to set aside this round (see the module docstring)."""
+    analysis = analyse_residuals(estimator, rep.estimate) if rep is not None else None
+    corr: dict[int, np.ndarray] = {}
+
+    def corr_row(i: int) -> np.ndarray | None:
+        if analysis is None or not rep.estimate.used[i]:
+            return None
+        if i not in corr:
+            corr[i] = residual_correlation(estimator, rep.estimate, analysis, i)
+        return corr[i]
+
+    status0 = probe_status[0] if len(probe_status) else None
+    picked: list[int] = []
+    remaining = [int(i) for i in candidates[np.argsort(-stat[candidates])]]
+    while remaining and len(picked) < max_points:
+        top = remaining[0]
+        row = corr_row(top)
+        cluster = [top]
+        if row is not None:
+            cluster += [j for j in remaining[1:]
+                        if abs(np.nan_to_num(row[j])) > CLUSTER_CORRELATION][:CLUSTER_SIZE - 1]
+        units = _units(cluster, device_of, base & ~set_aside)
+        best = _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base,
+                          status0)
+        if best is None:
+            remaining = remaining[1:]
+            continue
+        picked += [i for i in best if i not in picked]
+        gone = set(best) | set(cluster)
+        remaining = [j for j in remaining if j not in gone
+                     and not _explained(j, picked, stat, corr_row, threshold)]
+        if row is None:
+            break  # without correlations, one unit per round
+    return picked
+
+
+def _units(cluster: list[int], device_of: np.ndarray, available: np.ndarray) -> list[list[int]]:
+    """The cluster's points alone and, where a device has several power channels, together."""
+    units: list[list[int]] = []
+    for i in cluster:
+        units.append([i])
+        if device_of[i] >= 0:
+            group = [int(j) for j in np.flatnonzero((device_of == device_of[i]) & available)]
+            if len(group) > 1:
+                units.append(group)
+    seen, out = set(), []
+    for u in units:
+        key = tuple(sorted(u))
+        if key not in seen:
+            seen.add(key)
+            out.append(sorted(u))
+    return out
+
+
+def _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base, status0):
+    """The unit whose removal lowers the probe objective most (smaller units win near-ties)."""
+    scored = []
+    for u in units:
+        removed = set_aside.copy()
+        removed[picked] = True
+        removed[u] = True
+        if status0 is not None and not estimator.observability(base & ~removed, status0).observable:
+            continue
+        if len(units) == 1:
+            return u
+        scored.append((probe_objective(estimator, probe_z, probe_status, removed), len(u), u))
+    if not scored:
+        return None
+    best = min(scored, key=lambda s: s[0])
+    # Removing a healthy point lowers J by about one per snapshot: a smaller unit within that
+    # allowance of the best one is preferred.
+    allowance = 3.0 * len(probe_z)
+    near = [s for s in scored if s[0] <= best[0] + allowance * max(best[1] - s[1], 0)]
+    return min(near, key=lambda s: (s[1], s[0]))[2]
+
+
+def _explained(j: int, picked: list[int], stat: np.ndarray, corr_row, threshold: float) -> bool:
+    """Whether j's excess may come from the picked points (|ρ|·statistic of each)."""
+    total = 0.0
+    for p in picked:
+        row = corr_row(p)
+        if row is not None:
+            total += abs(np.nan_to_num(row[j])) * stat[p]
+    return stat[j] - total < 1.5 * threshold

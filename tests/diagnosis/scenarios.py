@@ -1,0 +1,45 @@
+"""Generated review scenarios on published networks (test helper)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from calibra.simulate.case import grid_case_from_matpower
+from calibra.simulate.pointlist import make_point_list
+from calibra.simulate.telemetry import SimulationResult, simulate_site
+
+
+def generated_scenario(case_name: str, seed: int, periods: int = 2016, freq: str = "5min",
+                       faults=True) -> SimulationResult:
+    """A pypower case (published IEEE network) with a simulated point list, period and a
+    random fault mix drawn from ``seed``."""
+    import pypower.api as pp
+
+    case = grid_case_from_matpower(getattr(pp, case_name)(), name=case_name)
+    points = make_point_list(case, seed=seed)
+    return simulate_site(case, points, start=pd.Timestamp("2026-05-04"), periods=periods,
+                         freq=freq, seed=seed, faults=faults, timezone="UTC")
+
+
+def detectable_faults(sim: SimulationResult) -> set[str]:
+    """Fault points whose error exceeds the point's accuracy-class limit for a good part of the
+    period (what a review can be asked to find; common practice, no source)."""
+    pts = sim.site.points
+    out = set()
+    for r in sim.truth.itertuples():
+        if r.tag not in sim.true_values:
+            continue
+        true = sim.true_values[r.tag].to_numpy(float)
+        meas = sim.site.snapshots[r.tag].to_numpy(float)
+        limit = float(pts.at[r.tag, "accuracy_pct"]) / 100 * float(pts.at[r.tag, "full_scale"])
+        ok = np.isfinite(true) & np.isfinite(meas)
+        err = np.abs(meas[ok] - true[ok])
+        if r.kind == "noisy":
+            out.add(r.tag) if r.noise_factor >= 3 else None
+        elif r.kind in ("drift", "stuck"):
+            if np.mean(err > 1.5 * limit) > 0.1:
+                out.add(r.tag)
+        elif np.median(err) > 1.5 * limit:
+            out.add(r.tag)
+    return out
