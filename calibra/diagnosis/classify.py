@@ -20,6 +20,7 @@ clearly different values, in which the chosen model is the closer one.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -51,6 +52,9 @@ class PointSeries:
     class_limit: float
     sigma_implied: float = 0.0
     resolution: float = 0.0  #: historian rounding step, for frozen-value detection
+    #: Whether a gain is one a known cause explains (CT taps, √3, units); decides near-ties
+    #: between a scale and an offset, which a nearly constant reading cannot tell apart.
+    known_factor: Callable[[float], bool] | None = None
 
 
 @dataclass
@@ -123,15 +127,16 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
     def better(e_m: np.ndarray) -> bool:
         return _improves(e_m, e0, noise, st.improvement, st.stuck_minutes)
 
-    def mean_loss(e_m: np.ndarray) -> float:
-        return float(np.mean(np.abs(e_m)))
+    def mean_loss(e_m: np.ndarray, gain: float = 1.0) -> float:
+        # In units of the model's own noise: a gain k also scales the implied value's noise.
+        return float(np.mean(np.abs(e_m))) / float(np.hypot(ps.sigma, gain * ps.sigma_implied))
 
     k = fit_gain(z, y, noise)
     e_k = z - k * y
     se_k = noise / max(np.sqrt(np.sum(y * y)), 1e-300)
     if abs(k - 1) * typical > limit and abs(k - 1) > st.significance * se_k and better(e_k):
         kind = "reversed" if k < 0 else "scale"
-        candidates.append((mean_loss(e_k), 0, kind, {"factor": k}, e_k))
+        candidates.append((mean_loss(e_k, k), 0, kind, {"factor": k}, e_k))
 
     c = float(np.median(e0))
     e_c = e0 - c
@@ -150,10 +155,21 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
                                e_d))
 
     if candidates:
-        # Lowest mean error wins; a simpler model wins when within 10 % of the best.
+        # Lowest mean error wins; near-ties (within 10 %) go to the likelier explanation: a
+        # reversal or a gain with a known cause, then an offset, then any gain, then a drift.
         best_loss = min(cand[0] for cand in candidates)
         near = [cand for cand in candidates if cand[0] <= 1.1 * best_loss + 1e-12]
-        _, _, kind, params, e_m = min(near, key=lambda cand: cand[1])
+
+        def prior(cand) -> int:
+            kind_c, params_c = cand[2], cand[3]
+            if kind_c == "reversed" and abs(params_c["factor"] + 1) < 0.05:
+                return 0
+            if kind_c in ("scale", "reversed") and ps.known_factor is not None \
+                    and ps.known_factor(params_c["factor"]):
+                return 0
+            return {"offset": 1, "scale": 2, "reversed": 2, "drift": 3}[kind_c]
+
+        _, _, kind, params, e_m = min(near, key=lambda cand: (prior(cand), cand[0]))
         loss = float(np.median(np.abs(e_m)))
         return PointDiagnosis(kind, _confidence(e_m, e0, noise), params, n, loss0, loss)
 

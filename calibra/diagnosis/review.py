@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from calibra.diagnosis.causes import likely_scale_cause
 from calibra.diagnosis.classify import ClassifySettings, PointDiagnosis, PointSeries, classify_point
 from calibra.diagnosis.describe import build_findings
 from calibra.diagnosis.evidence import EvidenceSettings, WeekEvidence, gather_evidence
@@ -56,14 +57,63 @@ def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSe
     rep = ev.representative
     if rep is not None and np.isfinite(rep.sigma_implied[i]):
         sig_y = float(rep.sigma_implied[i])
+    quantity, ct_ratio = str(pt["quantity"]), str(pt.get("ct_ratio", "") or "")
+
+    def known(factor: float) -> bool:
+        return bool(likely_scale_cause(factor, quantity, ct_ratio))
+
     return PointSeries(t_days, ev.measured[:, i].astype(float), ev.implied[:, i].astype(float),
-                       sigma, limit, sig_y)
+                       sigma, limit, sig_y, known_factor=known)
 
 
 def _classify_all(site: Site, ev: WeekEvidence, settings: ClassifySettings) -> dict:
     t_days = ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
     return {str(ev.model.tags[i]): classify_point(_series(site, ev, t_days, i), settings)
             for i in range(ev.model.m)}
+
+
+def _chunk_t(d: np.ndarray, chunks: int = 24) -> float:
+    """t statistic of mean(d) > 0 from chunk means (robust to correlation in time)."""
+    if d.size < 4 * chunks:
+        return 0.0
+    means = np.array([c.mean() for c in np.array_split(d, chunks)])
+    sd = means.std(ddof=1)
+    return float(means.mean() / (sd / np.sqrt(chunks))) if sd > 0 else float("inf")
+
+
+def _propagate_device(site: Site, ev: WeekEvidence, diagnoses: dict) -> None:
+    """A ratio or polarity error of a device's CT or VT affects its sibling channels too.
+
+    Where one channel of a device is confidently reversed or scaled, every other analog
+    channel of the device is tested against the same factor: when z ≈ k·y fits it better than
+    z ≈ y in most of 24 time chunks (t statistic above 4), it gets the same diagnosis, even if
+    its error alone stays below what its own fit would flag.
+    """
+    pts = site.points
+    tags = ev.model.tags
+    for device, group in pts.loc[tags].groupby("device"):
+        found = [diagnoses[t] for t in group.index
+                 if diagnoses[t].kind in ("reversed", "scale") and diagnoses[t].confidence >= 0.9]
+        if not found:
+            continue
+        k = float(np.median([d.params["factor"] for d in found]))
+        kind = "reversed" if k < 0 else "scale"
+        for tag in group.index:
+            d = diagnoses[tag]
+            if d.kind != "healthy":
+                continue
+            i = tags.get_loc(tag)
+            z, y = ev.measured[:, i].astype(float), ev.implied[:, i].astype(float)
+            ok = np.isfinite(z) & np.isfinite(y)
+            e0, ek = np.abs(z[ok] - y[ok]), np.abs(z[ok] - k * y[ok])
+            if ok.sum() < 200 or ek.mean() >= e0.mean():
+                continue
+            if _chunk_t(e0 - ek) > 4.0:
+                diagnoses[tag] = PointDiagnosis(
+                    kind, confidence=float((ek < e0).mean()), n_used=int(ok.sum()),
+                    params={"factor": k, "from_device": str(device)},
+                    loss_healthy=float(np.median(e0)), loss_model=float(np.median(ek)),
+                )
 
 
 def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
@@ -128,6 +178,7 @@ def review_site(
         ev = gather_evidence(site, st.evidence, snaps, progress,
                              initial_set_aside=ev.set_aside | extra, screen=False)
         diagnoses = _classify_all(site, ev, st.classify)
+    _propagate_device(site, ev, diagnoses)
     mismaps = _mismapped(site, ev, diagnoses)
     unverifiable = {}
     rep = ev.representative
