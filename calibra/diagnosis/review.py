@@ -8,7 +8,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from calibra.diagnosis.causes import likely_scale_cause
+from calibra.diagnosis.causes import known_scale_cause
 from calibra.diagnosis.classify import ClassifySettings, PointDiagnosis, PointSeries, classify_point
 from calibra.diagnosis.describe import build_findings
 from calibra.diagnosis.evidence import EvidenceSettings, WeekEvidence, gather_evidence
@@ -60,7 +60,7 @@ def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSe
     quantity, ct_ratio = str(pt["quantity"]), str(pt.get("ct_ratio", "") or "")
 
     def known(factor: float) -> bool:
-        return bool(likely_scale_cause(factor, quantity, ct_ratio))
+        return known_scale_cause(factor, quantity, ct_ratio)
 
     return PointSeries(t_days, ev.measured[:, i].astype(float), ev.implied[:, i].astype(float),
                        sigma, limit, sig_y, known_factor=known)
