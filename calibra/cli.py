@@ -184,6 +184,13 @@ COMMANDS: list[Command] = [
         _lazy("calibra.cli_estimate", "add_arguments"),
         _lazy("calibra.cli_estimate", "run"),
     ),
+    Command(
+        "review",
+        "review a period: find meters with consistent errors, update the ledger, write "
+        "findings.csv, work orders and a summary",
+        _lazy("calibra.cli_review", "add_arguments"),
+        _lazy("calibra.cli_review", "run"),
+    ),
 ]
 
 

@@ -1,0 +1,89 @@
+"""``calibra review SITE --out DIR``: the week review from the command line."""
+
+from __future__ import annotations
+
+import argparse
+from dataclasses import replace
+from pathlib import Path
+
+from calibra.cli import (
+    EXIT_OK,
+    EXIT_UNUSABLE,
+    UsageError,
+    load_for_command,
+    parse_period,
+    period_arguments,
+)
+from calibra.diagnosis.review import ReviewSettings
+from calibra.ledger import Ledger, LedgerError
+from calibra.progress import terminal_progress
+from calibra.review_run import run_review, summary_lines, write_outputs
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("site", type=Path, help="the site folder")
+    parser.add_argument("--out", type=Path, default=None,
+                        help="folder for findings.csv, work orders and the summary "
+                             "(default: ./calibra-review)")
+    period_arguments(parser)
+    parser.add_argument("--threshold", type=float, default=None,
+                        help="normalized-residual threshold for suspects (default 3.0)")
+    parser.add_argument("--confidence", type=float, default=None,
+                        help="confidence level of the chi-square test (default 0.99)")
+    parser.add_argument("--min-snapshots", type=int, default=None,
+                        help="fewest snapshots a point needs to be judged (default 120)")
+    parser.add_argument("--ledger", type=Path, default=None,
+                        help="ledger file (default: calibra-ledger.sqlite in the site folder)")
+    parser.add_argument("--no-ledger", action="store_true",
+                        help="do not read or write the ledger (no corrections applied)")
+    parser.add_argument("--no-pdf", action="store_true", help="skip the PDF work orders")
+
+
+def _settings(args: argparse.Namespace) -> ReviewSettings:
+    st = ReviewSettings()
+    if args.threshold is not None:
+        if args.threshold <= 0:
+            raise UsageError("--threshold must be positive")
+        st.evidence = replace(st.evidence, normalized_threshold=args.threshold)
+    if args.confidence is not None:
+        if not 0.5 < args.confidence < 1.0:
+            raise UsageError("--confidence must be between 0.5 and 1")
+        st.evidence = replace(st.evidence, confidence=args.confidence)
+    if args.min_snapshots is not None:
+        if args.min_snapshots < 10:
+            raise UsageError("--min-snapshots must be at least 10")
+        st.classify = replace(st.classify, min_snapshots=args.min_snapshots)
+    return st
+
+
+def run(args: argparse.Namespace) -> int:
+    settings = _settings(args)
+    site = load_for_command(args.site)
+    if site is None:
+        return EXIT_UNUSABLE
+    start, end = parse_period(site, args)
+    out = args.out or Path("calibra-review")
+    ledger = None
+    if not args.no_ledger:
+        try:
+            ledger = Ledger(args.ledger) if args.ledger else Ledger.for_site(args.site)
+        except (LedgerError, OSError) as exc:
+            print(f"ledger: {exc}")
+            return EXIT_UNUSABLE
+    try:
+        try:
+            review = run_review(site, settings, start, end, ledger, terminal_progress())
+        except ValueError as exc:
+            print(f"result: {exc}")
+            return EXIT_UNUSABLE
+        files = write_outputs(review, site, out, pdf=not args.no_pdf)
+    finally:
+        if ledger is not None:
+            ledger.close()
+    for line in summary_lines(review, site):
+        print(line)
+    for note in review.notes:
+        print(f"note: {note}")
+    for name, path in files.items():
+        print(f"wrote {name}: {path}")
+    return EXIT_OK

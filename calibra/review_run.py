@@ -1,0 +1,156 @@
+"""One review of a site, end to end: ledger corrections in, findings, ledger and files out.
+
+Used by ``calibra review`` and by the desktop application (from a worker thread, with its own
+:class:`~calibra.ledger.Ledger` connection).
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from calibra.diagnosis.findings import findings_table
+from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
+from calibra.ledger import Ledger, apply_corrections
+from calibra.model.site import Site
+from calibra.progress import Progress
+from calibra.reports import (
+    needing_field_work,
+    work_order_pages,
+    write_safe_csv,
+    write_work_orders_csv,
+)
+
+FINDINGS_FILE = "findings.csv"
+WORK_ORDERS_CSV = "work_orders.csv"
+WORK_ORDERS_PDF = "work_orders.pdf"
+SUMMARY_FILE = "summary.txt"
+
+
+@dataclass
+class ReviewRun:
+    """What one review produced."""
+
+    result: ReviewResult
+    findings: pd.DataFrame  # findings.csv content, with the ledger state
+    review_id: int | None
+    corrections: list
+    seconds: float
+    files: dict[str, Path] = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
+
+
+def settings_dict(settings: ReviewSettings) -> dict:
+    return asdict(settings)
+
+
+def run_review(
+    site: Site,
+    settings: ReviewSettings | None = None,
+    start: pd.Timestamp | None = None,
+    end: pd.Timestamp | None = None,
+    ledger: Ledger | None = None,
+    progress: Progress | None = None,
+) -> ReviewRun:
+    """Review ``site`` between ``start`` and ``end`` with the ledger's software corrections."""
+    st = settings or ReviewSettings()
+    t0 = time.perf_counter()
+    snaps = site.snapshots.loc[start:end]
+    if snaps.empty:
+        raise ValueError("no snapshots in the chosen period")
+    corrections = []
+    if ledger is not None:
+        corrections = ledger.active_corrections((snaps.index[0], snaps.index[-1]))
+        snaps = apply_corrections(snaps, corrections, missing="ignore")
+    result = review_site(site, st, snaps, progress)
+    table = findings_table(result.findings)
+    review_id = None
+    if ledger is not None:
+        summary = {k: v for k, v in result.summary.items() if k != "rounds"}
+        review_id = ledger.record_review(result.findings, snaps.index[0], snaps.index[-1],
+                                         settings_dict(st), summary)
+        states = ledger.findings()["state"]
+        table["state"] = table["finding_id"].map(states).fillna("new")
+    else:
+        table["state"] = "new"
+    return ReviewRun(result, table, review_id, corrections, time.perf_counter() - t0)
+
+
+def write_outputs(run: ReviewRun, site: Site, out: Path, pdf: bool = True) -> dict[str, Path]:
+    """findings.csv, the work orders (CSV and, when Qt is available, PDF) and a summary."""
+    out.mkdir(parents=True, exist_ok=True)
+    files: dict[str, Path] = {}
+    table = run.findings.copy()
+    for col in ("onset", "until"):
+        table[col] = pd.to_datetime(table[col], utc=True).map(
+            lambda t: t.isoformat().replace("+00:00", "Z") if pd.notna(t) else "")
+    cols = list(table.columns)
+    rows = ([None if (not isinstance(v, str) and pd.isna(v)) else v for v in r]
+            for r in table.itertuples(index=False))
+    files["findings"] = write_safe_csv(out / FINDINGS_FILE, cols, rows)
+    field_work = needing_field_work(run.findings)
+    files["work_orders_csv"] = write_work_orders_csv(field_work, site.points,
+                                                     out / WORK_ORDERS_CSV, site_name=site.name)
+    period = (run.result.period_start, run.result.period_end)
+    if pdf and len(field_work):
+        pages = work_order_pages(site.name, field_work, site.points, pd.Timestamp.now(tz="UTC"),
+                                 period=period)
+        try:
+            from calibra.gui.qt_pdf import html_to_pdf
+        except ImportError:
+            run.notes.append("PySide6 is not installed: work orders written as CSV only")
+        else:
+            files["work_orders_pdf"] = html_to_pdf(list(pages.values()), out / WORK_ORDERS_PDF,
+                                                   title=f"{site.name}: field checks",
+                                                   footer=site.name)
+    (out / SUMMARY_FILE).write_text("\n".join(summary_lines(run, site)) + "\n", encoding="utf-8")
+    files["summary"] = out / SUMMARY_FILE
+    (out / "summary.json").write_text(json.dumps(_json_summary(run), indent=2, default=str),
+                                      encoding="utf-8")
+    run.files = files
+    return files
+
+
+def _json_summary(run: ReviewRun) -> dict:
+    s = dict(run.result.summary)
+    s["seconds"] = round(run.seconds, 1)
+    s["review_id"] = run.review_id
+    s["corrections_applied"] = [asdict(c) for c in run.corrections]
+    s["findings_by_kind"] = run.findings["finding"].value_counts().to_dict()
+    return s
+
+
+def summary_lines(run: ReviewRun, site: Site) -> list[str]:
+    """A short plain-text summary of the review."""
+    r = run.result
+    s = r.summary
+    tz = site.timezone
+    lines = [
+        f"site {site.name}: review of {r.period_start.tz_convert(tz):%Y-%m-%d %H:%M} to "
+        f"{r.period_end.tz_convert(tz):%Y-%m-%d %H:%M} ({tz}) in {run.seconds:.1f} s",
+        f"snapshots: {s['snapshots']:,}, estimated {s['converged']:,}; "
+        f"not fully observable {s['not_observable']:,}",
+    ]
+    first = s["rounds"][0] if s["rounds"] else None
+    if first:
+        lines.append(f"chi-square failures with every point in: {first['chi2_failed']} of "
+                     f"{first['snapshots']} sampled snapshots")
+    lines.append(f"chi-square failures with the {s['set_aside']} suspect point(s) set aside: "
+                 f"{s['chi2_failed']:,} of {s['converged']:,} snapshots")
+    if run.corrections:
+        lines.append(f"software corrections applied: {len(run.corrections)} "
+                     f"({', '.join(sorted({c.tag for c in run.corrections}))})")
+    lines.append(f"findings: {len(run.findings)}")
+    counts = run.findings["finding"].value_counts()
+    for kind, n in counts.items():
+        lines.append(f"  {kind}: {n}")
+    for row in run.findings.sort_values(["substation", "device", "tag"]).itertuples():
+        lines.append(f"  [{row.state}] {row.tag} ({row.substation}) {row.finding}: "
+                     f"{row.evidence}")
+    lines.append("Findings are advisory: confirm in the field under the utility's own safety "
+                 "procedures.")
+    return lines
