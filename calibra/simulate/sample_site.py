@@ -289,16 +289,21 @@ def sample_points(case: GridCase, seed: int) -> pd.DataFrame:
     return points.drop([t for t in drop if t])
 
 
-def simulate_sample(seed: int = 7, periods: int = PERIODS) -> SimulationResult:
-    """Simulate the Tarrowmere week (``periods`` one-minute snapshots from Monday 00:00)."""
+def simulate_sample(seed: int = 7, periods: int = PERIODS,
+                    faults: bool = True) -> SimulationResult:
+    """Simulate the Tarrowmere week (``periods`` one-minute snapshots from Monday 00:00);
+    ``faults=False`` gives the same week without the seeded meter faults."""
     case = tarrowmere_case()
     points = sample_points(case, seed)
     outage = PlannedOutage("HNW-MRG", _local("2027-03-02 08:00"), _local("2027-03-02 14:00"))
     result = simulate_site(
         case, points, start=START_LOCAL, periods=periods, timezone=TIMEZONE, seed=seed,
-        faults=sample_faults(points), outages=[outage], name=SITE_NAME, mix=_mix(case.network),
+        faults=sample_faults(points) if faults else False, outages=[outage], name=SITE_NAME,
+        mix=_mix(case.network),
         wind_mw=WIND_MW, options=TelemetryOptions(rtu_outage="RTU-BRN", rtu_outage_hours=3.0),
     )
+    if not faults:
+        return result
     blind = result.redundancy.weak(0.1) & set(result.truth["tag"])
     if blind:
         raise ValueError(f"seeded faults on points without enough redundancy: {sorted(blind)}")
@@ -312,9 +317,11 @@ def main(argv=None) -> None:
     parser.add_argument("--out", type=Path, default=Path("sample_site"))
     parser.add_argument("--seed", type=int, default=7)
     parser.add_argument("--periods", type=int, default=PERIODS)
+    parser.add_argument("--no-faults", action="store_true",
+                        help="the same week without the seeded meter faults (a clean reference)")
     args = parser.parse_args(argv)
     t0 = time.perf_counter()
-    result = simulate_sample(args.seed, args.periods)
+    result = simulate_sample(args.seed, args.periods, faults=not args.no_faults)
     t1 = time.perf_counter()
     write_site(result.site, args.out, truth=result.truth)
     t2 = time.perf_counter()
