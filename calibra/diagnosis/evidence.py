@@ -43,6 +43,9 @@ class EvidenceSettings:
     max_block: int = 360
     min_sensitivity: float = 0.02  #: below this S the implied value is too uncertain to use
     probe_snapshots: int = 8  #: snapshots re-estimated to test which suspect to set aside
+    #: Convergence tolerance of the screening estimates (normalized residuals need far less
+    #: than the final estimate's 1e-8).
+    screening_tolerance: float = 1e-6
 
 
 @dataclass
@@ -163,7 +166,7 @@ def gather_evidence(
             progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
         zr = np.where(set_aside[None, :], np.nan, z_sub)
         period = estimate_period(estimator, zr, ins_sub, max_block=max(60, st.max_block // step),
-                                 confidence=st.confidence)
+                                 confidence=st.confidence, tolerance=st.screening_tolerance)
         stat = _quantile_over_snapshots(_normalized(period), st.screening_quantile)
         cand = np.flatnonzero((stat > st.normalized_threshold) & ~set_aside)
         rounds.append({
@@ -174,8 +177,12 @@ def gather_evidence(
         if cand.size == 0:
             break
         rep = _representative(estimator, z_sub, ins_sub, set_aside, st.confidence)
+        starts = [None if not np.isfinite(period.vm[j]).any() else
+                  (np.nan_to_num(period.vm[j].astype(float), nan=1.0),
+                   np.nan_to_num(period.va[j].astype(float))) for j in probe]
         picked = pick_suspects(estimator, rep, cand, stat, base, set_aside, z_sub[probe],
-                               ins_sub[probe], device_of, st.normalized_threshold)
+                               ins_sub[probe], device_of, st.normalized_threshold,
+                               probe_starts=starts)
         if not picked:
             break
         set_aside[picked] = True

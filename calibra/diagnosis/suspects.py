@@ -24,11 +24,13 @@ CLUSTER_CORRELATION = 0.02
 
 
 def probe_objective(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
-                    removed: np.ndarray) -> float:
-    """Sum of J(x̂) over probe snapshots with the ``removed`` points left out."""
+                    removed: np.ndarray, starts: list | None = None) -> float:
+    """Sum of J(x̂) over probe snapshots with the ``removed`` points left out (each estimate
+    warm-started from ``starts`` when given)."""
     total, failed = 0.0, 0
-    for zi, status in zip(z, in_service, strict=True):
-        est = estimator.estimate(np.where(removed, np.nan, zi), None, status,
+    for j, (zi, status) in enumerate(zip(z, in_service, strict=True)):
+        start = starts[j] if starts is not None else None
+        est = estimator.estimate(np.where(removed, np.nan, zi), None, status, start=start,
                                  keep_jacobian=False)
         if est.converged:
             total += est.objective
@@ -41,7 +43,7 @@ def probe_objective(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
 def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.ndarray,
                   base: np.ndarray, set_aside: np.ndarray, probe_z: np.ndarray,
                   probe_status: np.ndarray, device_of: np.ndarray, threshold: float,
-                  max_points: int = 32) -> list[int]:
+                  max_points: int = 32, probe_starts: list | None = None) -> list[int]:
     """Points to set aside this round (see the module docstring)."""
     analysis = analyse_residuals(estimator, rep.estimate) if rep is not None else None
     corr: dict[int, np.ndarray] = {}
@@ -65,7 +67,7 @@ def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.nd
                         if abs(np.nan_to_num(row[j])) > CLUSTER_CORRELATION][:CLUSTER_SIZE - 1]
         units = _units(cluster, device_of, base & ~set_aside)
         best = _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base,
-                          status0)
+                          status0, probe_starts)
         if best is None:
             remaining = remaining[1:]
             continue
@@ -96,7 +98,8 @@ def _units(cluster: list[int], device_of: np.ndarray, available: np.ndarray) -> 
     return out
 
 
-def _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base, status0):
+def _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base, status0,
+               starts):
     """The unit whose removal lowers the probe objective most (smaller units win near-ties)."""
     scored = []
     for u in units:
@@ -107,7 +110,8 @@ def _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base,
             continue
         if len(units) == 1:
             return u
-        scored.append((probe_objective(estimator, probe_z, probe_status, removed), len(u), u))
+        scored.append((probe_objective(estimator, probe_z, probe_status, removed, starts),
+                       len(u), u))
     if not scored:
         return None
     best = min(scored, key=lambda s: s[0])

@@ -126,34 +126,56 @@ def _group_rows(null: np.ndarray) -> np.ndarray:
     return labels.ravel()
 
 
+class StructuralModel:
+    """The decoupled structural rows of every measurement and constraint for one topology,
+    built once and reused for every availability pattern."""
+
+    def __init__(self, funcs: MeasurementFunctions, constraints: MeasurementFunctions | None,
+                 in_service: np.ndarray):
+        everything = np.ones(funcs.m, bool)
+        self.a_p = _structural_rows(funcs, everything, in_service, True)
+        self.a_q = _structural_rows(funcs, everything, in_service, False)
+        self.is_current = funcs.code == I_MAG
+        if constraints is not None and constraints.m:
+            all_c = np.ones(constraints.m, bool)
+            self.c_p = _structural_rows(constraints, all_c, in_service, True)
+            self.c_q = _structural_rows(constraints, all_c, in_service, False)
+        else:
+            self.c_p = self.c_q = sp.csr_matrix((0, funcs.network.n_bus))
+        self.n = funcs.network.n_bus
+
+    def rows(self, available: np.ndarray) -> tuple[sp.csr_matrix, sp.csr_matrix]:
+        used = np.asarray(available, bool) & ~self.is_current
+        w = sp.diags(used.astype(float))
+        return (sp.vstack([w @ self.a_p, self.c_p]).tocsr(),
+                sp.vstack([w @ self.a_q, self.c_q]).tocsr())
+
+
 def analyse_observability(
     funcs: MeasurementFunctions,
     available: np.ndarray,
     constraints: MeasurementFunctions | None,
     in_service: np.ndarray,
     reference: int,
+    structure: StructuralModel | None = None,
 ) -> Observability:
     """Observability of the measurement rows marked ``available`` (plus all constraints).
 
     ``funcs`` holds the measurements; ``constraints`` the zero-injection equalities, which count
     as exact measurements. Current magnitudes carry no sign and are left out of the test.
+    ``structure`` (built for this topology) saves rebuilding the structural rows.
     """
     n = funcs.network.n_bus
-    used = np.asarray(available, bool) & (funcs.code != I_MAG)
-    a_p = _structural_rows(funcs, used, in_service, True)
-    a_q = _structural_rows(funcs, used, in_service, False)
-    if constraints is not None and constraints.m:
-        all_c = np.ones(constraints.m, bool)
-        a_p = sp.vstack([a_p, _structural_rows(constraints, all_c, in_service, True)])
-        a_q = sp.vstack([a_q, _structural_rows(constraints, all_c, in_service, False)])
-    a_p = a_p.toarray()
-    a_q = a_q.toarray()
-    gp = a_p.T @ a_p
+    st = structure or StructuralModel(funcs, constraints, in_service)
+    sa_p, sa_q = st.rows(available)
+    gp = (sa_p.T @ sa_p).toarray()
     gp[reference, reference] += max(gp.max(initial=0.0), 1.0)
-    gq = a_q.T @ a_q
+    gq = (sa_q.T @ sa_q).toarray()
     if _full_rank(gp) and _full_rank(gq):
         return Observability(True, np.zeros(n, np.int64), np.array([reference]), "observable")
 
+    a_p = sa_p.toarray()
+    a_q = sa_q.toarray()
     null_p = _null_space(a_p, n)
     groups = _group_rows(null_p)
     null_q = _null_space(a_q, n)

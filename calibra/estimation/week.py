@@ -21,6 +21,9 @@ operating point within the block is approximated (see DEVELOPERS.md for the meas
 
 from __future__ import annotations
 
+import multiprocessing
+import os
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -31,7 +34,7 @@ import scipy.sparse.linalg as spla
 
 from calibra.estimation.measurements import StateLayout
 from calibra.estimation.residuals import CRITICAL_S, analyse_residuals
-from calibra.estimation.wls import Estimator
+from calibra.estimation.wls import Estimator, rows_touching
 
 #: Largest number of missing measurements handled by the Woodbury update of Ω.
 MAX_WOODBURY = 400
@@ -69,12 +72,15 @@ class BlockSolver:
     """Solves many snapshots of one topology around one reference state together."""
 
     def __init__(self, estimator: Estimator, status: np.ndarray, tolerance: float = 1e-8,
-                 max_iterations: int = 40):
+                 max_iterations: int = 40, partial: bool = False):
         self.estimator = estimator
         self.model = estimator.model
         self.status = status
         self.tolerance = tolerance
         self.max_iterations = max_iterations
+        #: Accept a reference that is not fully observable (a block inside an RTU outage):
+        #: the block then estimates the observable islands of that reference.
+        self.partial = partial
 
     # ------------------------------------------------------------------ public
     def solve(self, Z: np.ndarray, confidence: float = 0.99) -> BlockResult:
@@ -92,39 +98,70 @@ class BlockSolver:
         single = np.ones(k, bool)
         ref = self._reference(Z, avail)
         if ref is not None:
+            usable = ~rows_touching(model.functions, ~ref.observability.estimated_buses)
+            avail = avail & usable[None, :]
             self._prepare(ref, avail.any(axis=0))
             groups = self._groups(avail)
             blockable = [g for g in groups if g.factor is not None or g.missing.size == 0]
             if blockable:
                 members = np.concatenate([g.members for g in blockable])
                 done, iters = self._iterate(Z, avail, blockable, out)
+                observable = ref.observability.observable
                 for i in members[done[members]]:
                     single[i] = False
                     rows[i] = {"converged": True, "iterations": int(iters[i]), "method": "block",
-                               "reason": "converged", "observable": True}
+                               "reason": ref.reason, "observable": observable,
+                               "dof": int(avail[i].sum()) - (self._nx - self._cidx.size)}
                 self._residuals(Z, avail, blockable, single, out)
+        rest = np.flatnonzero(single)
+        if not self.partial and rest.size >= 4:
+            self._solve_partial_groups(Z, rest, confidence, out, rows, single)
         for i in np.flatnonzero(single):
             rows[i] = self._single(i, Z[i], confidence, out)
         sigma2 = model.sigma_pu ** 2
-        n_free = (self._nx - self._cidx.size) if ref is not None else 0
         for i in range(k):
             used = np.isfinite(out.residual[i])
             rows[i]["n_used"] = int(used.sum())
-            rows[i].setdefault("dof", int(used.sum()) - n_free)
             rows[i]["objective"] = float(np.sum(out.residual[i][used].astype(float) ** 2
                                                 / sigma2[used]))
         out.outcomes = pd.DataFrame(rows)
         return out
 
+    def _solve_partial_groups(self, Z, rest, confidence, out: BlockResult, rows, single) -> None:
+        """Snapshots left out of the block, grouped by the measurements they systematically
+        miss (an RTU outage), each group solved as a block of its own observable islands."""
+        miss = ~np.isfinite(Z[rest])
+        systematic = miss.mean(axis=0) >= 0.5
+        keys = np.packbits(miss[:, systematic], axis=1) if systematic.any() else \
+            np.zeros((rest.size, 1), np.uint8)
+        _, inverse = np.unique(keys, axis=0, return_inverse=True)
+        for g in np.unique(inverse.ravel()):
+            members = rest[inverse.ravel() == g]
+            if members.size < 4:
+                continue
+            sub = BlockSolver(self.estimator, self.status, self.tolerance, self.max_iterations,
+                              partial=True).solve(Z[members], confidence)
+            ok = sub.outcomes["method"].to_numpy() == "block"
+            for j in np.flatnonzero(ok):
+                i = members[j]
+                single[i] = False
+                out.vm[i], out.va[i] = sub.vm[j], sub.va[j]
+                out.residual[i], out.omega[i] = sub.residual[j], sub.omega[j]
+                rows[i] = {c: sub.outcomes.iloc[j][c] for c in
+                           ("converged", "iterations", "method", "reason", "observable", "dof")}
+
     # ------------------------------------------------------------------ set-up
     def _reference(self, Z: np.ndarray, avail: np.ndarray):
-        """A converged, fully observable snapshot of the block (most measurements first)."""
+        """A converged snapshot of the block (most measurements first): fully observable, or
+        in a partial block the most complete one."""
         base = avail.any(axis=0)
-        if not base.any() or not self.estimator.observability(base, self.status).observable:
+        if not base.any():
+            return None
+        if not self.partial and not self.estimator.observability(base, self.status).observable:
             return None
         for cand in np.argsort(-avail.sum(axis=1), kind="stable")[:5]:
             est = self.estimator.estimate(Z[cand], None, self.status)
-            if est.converged and est.observability.observable:
+            if est.converged and (self.partial or est.observability.observable):
                 return est
         return None
 
@@ -346,6 +383,33 @@ def topology_runs(in_service: np.ndarray, max_block: int) -> list[tuple[int, int
     return runs
 
 
+_WORK: dict = {}  # inherited by forked block workers: estimator, z, in_service, settings
+
+
+def _solve_run(run: tuple[int, int]) -> tuple[int, int, BlockResult]:
+    a, b = run
+    w = _WORK
+    solver = BlockSolver(w["estimator"], w["in_service"][a], tolerance=w["tolerance"])
+    return a, b, solver.solve(w["z"][a:b], w["confidence"])
+
+
+def default_workers() -> int:
+    """Worker processes for block estimation: the machine's cores, at most 4."""
+    return max(1, min(4, os.cpu_count() or 1))
+
+
+def _pool(workers: int):
+    """A fork-based process pool, or None where forking is unsafe or unavailable (not the main
+    thread — the desktop application's worker thread — or no fork on this platform)."""
+    if workers <= 1 or threading.current_thread() is not threading.main_thread():
+        return None
+    try:
+        ctx = multiprocessing.get_context("fork")
+    except ValueError:
+        return None
+    return ctx.Pool(workers)
+
+
 def estimate_period(
     estimator: Estimator,
     z: np.ndarray,
@@ -354,11 +418,16 @@ def estimate_period(
     max_block: int = 360,
     confidence: float = 0.99,
     progress=None,
+    tolerance: float = 1e-8,
+    workers: int | None = None,
 ) -> PeriodResult:
     """Estimate every snapshot of a period (k × m per unit) block by block.
 
     Blocks hold one topology and at most ``max_block`` consecutive snapshots (6 h of one-minute
     data by default), so the reference state of a block stays close to all its snapshots.
+    Blocks run in ``workers`` processes (default: :func:`default_workers`); each block is
+    solved the same way wherever it runs, so the results do not depend on the number of
+    workers. ``tolerance`` is the largest state update accepted as converged.
     """
     from scipy.stats import chi2
 
@@ -368,17 +437,27 @@ def estimate_period(
     va = np.full((k, n), np.nan, np.float32)
     res = np.full((k, m), np.nan, np.float32)
     om = np.full((k, m), np.nan, np.float32)
-    frames = []
     runs = topology_runs(in_service, max_block)
-    for a, b in runs:
-        if progress is not None:
-            progress.update(a, k, "estimating snapshots")
-        block = BlockSolver(estimator, in_service[a]).solve(z[a:b], confidence)
-        vm[a:b], va[a:b], res[a:b], om[a:b] = block.vm, block.va, block.residual, block.omega
-        frames.append(block.outcomes)
-    if progress is not None:
-        progress.update(k, k, "estimating snapshots")
-    outcomes = pd.concat(frames, ignore_index=True) if frames else pd.DataFrame()
+    frames: dict[int, pd.DataFrame] = {}
+    _WORK.update(estimator=estimator, z=z, in_service=in_service, tolerance=tolerance,
+                 confidence=confidence)
+    pool = _pool(default_workers() if workers is None else workers) if len(runs) > 1 else None
+    done = 0
+    try:
+        results = pool.imap_unordered(_solve_run, runs) if pool else map(_solve_run, runs)
+        for a, b, block in results:
+            vm[a:b], va[a:b], res[a:b], om[a:b] = block.vm, block.va, block.residual, block.omega
+            frames[a] = block.outcomes
+            done += b - a
+            if progress is not None:
+                progress.update(done, k, "estimating snapshots")
+    finally:
+        _WORK.clear()
+        if pool is not None:
+            pool.terminate()
+            pool.join()
+    outcomes = pd.concat([frames[a] for a in sorted(frames)], ignore_index=True) \
+        if frames else pd.DataFrame()
     if len(outcomes):
         dof = outcomes["dof"].clip(lower=1)
         outcomes["chi2_threshold"] = chi2.ppf(confidence, dof)

@@ -23,9 +23,14 @@ import scipy.sparse.linalg as spla
 
 from calibra.estimation.measurements import V_MAG, MeasurementFunctions, StateLayout
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.observability import Observability, analyse_observability
+from calibra.estimation.observability import (
+    Observability,
+    StructuralModel,
+    analyse_observability,
+)
 
 _VM_RANGE = (0.3, 2.0)
+_MAX_STEP = 0.5  #: largest state change (pu or rad) in one iteration
 
 
 @dataclass
@@ -67,7 +72,7 @@ class SnapshotEstimate:
     constraint_jacobian: sp.csr_matrix | None = field(default=None, repr=False)
 
 
-def _rows_touching(funcs: MeasurementFunctions, bad_bus: np.ndarray) -> np.ndarray:
+def rows_touching(funcs: MeasurementFunctions, bad_bus: np.ndarray) -> np.ndarray:
     """Measurement rows whose function depends on any bus marked in ``bad_bus``."""
     tm = funcs.terminals
     bad_term = np.zeros(len(tm.kind), bool)
@@ -87,6 +92,7 @@ class Estimator:
         self.model = model
         self.options = options or EstimatorOptions()
         self._obs_cache: dict[bytes, Observability] = {}
+        self._structure_cache: dict[bytes, StructuralModel] = {}
         self._default_status = model.network.default_in_service()
 
     # ------------------------------------------------------------------ observability
@@ -95,9 +101,16 @@ class Estimator:
         obs = self._obs_cache.get(key)
         if obs is None:
             net = self.model.network
+            skey = np.packbits(in_service).tobytes()
+            structure = self._structure_cache.get(skey)
+            if structure is None:
+                if len(self._structure_cache) > 32:
+                    self._structure_cache.clear()
+                structure = self._structure_cache[skey] = StructuralModel(
+                    self.model.functions, self.model.constraints, in_service)
             obs = analyse_observability(
                 self.model.functions, available, self.model.constraints, in_service,
-                net.reference_position,
+                net.reference_position, structure,
             )
             if len(self._obs_cache) > 4096:
                 self._obs_cache.clear()
@@ -125,9 +138,9 @@ class Estimator:
         obs = self.observability(avail, status)
         layout = StateLayout.build(n, obs.references, obs.estimated_buses)
         lost = ~obs.estimated_buses
-        used = avail & ~_rows_touching(model.functions, lost)
+        used = avail & ~rows_touching(model.functions, lost)
         cons = model.constraints
-        cons_used = ~_rows_touching(cons, lost) if cons.m else np.zeros(0, bool)
+        cons_used = ~rows_touching(cons, lost) if cons.m else np.zeros(0, bool)
 
         if start is not None:
             vm, va = np.array(start[0], float), np.array(start[1], float)
@@ -146,7 +159,7 @@ class Estimator:
         w_used = np.ones(idx.size)
         converged, reason, it = False, "", 0
         H = C = system = None
-        step = np.inf
+        step = last_step = np.inf
         if layout.n_state == 0 or idx.size == 0:
             reason = "no observable part: " + obs.reason
         else:
@@ -167,15 +180,22 @@ class Estimator:
                 except RuntimeError as exc:
                     reason = f"gain matrix singular at iteration {it}: {exc}"
                     break
-                vm, va = layout.apply_step(vm, va, dx)
                 step = float(np.abs(dx).max())
+                if np.isfinite(step) and step > _MAX_STEP:
+                    # Far from the solution (gross errors, a poor start): limit the step.
+                    dx = dx * (_MAX_STEP / step)
+                vm, va = layout.apply_step(vm, va, dx)
                 if not np.isfinite(step) or vm[obs.estimated_buses].min() < _VM_RANGE[0] \
                         or vm[obs.estimated_buses].max() > _VM_RANGE[1]:
                     reason = f"diverged at iteration {it} (voltage out of range)"
                     break
-                if step < opt.tolerance and (not opt.robust or it > 2):
+                # Converged, or stalled at round-off level (gross errors can leave the last
+                # steps hovering just above the tolerance).
+                stalled = it >= 10 and step < 100 * opt.tolerance and step >= 0.5 * last_step
+                if (step < opt.tolerance or stalled) and (not opt.robust or it > 2):
                     converged = True
                     break
+                last_step = step
             else:
                 reason = f"no convergence in {opt.max_iterations} iterations (last step {step:.2e})"
         if converged:
@@ -206,16 +226,13 @@ class Estimator:
         )
 
     def _flat_start(self, z: np.ndarray, used: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Flat angles; magnitudes from measured voltages where there are any, else 1.0."""
+        """Flat angles; magnitudes at the median measured voltage (robust to a bad voltage
+        meter, e.g. one off by √3), else 1.0."""
         model = self.model
         n = model.network.n_bus
-        vm = np.ones(n)
         vmeas = used & (model.code == V_MAG)
-        if vmeas.any():
-            buses = model.functions.element[vmeas]
-            vm[:] = float(np.median(z[vmeas]))
-            vm[buses] = z[vmeas]
-        return vm, np.zeros(n)
+        level = float(np.median(z[vmeas])) if vmeas.any() else 1.0
+        return np.full(n, level if 0.8 < level < 1.2 else 1.0), np.zeros(n)
 
 
 def _huber_weights(u: np.ndarray, k: float) -> np.ndarray:

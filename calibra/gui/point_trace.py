@@ -1,0 +1,129 @@
+"""One point's week as arrays ready to plot, free of Qt.
+
+From a review's evidence: measured against what the rest of the network implies, the residual
+(measured − implied) with the accuracy band, the fitted fault model, and the snapshots where
+the point has no value, its branch is out of service or the network could not be estimated.
+Times are wall-clock seconds in the site's timezone (so the axis reads local time).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from calibra.diagnosis.review import ReviewResult
+from calibra.model.site import Site
+
+_BRANCH_QUANTITIES = ("p_flow", "q_flow", "i_magnitude", "branch_status")
+MAX_SCATTER = 4000  #: scatter points drawn at most (an even subsample beyond)
+
+
+@dataclass
+class PointTrace:
+    """Arrays (length k, float64 unless said) for one point over the reviewed period."""
+
+    tag: str
+    unit: str
+    x: np.ndarray  #: wall-clock seconds (site timezone) since 1970-01-01
+    measured: np.ndarray  #: after software corrections in force
+    implied: np.ndarray
+    raw: np.ndarray | None  #: as received, when a correction changed it
+    band: float  #: accuracy class limit: accuracy_pct % × full_scale
+    missing: np.ndarray  #: bool: no measured value
+    out_of_service: np.ndarray  #: bool: the point's branch is open
+    not_estimated: np.ndarray  #: bool: the snapshot did not converge or is not observable
+    kind: str = ""  #: diagnosis kind (healthy, reversed, scale, offset, drift, stuck, …)
+    slope: float | None = None  #: fitted line in the scatter: measured ≈ slope·implied + intercept
+    intercept: float = 0.0
+    model_residual: np.ndarray | None = None  #: the fitted error model over time
+    model_label: str = ""
+
+    @property
+    def residual(self) -> np.ndarray:
+        return self.measured - self.implied
+
+    def scatter(self, limit: int = MAX_SCATTER) -> tuple[np.ndarray, np.ndarray]:
+        """(implied, measured) where both exist, evenly thinned to at most ``limit`` pairs."""
+        ok = np.flatnonzero(np.isfinite(self.measured) & np.isfinite(self.implied))
+        if ok.size > limit:
+            ok = ok[np.linspace(0, ok.size - 1, limit).astype(int)]
+        return self.implied[ok], self.measured[ok]
+
+
+def wall_clock_seconds(index: pd.DatetimeIndex, timezone: str) -> np.ndarray:
+    """UTC timestamps as wall-clock seconds in ``timezone``."""
+    local = index.tz_convert(timezone).tz_localize(None)
+    return (local - pd.Timestamp("1970-01-01")).total_seconds().to_numpy()
+
+
+def point_trace(site: Site, result: ReviewResult, tag: str) -> PointTrace | None:
+    """The plot arrays of ``tag`` from a review; None when the review did not judge it."""
+    ev = result.evidence
+    if tag not in ev.model.tags:
+        return None
+    i = int(ev.model.tags.get_loc(tag))
+    pt = site.points.loc[tag]
+    measured = ev.measured[:, i].astype(float)
+    implied = ev.implied[:, i].astype(float)
+    raw = None
+    if tag in site.snapshots.columns:
+        received = site.snapshots[tag].reindex(ev.index).to_numpy(float)
+        both = np.isfinite(received) & np.isfinite(measured)
+        if not np.allclose(received[both], measured[both], rtol=1e-5, atol=1e-4):
+            raw = received
+    out = np.zeros(len(ev.index), bool)
+    if str(pt["quantity"]) in _BRANCH_QUANTITIES:
+        branches = site.network.branches.index
+        element = str(pt["element"])
+        if element in branches:
+            out = ~ev.in_service[:, branches.get_loc(element)].astype(bool)
+    outcomes = ev.period.outcomes
+    estimated = (outcomes["converged"].astype(bool) & outcomes["observable"].astype(bool))
+    limit = _class_limit(pt)
+    trace = PointTrace(
+        tag=str(tag), unit=str(pt["unit"]), x=wall_clock_seconds(ev.index, site.timezone),
+        measured=measured, implied=implied, raw=raw, band=limit,
+        missing=~np.isfinite(measured) & ~out, out_of_service=out,
+        not_estimated=~estimated.to_numpy(bool),
+    )
+    diagnosis = result.diagnoses.get(str(tag))
+    if diagnosis is not None:
+        t_days = ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
+        _add_model(trace, diagnosis.kind, diagnosis.params, t_days)
+    return trace
+
+
+def _class_limit(pt: pd.Series) -> float:
+    acc, full = pt.get("accuracy_pct"), pt.get("full_scale")
+    if acc is None or full is None or pd.isna(acc) or pd.isna(full):
+        return float("nan")
+    return float(acc) / 100.0 * float(full)
+
+
+def _add_model(trace: PointTrace, kind: str, params: dict, t_days: np.ndarray) -> None:
+    """The fitted fault model as a scatter line and as an error over time."""
+    trace.kind = kind
+    y = trace.implied
+    if kind in ("reversed", "scale") and "factor" in params:
+        k = float(params["factor"])
+        trace.slope, trace.intercept = k, 0.0
+        trace.model_residual = (k - 1.0) * y
+        trace.model_label = f"fit: measured = {k:.3f} × implied"
+    elif kind == "offset" and "offset" in params:
+        c = float(params["offset"])
+        trace.slope, trace.intercept = 1.0, c
+        trace.model_residual = np.full_like(y, c)
+        trace.model_label = f"fit: measured = implied {c:+.3g} {trace.unit}"
+    elif kind == "drift" and "drift_per_day" in params:
+        a, t0 = float(params["drift_per_day"]), float(params["onset_days"])
+        trace.model_residual = a * np.maximum(t_days - t0, 0.0)
+        trace.model_label = f"fit: drift {a:+.3g} {trace.unit}/day"
+    elif kind == "stuck" and "value" in params:
+        start = float(params["onset_days"])
+        until = params.get("until_days")
+        stop = float(until) if until is not None else float(t_days[-1]) if t_days.size else start
+        frozen = (t_days >= start) & (t_days <= stop)
+        trace.model_residual = np.where(frozen, float(params["value"]) - y, np.nan)
+        trace.model_label = f"fit: frozen at {float(params['value']):.4g} {trace.unit}"

@@ -1,0 +1,190 @@
+"""Side tabs: the selected point (metadata, finding, evidence), its ledger history, the site
+that was loaded, and the reviews of this session with the before/after comparison."""
+
+from __future__ import annotations
+
+from html import escape
+
+import pandas as pd
+from PySide6.QtWidgets import (
+    QAbstractItemView,
+    QHeaderView,
+    QLabel,
+    QTableWidget,
+    QTableWidgetItem,
+    QTabWidget,
+    QTextBrowser,
+    QVBoxLayout,
+    QWidget,
+)
+
+from calibra.cli import format_summary
+from calibra.gui.qt_style import STATE_COLOURS
+from calibra.gui.run_compare import RunFigures, changed_findings, comparison_rows
+from calibra.model.site import LoadProblem, Site
+
+_METADATA = [("quantity", "Quantity"), ("element", "Element"), ("end", "End"),
+             ("unit", "Unit"), ("full_scale", "Full scale"), ("accuracy_pct", "Accuracy (%)"),
+             ("substation", "Substation"), ("device", "Device"), ("rtu", "RTU"),
+             ("channel", "Channel"), ("ct_ratio", "CT ratio"), ("vt_ratio", "VT ratio"),
+             ("note", "Note")]
+_FINDING = [("finding", "Finding"), ("confidence", "Confidence"), ("factor", "Factor"),
+            ("offset", "Offset"), ("drift_per_day", "Drift per day"), ("onset", "Onset"),
+            ("scope", "Scope"), ("cause", "Likely cause"), ("matched", "Reads instead"),
+            ("action", "Suggested check")]
+
+
+def _cell(value) -> str:
+    if value is None or (not isinstance(value, str) and pd.isna(value)):
+        return ""
+    if isinstance(value, float):
+        return f"{value:.4g}"
+    return str(value)
+
+
+def _rows(pairs: list[tuple[str, str]]) -> str:
+    return "".join(f"<tr><td style='color:#5a6169;padding-right:10px'>{escape(k)}</td>"
+                   f"<td>{escape(v)}</td></tr>" for k, v in pairs if v)
+
+
+def point_html(site: Site, tag: str, finding: pd.Series | None, timezone: str) -> str:
+    """The point's metadata and, when it has one, its finding and evidence, as HTML."""
+    pt = site.points.loc[tag]
+    parts = [f"<h3 style='margin:2px 0'>{escape(tag)}</h3>"]
+    if finding is not None:
+        state = str(finding.get("state", ""))
+        colour = STATE_COLOURS.get(state, "#5a6169")
+        parts.append(f"<p style='margin:2px 0'><b>{escape(str(finding['finding']))}</b> · "
+                     f"<span style='color:{colour}'>{escape(state)}</span></p>"
+                     f"<p style='margin:6px 0'>{escape(str(finding.get('evidence', '')))}</p>")
+        values = []
+        for key, label in _FINDING:
+            value = finding.get(key)
+            if key == "onset" and value is not None and not pd.isna(value):
+                value = pd.Timestamp(value).tz_convert(timezone).strftime("%a %Y-%m-%d %H:%M")
+            values.append((label, _cell(value)))
+        parts.append(f"<table>{_rows(values)}</table>")
+    else:
+        parts.append("<p>No open finding for this point in the latest review.</p>")
+    parts.append("<p style='margin:8px 0 2px 0'><b>Point list</b></p>")
+    parts.append(f"<table>{_rows([(label, _cell(pt.get(key))) for key, label in _METADATA])}"
+                 "</table>")
+    return "".join(parts)
+
+
+def _payload_text(payload: dict, timezone: str) -> str:
+    bits = []
+    for key in ("factor", "offset", "reason", "note"):
+        if payload.get(key) not in (None, ""):
+            bits.append(f"{key} {payload[key]}")
+    for key in ("at", "valid_from"):
+        if payload.get(key):
+            when = pd.Timestamp(payload[key]).tz_convert(timezone)
+            bits.append(f"{key.replace('_', ' ')} {when:%Y-%m-%d %H:%M}")
+    if payload.get("review"):
+        bits.append(f"review {payload['review']}")
+    return "; ".join(bits)
+
+
+class _Table(QTableWidget):
+    def __init__(self, headers: list[str], parent: QWidget | None = None):
+        super().__init__(0, len(headers), parent)
+        self.setHorizontalHeaderLabels(headers)
+        self.setEditTriggers(QAbstractItemView.NoEditTriggers)
+        self.setSelectionBehavior(QAbstractItemView.SelectRows)
+        self.verticalHeader().setVisible(False)
+        self.horizontalHeader().setStretchLastSection(True)
+        self.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
+        self.setWordWrap(False)
+
+    def fill(self, rows: list[list[str]]) -> None:
+        self.setRowCount(len(rows))
+        for r, row in enumerate(rows):
+            for c, value in enumerate(row):
+                self.setItem(r, c, QTableWidgetItem(value))
+
+
+def problem_rows(problems: list[LoadProblem]) -> list[list[str]]:
+    """Load problems as table rows: severity, file, row, column, message."""
+    return [[p.severity, p.file, "" if p.row is None else str(p.row), p.column or "",
+             p.message + (f" ({p.count} values)" if p.count > 1 else "")] for p in problems]
+
+
+PROBLEM_HEADERS = ["severity", "file", "row", "column", "problem"]
+
+
+class DetailTabs(QTabWidget):
+    """Point · History · Site · Reviews."""
+
+    def __init__(self, parent: QWidget | None = None):
+        super().__init__(parent)
+        self.point = QTextBrowser(self)
+        self.point.setOpenLinks(False)
+        self.history = _Table(["when", "who", "action", "finding", "details", "undone"], self)
+        self.site_text = QTextBrowser(self)
+        self.problems = _Table(PROBLEM_HEADERS, self)
+        site_page = QWidget(self)
+        lay = QVBoxLayout(site_page)
+        lay.setContentsMargins(2, 2, 2, 2)
+        lay.addWidget(self.site_text, 2)
+        self.problems_title = QLabel("Load problems", site_page)
+        self.problems_title.setObjectName("sectionTitle")
+        lay.addWidget(self.problems_title)
+        lay.addWidget(self.problems, 1)
+        self.compare = _Table(["figure", "before", "after"], self)
+        self.compare_note = QTextBrowser(self)
+        runs_page = QWidget(self)
+        lay = QVBoxLayout(runs_page)
+        lay.setContentsMargins(2, 2, 2, 2)
+        lay.addWidget(self.compare, 3)
+        lay.addWidget(self.compare_note, 2)
+        self.addTab(self.point, "Point")
+        self.addTab(self.history, "History")
+        self.addTab(site_page, "Site")
+        self.addTab(runs_page, "Reviews")
+
+    def show_point(self, site: Site | None, tag: str | None, finding: pd.Series | None) -> None:
+        if site is None or tag is None or tag not in site.points.index:
+            self.point.setHtml("<p>Select a finding in the list.</p>")
+            return
+        self.point.setHtml(point_html(site, tag, finding, site.timezone))
+
+    def show_history(self, history: pd.DataFrame | None, timezone: str) -> None:
+        """The ledger's actions on the point, newest first."""
+        if history is None or history.empty:
+            self.history.fill([])
+            return
+        rows = []
+        for _, a in history.iloc[::-1].iterrows():
+            when = pd.Timestamp(a["at"]).tz_convert(timezone)
+            rows.append([f"{when:%Y-%m-%d %H:%M:%S}", str(a["user"]), str(a["action"]),
+                         str(a["finding_id"] or "(whole point)"),
+                         _payload_text(a["payload"] or {}, timezone),
+                         "" if pd.isna(a["undone_by"]) else "undone"])
+        self.history.fill(rows)
+
+    def show_site(self, site: Site | None) -> None:
+        if site is None:
+            self.site_text.setHtml("<p>No site open.</p>")
+            self.problems.fill([])
+            return
+        lines = format_summary(site)
+        self.site_text.setHtml(f"<p><b>{escape(str(site.path))}</b></p>"
+                               + "".join(f"<p style='margin:3px 0'>{escape(t)}</p>"
+                                         for t in lines))
+        self.problems_title.setText(f"Load problems ({len(site.problems)})")
+        self.problems.fill(problem_rows(site.problems))
+
+    def show_runs(self, before: RunFigures | None, after: RunFigures | None) -> None:
+        if after is None:
+            self.compare.fill([])
+            self.compare_note.setHtml("<p>No review in this session yet.</p>")
+            return
+        self.compare.fill([list(r) for r in comparison_rows(before, after)])
+        if before is None:
+            self.compare_note.setHtml("<p>Re-run the review after corrections to compare.</p>")
+            return
+        gone, new = changed_findings(before, after)
+        self.compare_note.setHtml(
+            "<p><b>No longer found</b>: " + (escape(", ".join(gone)) or "none") + "</p>"
+            "<p><b>Newly found</b>: " + (escape(", ".join(new)) or "none") + "</p>")

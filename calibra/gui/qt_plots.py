@@ -1,0 +1,174 @@
+"""The selected point's week in three linked plots and a scatter.
+
+- the time series of measured against implied (and the raw values when a software correction
+  changed them), with a strip below marking missing values, the branch being open and
+  snapshots the network could not estimate;
+- the residual (measured − implied) with the accuracy band and the fitted error model;
+- measured against implied, with the ±1 reference lines and the fitted line.
+
+Plot items are made once and refilled with ``setData``; long series are drawn peak-downsampled
+and clipped to the view, so moving through the list stays quick. Mouse: drag to pan, wheel to
+zoom (the time plots zoom together).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pyqtgraph as pg
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import QLabel, QSizePolicy, QSplitter, QVBoxLayout, QWidget
+
+from calibra.gui.point_trace import PointTrace
+from calibra.gui.qt_style import COLOURS
+
+STRIP_ROWS = ("no value", "branch open", "not estimated")
+STRIP_KEYS = ("missing", "open", "unestimated")
+
+
+def _plot(parent: QWidget, date_axis: bool = True, **labels) -> pg.PlotWidget:
+    axes = {"bottom": pg.DateAxisItem(utcOffset=0)} if date_axis else {}
+    w = pg.PlotWidget(parent, axisItems=axes, background=COLOURS["plot_bg"])
+    w.showGrid(x=True, y=True, alpha=0.18)
+    for side, text in labels.items():
+        w.setLabel(side, text)
+    w.getPlotItem().getViewBox().setMouseMode(pg.ViewBox.PanMode)
+    return w
+
+
+def _curve(plot: pg.PlotWidget, colour: str, width: float = 1.3, name: str | None = None,
+           style=Qt.SolidLine) -> pg.PlotDataItem:
+    item = plot.plot([], [], pen=pg.mkPen(colour, width=width, style=style), name=name,
+                     connect="finite")
+    item.setDownsampling(auto=True, method="peak")
+    item.setClipToView(True)
+    return item
+
+
+class PlotPanel(QWidget):
+    """The plots of one point; call :meth:`show_trace` to fill them."""
+
+    def __init__(self, parent: QWidget | None = None):
+        super().__init__(parent)
+        self.trace: PointTrace | None = None
+        self.title = QLabel("No point selected")
+        self.title.setObjectName("plotTitle")
+        self.title.setWordWrap(True)
+        self.title.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Fixed)
+
+        self.series = _plot(self, left="value")
+        self.series.addLegend(offset=(8, 4), labelTextSize="8pt")
+        self.strip = _plot(self)
+        self.strip.setFixedHeight(74)
+        self.strip.setMouseEnabled(x=True, y=False)
+        self.strip.getAxis("left").setTicks([[(i, t) for i, t in enumerate(STRIP_ROWS)]])
+        self.strip.setYRange(-0.6, len(STRIP_ROWS) - 0.4, padding=0)
+        self.strip.getAxis("bottom").setStyle(showValues=False)
+        self.residual = _plot(self, left="measured − implied")
+        self.residual.addLegend(offset=(8, 4), labelTextSize="8pt")
+        self.scatter = _plot(self, date_axis=False, left="measured", bottom="implied")
+        for p in (self.strip, self.residual):
+            p.setXLink(self.series)
+        for p in (self.series, self.strip, self.residual, self.scatter):
+            p.getAxis("left").setWidth(62)
+
+        c = COLOURS
+        self.curves: dict[str, pg.GraphicsObject] = {
+            "raw": _curve(self.series, c["raw"], 1.0, "as received", Qt.DotLine),
+            "implied": _curve(self.series, c["implied"], 1.4, "network implies"),
+            "measured": _curve(self.series, c["measured"], 1.4, "measured"),
+            "residual": _curve(self.residual, c["measured"], 1.1, "residual"),
+            "model": _curve(self.residual, c["model"], 2.0, "fitted error"),
+        }
+        for key in STRIP_KEYS:
+            item = _curve(self.strip, c[f"strip_{key}"], 7.0)
+            item.setDownsampling(auto=False)
+            self.curves[f"strip_{key}"] = item
+        band = pg.LinearRegionItem((0, 0), orientation="horizontal", movable=False,
+                                   brush=pg.mkBrush(c["band"]), pen=pg.mkPen(c["band_edge"]))
+        band.setZValue(-10)
+        self.residual.addItem(band)
+        self.band = band
+        self.residual.addItem(pg.InfiniteLine(pos=0, angle=0, pen=pg.mkPen(c["axis"], width=1)))
+        dots = pg.ScatterPlotItem(size=3, pen=None, brush=pg.mkBrush(c["scatter"]))
+        self.scatter.addItem(dots)
+        self.curves["scatter"] = dots
+        ref = pg.mkPen(c["reference"], width=1, style=Qt.DashLine)
+        self.ref_plus = pg.InfiniteLine(pos=(0, 0), angle=45, pen=ref, label="+1",
+                                        labelOpts={"position": 0.92, "color": c["reference"]})
+        self.ref_minus = pg.InfiniteLine(pos=(0, 0), angle=-45, pen=ref, label="−1",
+                                         labelOpts={"position": 0.92, "color": c["reference"]})
+        self.fit_line = pg.InfiniteLine(pos=(0, 0), angle=45, pen=pg.mkPen(c["model"], width=2))
+        for item in (self.ref_plus, self.ref_minus, self.fit_line):
+            self.scatter.addItem(item)
+
+        lower = QSplitter(Qt.Horizontal, self)
+        lower.addWidget(self.residual)
+        lower.addWidget(self.scatter)
+        lower.setStretchFactor(0, 3)
+        lower.setStretchFactor(1, 2)
+        top = QWidget(self)
+        top_layout = QVBoxLayout(top)
+        top_layout.setContentsMargins(0, 0, 0, 0)
+        top_layout.setSpacing(0)
+        top_layout.addWidget(self.series, 1)
+        top_layout.addWidget(self.strip)
+        split = QSplitter(Qt.Vertical, self)
+        split.addWidget(top)
+        split.addWidget(lower)
+        split.setStretchFactor(0, 3)
+        split.setStretchFactor(1, 2)
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(4, 4, 4, 4)
+        layout.addWidget(self.title)
+        layout.addWidget(split, 1)
+        self.show_trace(None, "No point selected")
+
+    def show_trace(self, trace: PointTrace | None, title: str) -> None:
+        """Fill every plot from ``trace`` (None clears them and shows only ``title``)."""
+        self.trace = trace
+        self.title.setText(title)
+        if trace is None:
+            for item in self.curves.values():
+                item.setData([], [])
+            self.band.setRegion((0, 0))
+            self.fit_line.setVisible(False)
+            return
+        x = trace.x
+        unit = trace.unit
+        self.series.setLabel("left", f"value ({unit})")
+        self.residual.setLabel("left", f"measured − implied ({unit})")
+        self.scatter.setLabel("left", f"measured ({unit})")
+        self.scatter.setLabel("bottom", f"implied ({unit})")
+        self.curves["measured"].setData(x, trace.measured)
+        self.curves["implied"].setData(x, trace.implied)
+        raw = trace.raw if trace.raw is not None else np.array([])
+        self.curves["raw"].setData(x[: raw.size], raw)
+        self.curves["residual"].setData(x, trace.residual)
+        model = trace.model_residual
+        self.curves["model"].setData(x[: 0 if model is None else model.size],
+                                     np.array([]) if model is None else model)
+        masks = (trace.missing, trace.out_of_service, trace.not_estimated)
+        for row, (key, mask) in enumerate(zip(STRIP_KEYS, masks, strict=True)):
+            self.curves[f"strip_{key}"].setData(x, np.where(mask, float(row), np.nan))
+        band = trace.band if math.isfinite(trace.band) else 0.0
+        self.band.setRegion((-band, band))
+        self.curves["scatter"].setData(*trace.scatter())
+        if trace.slope is not None:
+            self.fit_line.setAngle(math.degrees(math.atan(trace.slope)))
+            self.fit_line.setPos((0.0, trace.intercept))
+            self.fit_line.setVisible(True)
+        else:
+            self.fit_line.setVisible(False)
+        self._legend_model(trace.model_label)
+        for p in (self.series, self.residual, self.scatter):
+            p.enableAutoRange()
+
+    def _legend_model(self, label: str) -> None:
+        legend = self.residual.getPlotItem().legend
+        if legend is None:
+            return
+        for sample, text in legend.items:
+            if sample.item is self.curves["model"]:
+                text.setText(label or "fitted error")

@@ -1,0 +1,154 @@
+"""What the engineer does about the selected point, each action written to the ledger at once.
+
+Every action has a keyboard shortcut. Corrections (reversed, scale, offset) and repairs act on
+the whole point; confirm, dismiss and notes on the selected finding. Undo takes back the last
+action on the selected finding (or, without one, on the point).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import TYPE_CHECKING
+
+import pandas as pd
+from PySide6.QtGui import QAction, QKeySequence
+
+from calibra.ledger import LedgerError
+
+if TYPE_CHECKING:
+    from calibra.gui.qt_main import MainWindow
+
+#: (name, menu text, shortcut, status tip)
+ACTIONS = [
+    ("next", "Next finding", "F8", "Select the next finding in the list"),
+    ("previous", "Previous finding", "Shift+F8", "Select the previous finding in the list"),
+    ("confirm", "Confirm finding", "Ctrl+Shift+C", "Agree with the finding"),
+    ("reversed", "Mark reversed", "Ctrl+Shift+R",
+     "Correct the point in software: it reads the negated value"),
+    ("scale", "Apply scale factor…", "Ctrl+Shift+K",
+     "Correct the point in software: it reads factor × the true value"),
+    ("offset", "Apply offset…", "Ctrl+Shift+B",
+     "Correct the point in software: it reads the true value plus an offset"),
+    ("repaired", "Mark repaired…", "Ctrl+Shift+M",
+     "Record the field repair time: raw values are used again after it"),
+    ("dismiss", "Dismiss…", "Ctrl+Shift+D", "Dismiss the finding, with a reason"),
+    ("note", "Add note…", "Ctrl+Shift+N", "Attach a note to the finding"),
+    ("undo", "Undo last action", QKeySequence.Undo, "Take back the last action on the finding"),
+]
+
+
+class PointActions:
+    """The point actions of the main window and their handlers."""
+
+    def __init__(self, window: MainWindow):
+        self.w = window
+        self.actions: dict[str, QAction] = {}
+        handlers: dict[str, Callable[[], object]] = {
+            "next": lambda: self.w.findings.step(1),
+            "previous": lambda: self.w.findings.step(-1),
+            "confirm": self.confirm, "reversed": self.mark_reversed, "scale": self.apply_scale,
+            "offset": self.apply_offset, "repaired": self.mark_repaired,
+            "dismiss": self.dismiss, "note": self.add_note, "undo": self.undo,
+        }
+        for name, text, key, tip in ACTIONS:
+            action = QAction(text, window)
+            action.setShortcut(QKeySequence(key))
+            action.setStatusTip(tip)
+            action.setToolTip(f"{tip} ({action.shortcut().toString()})")
+            action.triggered.connect(lambda _=False, h=handlers[name]: h())
+            self.actions[name] = action
+
+    # ---- helpers ------------------------------------------------------------------------
+    def _finding(self) -> pd.Series | None:
+        fid = self.w.current_finding
+        return None if fid is None else self.w.view.row(fid)
+
+    def _do(self, what: str, call: Callable[[], object]) -> bool:
+        """Run one ledger call; report refusals; refresh everything on success."""
+        tag = self.w.current_tag
+        if self.w.ledger is None or tag is None:
+            self.w.say("Select a point first.")
+            return False
+        try:
+            call()
+        except (LedgerError, ValueError) as exc:
+            self.w.say(f"{what}: {exc}", warn=True)
+            return False
+        self.w.after_ledger_change(f"{tag}: {what}")
+        return True
+
+    # ---- actions ------------------------------------------------------------------------
+    def confirm(self) -> bool:
+        fid = self.w.current_finding
+        if fid is None:
+            self.w.say("Select a finding to confirm.")
+            return False
+        return self._do("confirmed", lambda: self.w.ledger.confirm(fid))
+
+    def mark_reversed(self) -> bool:
+        tag = self.w.current_tag
+        return self._do("marked reversed", lambda: self.w.ledger.mark_reversed(tag))
+
+    def apply_scale(self, factor: float | None = None) -> bool:
+        tag = self.w.current_tag
+        if factor is None and tag is not None:
+            row = self._finding()
+            fitted = row.get("factor") if row is not None else None
+            start = float(fitted) if fitted is not None and pd.notna(fitted) else 1.0
+            factor = self.w.prompts.number("Apply scale factor",
+                                           f"{tag} reads factor × the true value; factor:", start)
+            if factor is None:
+                return False
+        return self._do(f"scale factor {factor:g} applied",
+                        lambda: self.w.ledger.apply_scale(tag, factor))
+
+    def apply_offset(self, offset: float | None = None) -> bool:
+        tag = self.w.current_tag
+        if offset is None and tag is not None:
+            row = self._finding()
+            fitted = row.get("offset") if row is not None else None
+            start = float(fitted) if fitted is not None and pd.notna(fitted) else 0.0
+            offset = self.w.prompts.number("Apply offset",
+                                           f"{tag} reads the true value plus; offset:", start)
+            if offset is None:
+                return False
+        return self._do(f"offset {offset:+g} applied",
+                        lambda: self.w.ledger.apply_offset(tag, offset))
+
+    def mark_repaired(self, at: pd.Timestamp | None = None) -> bool:
+        tag = self.w.current_tag
+        if at is None and tag is not None and self.w.site is not None:
+            at = self.w.prompts.when("Mark repaired", f"When was {tag} repaired?",
+                                     pd.Timestamp.now(tz="UTC"), self.w.site.timezone)
+            if at is None:
+                return False
+        return self._do(f"marked repaired at {at}", lambda: self.w.ledger.mark_repaired(tag, at))
+
+    def dismiss(self, reason: str | None = None) -> bool:
+        fid = self.w.current_finding
+        if fid is None:
+            self.w.say("Select a finding to dismiss.")
+            return False
+        if reason is None:
+            reason = self.w.prompts.text("Dismiss finding", f"Why is {fid} dismissed?")
+            if reason is None:
+                return False
+        return self._do("dismissed", lambda: self.w.ledger.dismiss(fid, reason))
+
+    def add_note(self, text: str | None = None) -> bool:
+        target = self.w.current_finding or self.w.current_tag
+        if target is None:
+            self.w.say("Select a point first.")
+            return False
+        if text is None:
+            text = self.w.prompts.text("Add note", f"Note on {target}:")
+            if text is None:
+                return False
+        return self._do("note added", lambda: self.w.ledger.add_note(target, text))
+
+    def undo(self) -> bool:
+        target = self.w.current_finding or self.w.current_tag
+        if target is None:
+            self.w.say("Select a point first.")
+            return False
+        return self._do("last action undone", lambda: self.w.ledger.undo(target))

@@ -1,0 +1,87 @@
+"""calibra's own look: one palette for plots, diagram and list, the style sheet and the icon."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from PySide6.QtCore import Qt
+from PySide6.QtGui import QColor, QIcon, QPainter, QPixmap
+
+#: The palette (hex RGB or RGBA), chosen for calibra.
+COLOURS = {
+    "plot_bg": "#fbfbf8",
+    "axis": "#5a6169",
+    "measured": "#176b87",
+    "implied": "#e08a1e",
+    "raw": "#98a3ab",
+    "model": "#a4286a",
+    "scatter": "#176b8766",
+    "band": "#7fb06d33",
+    "band_edge": "#7fb06d",
+    "reference": "#8c8f93",
+    "strip_missing": "#d4a72c",
+    "strip_open": "#6b5ca5",
+    "strip_unestimated": "#c8553d",
+    "bus": "#2f3b46",
+    "branch": "#7d8891",
+    "branch_open": "#c3c8cc",
+    "meter": "#a9b2b9",
+    "flagged": "#e08a1e",
+    "selected": "#c8153d",
+    "focus": "#176b87",
+}
+
+#: Soft fills for substations on the diagram, used in turn.
+SUBSTATION_FILLS = ("#e6efe9", "#ece7f3", "#f3ede2", "#e3edf3", "#f2e6ea", "#edf0df")
+
+#: Ledger states and the colour of their mark in the list.
+STATE_COLOURS = {
+    "new": "#e08a1e",
+    "confirmed": "#a4286a",
+    "corrected": "#176b87",
+    "repaired": "#6b5ca5",
+    "verified": "#4f8f3a",
+    "dismissed": "#9aa0a6",
+}
+
+STYLE_SHEET = """
+QLabel#plotTitle { font-weight: 600; padding: 2px 4px; }
+QLabel#sectionTitle { font-weight: 600; color: #2f3b46; padding-top: 4px; }
+QLabel#focusNote { color: #176b87; }
+QToolBar { spacing: 4px; }
+QTreeView::item { padding: 1px 0px; }
+"""
+
+ASSETS = Path(__file__).resolve().parents[2] / "assets"
+ICON_FILE = "calibra.svg"
+
+
+def app_icon() -> QIcon:
+    """The application icon from ``assets/`` (an empty icon when the assets are not there)."""
+    icon = QIcon()
+    for name in (ICON_FILE, "calibra-256.png"):
+        path = ASSETS / name
+        if path.exists():
+            icon.addFile(str(path))
+    return icon
+
+
+def state_dot(state: str, size: int = 10) -> QIcon:
+    """A small filled circle in the colour of a ledger state."""
+    pix = QPixmap(size, size)
+    pix.fill(Qt.transparent)
+    painter = QPainter(pix)
+    painter.setRenderHint(QPainter.Antialiasing)
+    painter.setPen(Qt.NoPen)
+    painter.setBrush(QColor(STATE_COLOURS.get(state, "#9aa0a6")))
+    painter.drawEllipse(1, 1, size - 2, size - 2)
+    painter.end()
+    return QIcon(pix)
+
+
+def configure_plots() -> None:
+    """pyqtgraph defaults for calibra's plots (antialiased lines, our colours)."""
+    import pyqtgraph as pg
+
+    pg.setConfigOptions(antialias=True, background=COLOURS["plot_bg"],
+                        foreground=COLOURS["axis"])
