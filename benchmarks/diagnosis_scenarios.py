@@ -17,8 +17,9 @@ import sys
 import time
 from pathlib import Path
 
-import calibra  # noqa: F401
 import pandas as pd
+
+import calibra  # noqa: F401
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 

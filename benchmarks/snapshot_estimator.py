@@ -14,7 +14,6 @@ import argparse
 import time
 import warnings
 
-import calibra  # noqa: F401  (single-threaded BLAS)
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
@@ -22,6 +21,7 @@ import scipy.sparse.linalg as spla
 from pypower.api import case118, ppoption, runpf
 from scipy.optimize import least_squares
 
+import calibra  # noqa: F401  (single-threaded BLAS)
 from calibra.estimation.measurements import StateLayout
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.wls import Estimator

@@ -159,7 +159,12 @@ class BlockSolver:
             return None
         if not self.partial and not self.estimator.observability(base, self.status).observable:
             return None
-        for cand in np.argsort(-avail.sum(axis=1), kind="stable")[:5]:
+        # The most complete snapshots, the one nearest the middle of the block first: the
+        # block iterates around the reference's operating point.
+        count = avail.sum(axis=1)
+        middle = np.abs(np.arange(len(count)) - (len(count) - 1) / 2)
+        order = np.lexsort((middle, -count))
+        for cand in order[:5]:
             est = self.estimator.estimate(Z[cand], None, self.status)
             if est.converged and (self.partial or est.observability.observable):
                 return est
@@ -266,32 +271,35 @@ class BlockSolver:
         lost = ~ref.observability.estimated_buses
         vm[lost], va[lost] = 1.0, 0.0
         lam = np.zeros((nc, k))
-        active = np.flatnonzero(group_of >= 0)
         done = np.zeros(k, bool)
         iters = np.zeros(k, np.int64)
-        for it in range(1, self.max_iterations + 1):
-            if active.size == 0:
-                break
-            vma, vaa = vm[:, active], va[:, active]
-            r = (Zt[:, active] - funcs.evaluate(vma, vaa, status)) * W[:, active]
-            rhs = funcs.gradient(vma, vaa, r, layout, status)
-            if nc:
-                lam_rows = np.zeros((cons.m, active.size))
-                lam_rows[cidx] = lam[:, active]
-                rhs = np.vstack([rhs - cons.gradient(vma, vaa, lam_rows, layout, status),
-                                 -cons.evaluate(vma, vaa, status)[cidx]])
-            sol = self._solve_k0(rhs)
-            self._woodbury(sol, active, group_of, groups)
-            dx = sol[:nx]
-            if nc:
-                lam[:, active] += sol[nx:]
-            vm[:, active], va[:, active] = _apply(layout, vma, vaa, dx)
-            step = np.abs(dx).max(axis=0)
-            iters[active] = it
-            finished = step < self.tolerance
-            bad = ~np.isfinite(step) | (step > 10.0)
-            done[active[finished]] = True
-            active = active[~finished & ~bad]
+
+        def iterate(active: np.ndarray) -> None:
+            for _ in range(self.max_iterations):
+                if active.size == 0:
+                    break
+                vma, vaa = vm[:, active], va[:, active]
+                r = (Zt[:, active] - funcs.evaluate(vma, vaa, status)) * W[:, active]
+                rhs = funcs.gradient(vma, vaa, r, layout, status)
+                if nc:
+                    lam_rows = np.zeros((cons.m, active.size))
+                    lam_rows[cidx] = lam[:, active]
+                    rhs = np.vstack([rhs - cons.gradient(vma, vaa, lam_rows, layout, status),
+                                     -cons.evaluate(vma, vaa, status)[cidx]])
+                sol = self._solve_k0(rhs)
+                self._woodbury(sol, active, group_of, groups)
+                dx = sol[:nx]
+                if nc:
+                    lam[:, active] += sol[nx:]
+                vm[:, active], va[:, active] = _apply(layout, vma, vaa, dx)
+                step = np.abs(dx).max(axis=0)
+                iters[active] += 1
+                finished = step < self.tolerance
+                bad = ~np.isfinite(step) | (step > 10.0)
+                done[active[finished]] = True
+                active = active[~finished & ~bad]
+
+        iterate(np.flatnonzero(group_of >= 0))
         vm[lost], va[lost] = np.nan, np.nan
         ok = np.flatnonzero(done)
         out.vm[ok], out.va[ok] = vm[:, ok].T, va[:, ok].T
