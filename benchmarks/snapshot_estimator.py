@@ -36,7 +36,8 @@ def full_points(net) -> pd.DataFrame:
                      (f"{bid}:{end}:q", "q_flow", bid, end, "Mvar")]
     for b, bus in net.buses.iterrows():
         if not bus["zero_injection"]:
-            rows += [(f"{b}:p", "p_injection", b, "", "MW"), (f"{b}:q", "q_injection", b, "", "Mvar")]
+            rows += [(f"{b}:p", "p_injection", b, "", "MW"),
+                     (f"{b}:q", "q_injection", b, "", "Mvar")]
         rows.append((f"{b}:v", "v_magnitude", b, "", "kV"))
     pts = pd.DataFrame(rows, columns=["tag", "quantity", "element", "end", "unit"]).set_index("tag")
     pts["full_scale"] = np.where(pts["unit"] == "kV", 1.2 * net.buses["kv"].max(), 300.0)

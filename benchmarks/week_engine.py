@@ -125,7 +125,8 @@ def run_case(case: str, workers: int | None) -> dict:
     per = engine / k
     return {"case": case, "what": what, "measurements": model.m, "snapshots": k,
             "engine_s": round(engine, 1), "engine_ms_per": round(1e3 * per, 3),
-            "peak_MB": round(peak), "converged_%": round(100 * period.outcomes["converged"].mean(), 2),
+            "peak_MB": round(peak),
+            "converged_%": round(100 * float(period.outcomes["converged"].mean()), 2),
             "plain_GN_ms_per": round(1e3 * plain, 2), "vs_plain": round(plain / per, 1),
             "lsq_ms_per": round(1e3 * lsq, 1), "vs_lsq": round(lsq / per)}
 
