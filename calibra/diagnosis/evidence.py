@@ -81,8 +81,11 @@ class WeekEvidence:
 
 
 def _normalized(period: PeriodResult) -> np.ndarray:
+    """|r|/√Ω; NaN where Ω is zero (a critical measurement has no normalized residual)."""
     with np.errstate(divide="ignore", invalid="ignore"):
-        return np.abs(period.residual) / np.sqrt(period.omega)
+        rn = np.abs(period.residual) / np.sqrt(period.omega)
+    rn[~np.isfinite(rn)] = np.nan
+    return rn
 
 
 def _quantile_over_snapshots(x: np.ndarray, q: float, min_count: int = 20) -> np.ndarray:
