@@ -275,6 +275,7 @@ class BlockSolver:
         iters = np.zeros(k, np.int64)
 
         def iterate(active: np.ndarray) -> None:
+            accel = _Anderson(nx + nc, k)
             for _ in range(self.max_iterations):
                 if active.size == 0:
                     break
@@ -288,11 +289,12 @@ class BlockSolver:
                                      -cons.evaluate(vma, vaa, status)[cidx]])
                 sol = self._solve_k0(rhs)
                 self._woodbury(sol, active, group_of, groups)
+                step = np.abs(sol[:nx]).max(axis=0)
+                sol = accel.step(sol, active, nx)
                 dx = sol[:nx]
                 if nc:
                     lam[:, active] += sol[nx:]
                 vm[:, active], va[:, active] = _apply(layout, vma, vaa, dx)
-                step = np.abs(dx).max(axis=0)
                 iters[active] += 1
                 finished = step < self.tolerance
                 bad = ~np.isfinite(step) | (step > 10.0)
@@ -352,6 +354,60 @@ class BlockSolver:
             out.residual[i] = est.residual
             out.omega[i] = analyse_residuals(self.estimator, est, confidence).omega_diag
         return row
+
+
+class _Anderson:
+    """Anderson acceleration of the block's fixed-point iteration, one least-squares mixing
+    per snapshot column (memory ``depth``).
+
+    The plain iteration y ← y + f(y) (f: the Gauss-Newton-like step with the fixed matrix)
+    converges linearly; mixing the last steps — s = f − (ΔY + ΔF)γ with γ minimising
+    ‖f − ΔF γ‖ over the state rows — speeds it up without moving the fixed point, so the
+    converged states are the same. A column whose mixed step is far larger than its plain
+    step keeps the plain step.
+    """
+
+    def __init__(self, dim: int, k: int, depth: int = 3):
+        self.depth = depth
+        self.prev_f = np.zeros((dim, k))
+        self.df: list[np.ndarray] = []
+        self.dy: list[np.ndarray] = []
+        self.prev_s = np.zeros((dim, k))
+        self.started = np.zeros(k, bool)
+
+    def step(self, f: np.ndarray, active: np.ndarray, rows: int) -> np.ndarray:
+        """The step to apply for the active columns (f: their plain steps)."""
+        if self.started[active].all() and self.df:
+            self.df.append(np.zeros_like(self.prev_f))
+            self.dy.append(np.zeros_like(self.prev_f))
+            self.df[-1][:, active] = f - self.prev_f[:, active]
+            self.dy[-1][:, active] = self.prev_s[:, active]
+        elif self.started[active].all():
+            self.df = [np.zeros_like(self.prev_f)]
+            self.dy = [np.zeros_like(self.prev_f)]
+            self.df[0][:, active] = f - self.prev_f[:, active]
+            self.dy[0][:, active] = self.prev_s[:, active]
+        self.df, self.dy = self.df[-self.depth:], self.dy[-self.depth:]
+        s = f
+        if self.df and self.started[active].all():
+            D = np.stack([d[:rows, active] for d in self.df])  # (m, rows, ka)
+            G = np.einsum("pdj,qdj->jpq", D, D)
+            b = np.einsum("pdj,dj->jp", D, f[:rows])
+            reg = 1e-10 * np.maximum(np.trace(G, axis1=1, axis2=2), 1e-300)
+            G = G + reg[:, None, None] * np.eye(len(self.df))[None]
+            try:
+                gamma = np.linalg.solve(G, b[..., None])[..., 0]  # (ka, m)
+            except np.linalg.LinAlgError:
+                gamma = np.zeros((active.size, len(self.df)))
+            mix = sum((self.dy[p][:, active] + self.df[p][:, active]) * gamma[:, p]
+                      for p in range(len(self.df)))
+            s = f - mix
+            wild = np.abs(s[:rows]).max(axis=0) > 10 * np.abs(f[:rows]).max(axis=0) + 1e-12
+            s[:, wild] = f[:, wild]
+        self.prev_f[:, active] = f
+        self.prev_s[:, active] = s
+        self.started[active] = True
+        return s
 
 
 def _apply(layout: StateLayout, vm: np.ndarray, va: np.ndarray, dx: np.ndarray):
