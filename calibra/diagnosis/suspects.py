@@ -45,6 +45,7 @@ def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.nd
                   probe_status: np.ndarray, device_of: np.ndarray, threshold: float,
                   max_points: int = 32, probe_starts: list | None = None) -> list[int]:
     """Points to set aside this round (see the module docstring)."""
+    stat = np.nan_to_num(np.asarray(stat, float), nan=0.0, posinf=1e12)
     analysis = analyse_residuals(estimator, rep.estimate) if rep is not None else None
     corr: dict[int, np.ndarray] = {}
 
