@@ -13,6 +13,7 @@ from calibra.estimation.model import MeasurementModel
 from calibra.estimation.site_estimate import topology_per_snapshot
 from calibra.estimation.week import estimate_period
 from calibra.estimation.wls import Estimator
+from calibra.model.availability import availability_lines
 from calibra.progress import terminal_progress
 
 
@@ -34,6 +35,8 @@ def run(args: argparse.Namespace) -> int:
     if snaps.empty:
         print("result: no snapshots in the period")
         return EXIT_UNUSABLE
+    for line in availability_lines(site):
+        print(line)
     model = MeasurementModel.from_points(site.network, site.points)
     z = model.to_per_unit(snaps.reindex(columns=model.tags).to_numpy(float))
     t0 = time.perf_counter()

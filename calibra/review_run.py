@@ -16,6 +16,7 @@ import pandas as pd
 from calibra.diagnosis.findings import findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.ledger import Ledger, apply_corrections
+from calibra.model.availability import availability_lines
 from calibra.model.site import Site
 from calibra.progress import Progress
 from calibra.reports import (
@@ -135,6 +136,7 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
         f"snapshots: {s['snapshots']:,}, estimated {s['converged']:,}; "
         f"not fully observable {s['not_observable']:,}",
     ]
+    lines += availability_lines(site)
     first = s["rounds"][0] if s["rounds"] else None
     if first:
         lines.append(f"chi-square failures with every point in: {first['chi2_failed']} of "

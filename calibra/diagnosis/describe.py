@@ -67,6 +67,8 @@ def _evidence(kind: str, d: PointDiagnosis, z: np.ndarray, y: np.ndarray, unit: 
                 f"{_fmt(extra['loss'], unit, False)}) rather than its own quantity "
                 f"(median difference {_fmt(d.loss_healthy, unit, False)}); {n} snapshots")
     if kind == "unverifiable":
+        if extra.get("reason"):
+            return extra["reason"]
         sugg = extra.get("suggestion")
         more = (f"; a meter on {sugg} would make it checkable" if sugg else
                 "; no single nearby meter would make it checkable")

@@ -186,6 +186,16 @@ def review_site(
         for i in np.flatnonzero(rep.critical):
             tag = str(ev.model.tags[i])
             unverifiable[tag] = suggest_meter(site, ev, i)
+    for tag, d in diagnoses.items():
+        if d.kind == "insufficient" and tag not in unverifiable:
+            i = ev.model.tags.get_loc(tag)
+            measured = int(np.isfinite(ev.measured[:, i]).sum())
+            need = st.classify.min_snapshots
+            why = (f"too little data to judge: {measured:,} snapshots with a value "
+                   f"(at least {need:,} needed)" if measured < need else
+                   "the network checks it too weakly to judge (its implied value is too "
+                   "uncertain)")
+            unverifiable[tag] = {"suggestion": "", "reason": why}
     findings = build_findings(site, ev, diagnoses, mismaps, unverifiable)
     outcomes = ev.period.outcomes
     conv = outcomes["converged"].astype(bool)

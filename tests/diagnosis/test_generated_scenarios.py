@@ -65,3 +65,20 @@ def _offset_for(sim, tag: str) -> float:
     """An offset of eight times the point's accuracy-class limit."""
     pts = sim.site.points
     return 8 * float(pts.at[tag, "accuracy_pct"]) / 100 * float(pts.at[tag, "full_scale"])
+
+
+def test_points_with_too_little_data_say_so():
+    """A point with only 60 values in the period is not judged: it is reported unverifiable
+    with the reason, instead of a guess (common practice, no source)."""
+    from dataclasses import replace
+
+    sim = generated_scenario("case57", 31, periods=576, faults=False)
+    pts = sim.site.points
+    tag = pts.index[pts["quantity"] == "p_flow"][5]
+    snaps = sim.site.snapshots.copy()
+    snaps.iloc[60:, snaps.columns.get_loc(tag)] = float("nan")
+    result = review_site(replace(sim.site, snapshots=snaps))
+    table = findings_table(result.findings).set_index("tag")
+    assert table.at[tag, "finding"] == "unverifiable"
+    assert "too little data" in table.at[tag, "evidence"]
+    assert (table["finding"] == "unverifiable").all()  # nothing else flagged on clean data
