@@ -25,7 +25,7 @@ import pandas as pd
 
 from calibra.diagnosis.suspects import pick_suspects
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.residuals import CRITICAL_S, analyse_residuals
+from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_residuals
 from calibra.estimation.site_estimate import topology_per_snapshot
 from calibra.estimation.week import PeriodResult, estimate_period
 from calibra.estimation.wls import Estimator, SnapshotEstimate
@@ -57,7 +57,12 @@ class Representative:
     critical: np.ndarray
     sigma_implied: np.ndarray  # σ of the implied value per point, in the point's unit
     position: int
-    covariance: np.ndarray = field(repr=False, default_factory=lambda: np.zeros((0, 0)))
+    analysis: ResidualAnalysis | None = field(repr=False, default=None)
+
+    @property
+    def covariance(self) -> np.ndarray:
+        """The state covariance P of the representative estimate."""
+        return self.analysis.state_covariance if self.analysis is not None else np.zeros((0, 0))
 
 
 @dataclass
@@ -119,10 +124,9 @@ def _representative(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
         if others.size and a.state_covariance.size:
             H = model.functions.jacobian(est.vm, est.va, est.layout, est.in_service)[others]
             H = H.toarray()
-            var = np.einsum("ij,jk,ik->i", H, a.state_covariance, H)
+            var = np.sum((H @ a.state_covariance) * H, axis=1)
             sig_y[others] = np.sqrt(np.maximum(var, 0.0))
-        return Representative(est, s, a.critical, sig_y / model.to_pu, int(pos),
-                              a.state_covariance)
+        return Representative(est, s, a.critical, sig_y / model.to_pu, int(pos), a)
     return None
 
 

@@ -57,7 +57,7 @@ def suggest_meter(site: Site, ev, i: int) -> dict:
     sig_j2 = np.full(len(cands), sig_i2)  # assume a meter of the same class
     ph = P @ hi
     cross = Hj @ ph
-    var_j = np.einsum("ij,jk,ik->i", Hj, P, Hj)
+    var_j = np.sum((Hj @ P) * Hj, axis=1)
     s_new = cross ** 2 / (sig_i2 * (sig_j2 + var_j))
     j = int(np.argmax(s_new))
     if s_new[j] < MIN_USEFUL_S:

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from calibra.estimation.residuals import analyse_residuals, residual_correlation
+from calibra.estimation.residuals import residual_correlation
 from calibra.estimation.wls import Estimator
 
 #: Candidates of one cluster tried by elimination (strongest first).
@@ -46,7 +46,7 @@ def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.nd
                   max_points: int = 32, probe_starts: list | None = None) -> list[int]:
     """Points to set aside this round (see the module docstring)."""
     stat = np.nan_to_num(np.asarray(stat, float), nan=0.0, posinf=1e12)
-    analysis = analyse_residuals(estimator, rep.estimate) if rep is not None else None
+    analysis = rep.analysis if rep is not None else None
     corr: dict[int, np.ndarray] = {}
 
     def corr_row(i: int) -> np.ndarray | None:
