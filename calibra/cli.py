@@ -191,6 +191,13 @@ COMMANDS: list[Command] = [
         _lazy("calibra.cli_review", "add_arguments"),
         _lazy("calibra.cli_review", "run"),
     ),
+    Command(
+        "open",
+        "open a site in the desktop application (with no command at all: the last site used, "
+        "else the bundled sample site)",
+        _lazy("calibra.gui.launch", "add_arguments"),
+        _lazy("calibra.gui.launch", "run"),
+    ),
 ]
 
 
@@ -210,7 +217,10 @@ def build_parser(commands: Sequence[Command] | None = None) -> argparse.Argument
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Run the command line; returns the exit code."""
+    """Run the command line; returns the exit code. From the shell, ``calibra`` with no
+    arguments opens the desktop application."""
+    if argv is None and len(sys.argv) <= 1:
+        argv = ["open"]
     parser = build_parser()
     try:
         args = parser.parse_args(argv)
