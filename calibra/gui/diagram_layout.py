@@ -139,7 +139,7 @@ def _branch_lines(br: pd.DataFrame, pos_of: dict[str, int]) -> list[BranchLine]:
         a, b = pos_of[row["from_bus"]], pos_of[row["to_bus"]]
         pairs.setdefault((min(a, b), max(a, b)), []).append(str(branch))
     in_service = br["in_service"] if "in_service" in br.columns else pd.Series(True, br.index)
-    for (a, b), ids in pairs.items():
+    for ids in pairs.values():
         for j, branch in enumerate(ids):
             row = br.loc[branch]
             lines.append(BranchLine(branch, pos_of[row["from_bus"]], pos_of[row["to_bus"]],
@@ -165,7 +165,8 @@ def _meters(site: Site, diagram: Diagram, lines: dict[str, BranchLine]) -> list[
     pos_of = {b: i for i, b in enumerate(diagram.buses)}
     net = site.network
     marks: dict[tuple, MeterMark] = {}
-    for tag, pt in pts.iterrows():
+    drawn = pts["element"].astype(str).isin(set(lines) | set(pos_of))
+    for tag, pt in pts[drawn].iterrows():
         q = str(pt["quantity"])
         element, end = str(pt["element"]), str(pt.get("end", "") or "")
         if q in _BRANCH_END and element in lines and end in ("from", "to"):

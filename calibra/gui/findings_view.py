@@ -48,8 +48,11 @@ class FindingFilter:
         return keep
 
 
+LATE_START = pd.Timedelta(hours=6)  #: a substation reporting this much later than the rest is new
+
+
 def commissioning_substations(points: pd.DataFrame, snapshots: pd.DataFrame | None = None,
-                              late_after: pd.Timedelta = pd.Timedelta(hours=6)) -> list[str]:
+                              late_after: pd.Timedelta = LATE_START) -> list[str]:
     """Substations under commissioning: those with a point whose note says so; when no note
     does, the substation whose points started reporting last, if that was more than
     ``late_after`` after the others (the newest one)."""
@@ -83,12 +86,14 @@ class FindingsView:
         self.focus = list(focus or [])  #: substations to offer as the "new substation" focus
         self._review: pd.DataFrame | None = None
         self._ledger = pd.DataFrame(columns=LIST_COLUMNS)
+        self._table: pd.DataFrame | None = None
         self.filter = FindingFilter()
 
     # ---- data ---------------------------------------------------------------------------
     def set_review(self, findings: pd.DataFrame | None) -> None:
         """The findings table of the latest review (``ReviewRun.findings``)."""
         self._review = None if findings is None else findings.copy()
+        self._table = None
 
     def set_ledger(self, ledger_findings: pd.DataFrame) -> None:
         """The ledger's findings (``Ledger.findings()``, indexed by finding id)."""
@@ -96,6 +101,7 @@ class FindingsView:
         if "finding_id" not in frame.columns:
             frame = frame.rename(columns={"index": "finding_id"})
         self._ledger = frame
+        self._table = None
 
     @property
     def has_review(self) -> bool:
@@ -104,6 +110,11 @@ class FindingsView:
     def table(self) -> pd.DataFrame:
         """Every finding the list can show: this review's (``in_review`` True) with the ledger
         state, then ledger findings it did not find again (``in_review`` False)."""
+        if self._table is None:
+            self._table = self._merged()
+        return self._table
+
+    def _merged(self) -> pd.DataFrame:
         states = dict(zip(self._ledger.get("finding_id", []), self._ledger.get("state", []),
                           strict=True))
         if self._review is None:

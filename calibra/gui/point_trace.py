@@ -17,7 +17,7 @@ from calibra.diagnosis.review import ReviewResult
 from calibra.model.site import Site
 
 _BRANCH_QUANTITIES = ("p_flow", "q_flow", "i_magnitude", "branch_status")
-MAX_SCATTER = 4000  #: scatter points drawn at most (an even subsample beyond)
+MAX_SCATTER = 3000  #: scatter points drawn at most (an even subsample beyond)
 
 
 @dataclass

@@ -26,7 +26,7 @@ from calibra.gui.diagram_layout import Diagram, lane_offset, substation_diagram
 from calibra.gui.qt_style import COLOURS, SUBSTATION_FILLS
 from calibra.model.site import Site
 
-SCALE = 520.0  #: scene units per unit-box unit
+SCALE = 340.0  #: scene units per unit-box unit
 METER = 9.0
 
 

@@ -89,11 +89,11 @@ class FindingsPanel(QWidget):
         self.tree.setSelectionMode(QAbstractItemView.SingleSelection)
         self.tree.setEditTriggers(QAbstractItemView.NoEditTriggers)
         self.tree.setUniformRowHeights(True)
+        self.tree.setIndentation(12)
         self.tree.setSortingEnabled(True)
         self.tree.header().setSortIndicator(-1, Qt.AscendingOrder)
         self.tree.header().setStretchLastSection(False)
-        self.tree.header().setSectionResizeMode(0, QHeaderView.Stretch)
-        for col in range(1, len(COLUMNS)):
+        for col in range(len(COLUMNS)):
             self.tree.header().setSectionResizeMode(col, QHeaderView.ResizeToContents)
 
         grid = QGridLayout()

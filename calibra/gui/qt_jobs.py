@@ -95,11 +95,19 @@ class JobRunner(QObject):
         if self._worker is not None:
             self._worker.progress.cancel()
 
-    def wait(self, ms: int = 60000) -> bool:
-        """Block until the worker thread has ended (used when the window closes)."""
-        if self._thread is None:
+    def shutdown(self, ms: int = 60000) -> bool:
+        """Cancel the job and block until its thread has ended (when the window closes);
+        nothing is relayed afterwards."""
+        thread, worker = self._thread, self._worker
+        if thread is None or worker is None:
             return True
-        return self._thread.wait(ms)
+        for signal in (worker.progressed, worker.succeeded, worker.failed, worker.stopped):
+            signal.disconnect()
+        worker.progress.cancel()
+        thread.quit()  # the event loop ends once the job function has returned
+        ended = thread.wait(ms)
+        self._thread = self._worker = None
+        return ended
 
     # ---- relayed in the GUI thread ------------------------------------------------------
     @Slot(int, int, str)

@@ -23,14 +23,26 @@ from PySide6.QtWidgets import QLabel, QSizePolicy, QSplitter, QVBoxLayout, QWidg
 from calibra.gui.point_trace import PointTrace
 from calibra.gui.qt_style import COLOURS
 
-STRIP_ROWS = ("no value", "branch open", "not estimated")
+STRIP_ROWS = ("no value", "branch open", "no estimate")
 STRIP_KEYS = ("missing", "open", "unestimated")
+AXIS_WIDTH = 86  #: left axes share one width so the time plots line up
+
+
+def mask_runs(x: np.ndarray, mask: np.ndarray) -> np.ndarray:
+    """Start and end x of every run of True in ``mask``, flattened (s0, e0, s1, e1, …); a
+    run of one snapshot spans half a step either side so it stays visible."""
+    if not mask.any():
+        return np.array([])
+    edges = np.diff(np.r_[0, mask.astype(np.int8), 0])
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1
+    half = 0.5 * float(np.median(np.diff(x))) if x.size > 1 else 30.0
+    return np.column_stack([x[starts] - half, x[stops] + half]).ravel()
 
 
 def _plot(parent: QWidget, date_axis: bool = True, **labels) -> pg.PlotWidget:
     axes = {"bottom": pg.DateAxisItem(utcOffset=0)} if date_axis else {}
     w = pg.PlotWidget(parent, axisItems=axes, background=COLOURS["plot_bg"])
-    w.showGrid(x=True, y=True, alpha=0.18)
+    w.showGrid(x=False, y=False)
     for side, text in labels.items():
         w.setLabel(side, text)
     w.getPlotItem().getViewBox().setMouseMode(pg.ViewBox.PanMode)
@@ -60,30 +72,34 @@ class PlotPanel(QWidget):
         self.series = _plot(self, left="value")
         self.series.addLegend(offset=(8, 4), labelTextSize="8pt")
         self.strip = _plot(self)
-        self.strip.setFixedHeight(74)
+        self.strip.setFixedHeight(96)
         self.strip.setMouseEnabled(x=True, y=False)
         self.strip.getAxis("left").setTicks([[(i, t) for i, t in enumerate(STRIP_ROWS)]])
-        self.strip.setYRange(-0.6, len(STRIP_ROWS) - 0.4, padding=0)
+        self.strip.setYRange(-0.7, len(STRIP_ROWS) + 0.1, padding=0)
         self.strip.getAxis("bottom").setStyle(showValues=False)
         self.residual = _plot(self, left="measured − implied")
         self.residual.addLegend(offset=(8, 4), labelTextSize="8pt")
         self.scatter = _plot(self, date_axis=False, left="measured", bottom="implied")
-        for p in (self.strip, self.residual):
-            p.setXLink(self.series)
+        # The strip sits right under the series and shares its width: a plain link lines
+        # them up. The residual plot is narrower, so its range follows by value instead.
+        self.strip.setXLink(self.series)
+        self._syncing = False
+        self.series.sigXRangeChanged.connect(self._on_series_range)
+        self.residual.sigXRangeChanged.connect(self._on_residual_range)
         for p in (self.series, self.strip, self.residual, self.scatter):
-            p.getAxis("left").setWidth(62)
+            p.getAxis("left").setWidth(AXIS_WIDTH)
 
         c = COLOURS
         self.curves: dict[str, pg.GraphicsObject] = {
             "raw": _curve(self.series, c["raw"], 1.0, "as received", Qt.DotLine),
-            "implied": _curve(self.series, c["implied"], 1.4, "network implies"),
-            "measured": _curve(self.series, c["measured"], 1.4, "measured"),
-            "residual": _curve(self.residual, c["measured"], 1.1, "residual"),
-            "model": _curve(self.residual, c["model"], 2.0, "fitted error"),
+            "implied": _curve(self.series, c["implied"], 1.0, "network implies"),
+            "measured": _curve(self.series, c["measured"], 1.0, "measured"),
+            "residual": _curve(self.residual, c["measured"], 1.0, "residual"),
+            "model": _curve(self.residual, c["model_wide"], 4.0, "fitted error"),
         }
+        self.curves["model"].setZValue(-1)  # under the residual it explains
         for key in STRIP_KEYS:
-            item = _curve(self.strip, c[f"strip_{key}"], 7.0)
-            item.setDownsampling(auto=False)
+            item = self.strip.plot([], [], pen=pg.mkPen(c[f"strip_{key}"], width=7))
             self.curves[f"strip_{key}"] = item
         band = pg.LinearRegionItem((0, 0), orientation="horizontal", movable=False,
                                    brush=pg.mkBrush(c["band"]), pen=pg.mkPen(c["band_edge"]))
@@ -106,8 +122,7 @@ class PlotPanel(QWidget):
         lower = QSplitter(Qt.Horizontal, self)
         lower.addWidget(self.residual)
         lower.addWidget(self.scatter)
-        lower.setStretchFactor(0, 3)
-        lower.setStretchFactor(1, 2)
+        lower.setSizes([460, 300])
         top = QWidget(self)
         top_layout = QVBoxLayout(top)
         top_layout.setContentsMargins(0, 0, 0, 0)
@@ -117,8 +132,7 @@ class PlotPanel(QWidget):
         split = QSplitter(Qt.Vertical, self)
         split.addWidget(top)
         split.addWidget(lower)
-        split.setStretchFactor(0, 3)
-        split.setStretchFactor(1, 2)
+        split.setSizes([540, 340])
         layout = QVBoxLayout(self)
         layout.setContentsMargins(4, 4, 4, 4)
         layout.addWidget(self.title)
@@ -151,7 +165,9 @@ class PlotPanel(QWidget):
                                      np.array([]) if model is None else model)
         masks = (trace.missing, trace.out_of_service, trace.not_estimated)
         for row, (key, mask) in enumerate(zip(STRIP_KEYS, masks, strict=True)):
-            self.curves[f"strip_{key}"].setData(x, np.where(mask, float(row), np.nan))
+            xs = mask_runs(x, mask)
+            self.curves[f"strip_{key}"].setData(xs, np.full(xs.size, float(row)),
+                                                connect="pairs")
         band = trace.band if math.isfinite(trace.band) else 0.0
         self.band.setRegion((-band, band))
         self.curves["scatter"].setData(*trace.scatter())
@@ -164,6 +180,21 @@ class PlotPanel(QWidget):
         self._legend_model(trace.model_label)
         for p in (self.series, self.residual, self.scatter):
             p.enableAutoRange()
+
+    def _on_series_range(self, _view, span) -> None:
+        self._follow(self.residual, span)
+
+    def _on_residual_range(self, _view, span) -> None:
+        self._follow(self.series, span)
+
+    def _follow(self, plot: pg.PlotWidget, span) -> None:
+        if self._syncing:
+            return
+        self._syncing = True
+        try:
+            plot.setXRange(*span, padding=0)
+        finally:
+            self._syncing = False
 
     def _legend_model(self, label: str) -> None:
         legend = self.residual.getPlotItem().legend

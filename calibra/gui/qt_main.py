@@ -1,0 +1,427 @@
+"""The main window: findings on the left, the selected point's week in the middle, where it
+sits and what is known about it on the right; loading and reviews run in a worker thread."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+from PySide6.QtCore import Qt
+from PySide6.QtGui import QAction, QCloseEvent, QKeySequence
+from PySide6.QtWidgets import (
+    QFileDialog,
+    QInputDialog,
+    QLabel,
+    QMainWindow,
+    QMessageBox,
+    QProgressBar,
+    QPushButton,
+    QSplitter,
+    QWidget,
+)
+
+import calibra
+from calibra.app_settings import (
+    RecentSites,
+    SettingsError,
+    SiteSettings,
+    load_site_settings,
+    save_site_settings,
+    settings_path,
+)
+from calibra.gui.findings_view import FindingsView, commissioning_substations
+from calibra.gui.point_trace import point_trace
+from calibra.gui.qt_details import DetailTabs
+from calibra.gui.qt_diagram import DiagramPanel
+from calibra.gui.qt_dialogs import ABOUT_HTML, ProblemsDialog, Prompts, SettingsDialog
+from calibra.gui.qt_findings import FindingsPanel
+from calibra.gui.qt_jobs import JobRunner
+from calibra.gui.qt_plots import PlotPanel
+from calibra.gui.qt_point_actions import PointActions
+from calibra.gui.qt_style import app_icon
+from calibra.gui.run_compare import RunFigures, run_figures
+from calibra.io import load_site
+from calibra.ledger import Ledger
+from calibra.model.site import Site, SiteLoadError
+from calibra.review_run import ReviewRun, run_review
+
+
+class MainWindow(QMainWindow):
+    """calibra's main window. ``review_on_open`` starts a review once a site is loaded."""
+
+    def __init__(self, recent: RecentSites | None = None, review_on_open: bool = True):
+        super().__init__()
+        self.setWindowTitle("calibra")
+        self.setWindowIcon(app_icon())
+        self.resize(1560, 920)
+        self.recent = recent or RecentSites()
+        self.review_on_open = review_on_open
+        self.site: Site | None = None
+        self.ledger: Ledger | None = None
+        self.settings = SiteSettings()
+        self.run: ReviewRun | None = None
+        self.figures: list[RunFigures] = []
+        self.current_finding: str | None = None
+        self.current_tag: str | None = None
+        self.prompts = Prompts(self)
+        self.dialogs: list[QWidget] = []  # non-modal dialogs kept alive
+        self.view = FindingsView()
+        self.jobs = JobRunner(self)
+        self._build()
+        self.jobs.progressed.connect(self._on_job_progress)
+        self.jobs.finished.connect(self._on_job_finished)
+        self.jobs.failed.connect(self._on_job_failed)
+        self.jobs.cancelled.connect(self._on_job_cancelled)
+        self.jobs.idle.connect(self._on_job_idle)
+        self._show_busy(False)
+        self.show_point(None, None)
+
+    # ---- layout -------------------------------------------------------------------------
+    def _build(self) -> None:
+        self.findings = FindingsPanel(self.view, self)
+        self.plots = PlotPanel(self)
+        self.diagram = DiagramPanel(self)
+        self.details = DetailTabs(self)
+        right = QSplitter(Qt.Vertical, self)
+        right.addWidget(self.diagram)
+        right.addWidget(self.details)
+        right.setSizes([380, 480])
+        main = QSplitter(Qt.Horizontal, self)
+        main.addWidget(self.findings)
+        main.addWidget(self.plots)
+        main.addWidget(right)
+        main.setSizes([470, 690, 400])
+        main.setStretchFactor(1, 1)
+        self.setCentralWidget(main)
+        self.message = QLabel("", self)
+        self.progress = QProgressBar(self)
+        self.progress.setMaximumWidth(260)
+        self.progress.setTextVisible(True)
+        self.cancel_button = QPushButton("Cancel", self)
+        self.cancel_button.clicked.connect(self.cancel_job)
+        bar = self.statusBar()
+        bar.addWidget(self.message, 1)
+        bar.addPermanentWidget(self.progress)
+        bar.addPermanentWidget(self.cancel_button)
+        self.findings.findingSelected.connect(self._on_finding_selected)
+        self.diagram.view.meterClicked.connect(self._on_meter_clicked)
+        self.point_actions = PointActions(self)
+        self._build_menus()
+
+    def _action(self, text: str, handler, shortcut=None, tip: str = "") -> QAction:
+        action = QAction(text, self)
+        if shortcut is not None:
+            action.setShortcut(QKeySequence(shortcut))
+        action.setStatusTip(tip)
+        action.triggered.connect(lambda _=False: handler())
+        return action
+
+    def _build_menus(self) -> None:
+        a = self.point_actions.actions
+        self.open_action = self._action("Open site…", self._on_open_clicked, QKeySequence.Open,
+                                        "Open a site folder")
+        self.review_action = self._action("Run review", self.start_review, "F5",
+                                          "Review the period with the ledger's corrections")
+        self.settings_action = self._action("Review settings…", self._on_settings_clicked,
+                                            "Ctrl+,", "Thresholds saved with the site")
+        self.orders_action = self._action("Work orders…", self._on_work_orders_clicked,
+                                          QKeySequence.Print, "Field checklists per substation")
+        self.goto_action = self._action("Go to point…", self._on_goto_clicked, "Ctrl+G",
+                                        "Show any point of the site")
+        menu = self.menuBar()
+        site_menu = menu.addMenu("&Site")
+        site_menu.addAction(self.open_action)
+        self.recent_menu = site_menu.addMenu("Recent sites")
+        site_menu.addSeparator()
+        site_menu.addAction(self._action("Quit", self.close, QKeySequence.Quit))
+        review = menu.addMenu("&Review")
+        for action in (self.review_action, self.settings_action, self.orders_action):
+            review.addAction(action)
+        point = menu.addMenu("&Point")
+        point.addAction(self.goto_action)
+        for name in ("next", "previous", None, "confirm", "reversed", "scale", "offset",
+                     "repaired", "dismiss", "note", None, "undo"):
+            point.addSeparator() if name is None else point.addAction(a[name])
+        help_menu = menu.addMenu("&Help")
+        help_menu.addAction(self._action("Keyboard shortcuts", self._on_shortcuts_clicked))
+        help_menu.addAction(self._action("About calibra", self._on_about_clicked))
+        tools = self.addToolBar("Main")
+        tools.setObjectName("mainToolbar")
+        tools.setMovable(False)
+        for action in (self.open_action, self.review_action, None, a["previous"], a["next"],
+                       None, a["confirm"], a["reversed"], a["scale"], a["repaired"],
+                       a["dismiss"], a["note"], a["undo"], None, self.orders_action):
+            tools.addSeparator() if action is None else tools.addAction(action)
+        self._fill_recent()
+
+    def _fill_recent(self) -> None:
+        self.recent_menu.clear()
+        folders = self.recent.folders()
+        for folder in folders:
+            self.recent_menu.addAction(self._action(str(folder),
+                                                    lambda f=folder: self.open_site(f)))
+        self.recent_menu.setEnabled(bool(folders))
+
+    # ---- messages and progress ----------------------------------------------------------
+    def say(self, text: str, warn: bool = False) -> None:
+        """A message in the status bar (and a non-blocking box for warnings)."""
+        self.message.setText(text)
+        if warn:
+            box = QMessageBox(QMessageBox.Warning, "calibra", text, QMessageBox.Ok, self)
+            box.setModal(False)
+            box.show()
+            self._keep(box)
+
+    def _keep(self, widget: QWidget) -> None:
+        self.dialogs = [d for d in self.dialogs if d.isVisible()] + [widget]
+
+    def _show_busy(self, busy: bool) -> None:
+        self.progress.setVisible(busy)
+        self.cancel_button.setVisible(busy)
+        self.cancel_button.setEnabled(busy)
+        for action in (self.open_action, self.review_action, self.settings_action):
+            action.setEnabled(not busy)
+        self.review_action.setEnabled(not busy and self.site is not None)
+        self.recent_menu.setEnabled(not busy and bool(self.recent.folders()))
+
+    def _on_job_progress(self, done: int, total: int, message: str) -> None:
+        self.progress.setRange(0, max(total, 1))
+        self.progress.setValue(min(done, max(total, 1)))
+        self.message.setText(f"{self.jobs.name}: {message}")
+
+    def cancel_job(self) -> None:
+        """Stop the running job at its next progress step."""
+        self.jobs.cancel()
+        self.cancel_button.setEnabled(False)
+        self.message.setText(f"{self.jobs.name}: stopping…")
+
+    def _on_job_idle(self) -> None:
+        self._show_busy(False)
+
+    def _on_job_cancelled(self, name: str) -> None:
+        self.say(f"{name} cancelled; nothing was changed.")
+
+    def _on_job_failed(self, name: str, exc: object) -> None:
+        if isinstance(exc, SiteLoadError):
+            dialog = ProblemsDialog("The site could not be loaded", exc.problems, self)
+            dialog.setModal(False)
+            dialog.show()
+            self._keep(dialog)
+            self.problems_dialog = dialog
+            self.say(f"Could not load the site: {len(exc.problems)} problem(s) listed.")
+            return
+        self.say(f"{name} failed: {exc}", warn=True)
+
+    def _on_job_finished(self, name: str, result: object) -> None:
+        if name == "loading":
+            self._apply_site(result)
+        elif name == "review":
+            self._apply_run(result)
+
+    # ---- site -------------------------------------------------------------------------
+    def _on_open_clicked(self) -> None:
+        start = str(self.site.path) if self.site is not None and self.site.path else ""
+        folder = QFileDialog.getExistingDirectory(self, "Open a site folder", start)
+        if folder:
+            self.open_site(Path(folder))
+
+    def open_site(self, folder: str | Path) -> None:
+        """Load a site folder in the background; problems are listed if it is not usable."""
+        if self.jobs.busy:
+            self.say("Wait for the running job to finish or cancel it.")
+            return
+        folder = Path(folder)
+        self.say(f"Loading {folder}…")
+        self.progress.setRange(0, 0)
+        self._show_busy(True)
+        self.jobs.start("loading", lambda progress: load_site(folder))
+
+    def _apply_site(self, site: Site) -> None:
+        if self.ledger is not None:
+            self.ledger.close()
+        self.site, self.run, self.figures = site, None, []
+        self.ledger = Ledger.for_site(site.path)
+        try:
+            self.settings = load_site_settings(site.path)
+        except SettingsError as exc:
+            self.settings = SiteSettings()
+            self.say(f"{exc}. Using the default settings until they are saved again.",
+                     warn=True)
+        focus = commissioning_substations(site.points, site.snapshots)
+        self.view = FindingsView(focus)
+        self.findings.view = self.view
+        self.view.set_ledger(self.ledger.findings())
+        self.findings.refresh_choices()
+        self.findings.refresh()
+        self.diagram.set_site(site, focus)
+        self.details.show_site(site)
+        self.details.show_runs(None, None)
+        self.show_point(None, None)
+        self.recent.add(site.path)
+        self._fill_recent()
+        self.setWindowTitle(f"calibra — {site.name}")
+        n = len(site.problems)
+        self.say(f"Loaded {site.name}" + (f" with {n} load warning(s) (see Site)" if n else ""))
+        self._show_busy(False)
+        if self.review_on_open:
+            self.start_review()
+
+    # ---- review -----------------------------------------------------------------------
+    def start_review(self) -> None:
+        """Run the review in the background with the site's settings and ledger."""
+        site = self.site
+        if site is None or self.jobs.busy:
+            return
+        settings = self.settings.review_settings()
+        folder = site.path
+
+        def job(progress):
+            with Ledger.for_site(folder) as ledger:  # this thread's own connection
+                return run_review(site, settings, ledger=ledger, progress=progress)
+
+        self.progress.setRange(0, 0)
+        self._show_busy(True)
+        self.say("review: starting…")
+        self.jobs.start("review", job)
+
+    def _apply_run(self, run: ReviewRun) -> None:
+        self.run = run
+        self.figures.append(run_figures(run))
+        self.view.set_review(run.findings)
+        self.view.set_ledger(self.ledger.findings())
+        self.findings.refresh_choices()
+        self.findings.refresh()
+        before = self.figures[-2] if len(self.figures) > 1 else None
+        self.details.show_runs(before, self.figures[-1])
+        s = run.result.summary
+        self.say(f"Review done in {run.seconds:.1f} s: {len(run.findings)} finding(s), "
+                 f"{s['chi2_failed']:,} chi-square failure(s) of {s['converged']:,} "
+                 f"estimated snapshots")
+        if self.current_tag is not None:
+            self.show_point(self.current_finding, self.current_tag)
+        else:
+            self.findings.step(1)
+
+    # ---- selection ----------------------------------------------------------------------
+    def _on_finding_selected(self, finding_id: str, tag: str) -> None:
+        self.show_point(finding_id, tag)
+
+    def _on_meter_clicked(self, tag: str) -> None:
+        table = self.view.table()
+        hits = table[table["tag"] == tag]
+        if len(hits) and self.findings.select(hits.iloc[0]["finding_id"]):
+            return
+        self.show_point(None, tag)
+
+    def _on_goto_clicked(self) -> None:
+        if self.site is None:
+            return
+        tags = sorted(self.site.points.index)
+        tag, ok = QInputDialog.getItem(self, "Go to point", "Point tag:", tags, 0, True)
+        if ok and tag in self.site.points.index:
+            self._on_meter_clicked(tag)
+
+    def show_point(self, finding_id: str | None, tag: str | None) -> None:
+        """Show one point everywhere: plots, diagram, details, history."""
+        self.current_finding, self.current_tag = finding_id, tag
+        site = self.site
+        row = self.view.row(finding_id) if finding_id else None
+        if site is None or tag is None:
+            self.plots.show_trace(None, "Select a finding in the list")
+            self.details.show_point(None, None, None)
+            self.details.show_history(None, "UTC")
+            self.diagram.show_point(None, set())
+            return
+        pt = site.points.loc[tag]
+        head = f"{tag} — {pt['quantity']} of {pt['element']}"
+        head += f" ({pt['end']} end)" if str(pt.get("end", "") or "") else ""
+        if row is not None:
+            head += f" — {row['finding']}, {row['state']}"
+        trace = point_trace(site, self.run.result, tag) if self.run is not None else None
+        if trace is None:
+            why = ("run the review to see its week" if self.run is None
+                   else "the review does not judge this point")
+            self.plots.show_trace(None, f"{head} — {why}")
+        else:
+            self.plots.show_trace(trace, head)
+        self.details.show_point(site, tag, row)
+        history = self.ledger.history(tag=tag) if self._tag_in_ledger(tag) else None
+        self.details.show_history(history, site.timezone)
+        self.diagram.show_point(tag, self.view.flagged_tags())
+
+    def _tag_in_ledger(self, tag: str) -> bool:
+        table = self.view.table()
+        return self.ledger is not None and bool((table["tag"] == tag).any())
+
+    def after_ledger_change(self, message: str) -> None:
+        """Refresh states, list and history after an action was written to the ledger."""
+        self.view.set_ledger(self.ledger.findings())
+        self.findings.refresh()
+        self.show_point(self.current_finding, self.current_tag)
+        self.say(message + " — written to the ledger; re-run the review (F5) to see the effect")
+
+    # ---- settings, work orders, help ----------------------------------------------------
+    def _on_settings_clicked(self) -> None:
+        if self.site is None:
+            self.say("Open a site first: settings are saved with the site.")
+            return
+        dialog = SettingsDialog(self.settings, str(settings_path(self.site.path)), self)
+        if dialog.exec():
+            self.save_settings(dialog.values())
+
+    def save_settings(self, settings: SiteSettings) -> None:
+        """Keep and save the site's review settings."""
+        try:
+            path = save_site_settings(self.site.path, settings)
+        except (SettingsError, OSError) as exc:
+            self.say(f"Settings not saved: {exc}", warn=True)
+            return
+        self.settings = settings
+        self.say(f"Settings saved to {path}; they apply from the next review.")
+
+    def work_order_findings(self) -> pd.DataFrame:
+        """The findings behind the work orders, with the ledger's current states."""
+        states = self.ledger.findings()["state"] if self.ledger is not None else pd.Series()
+        if self.run is not None:
+            table = self.run.findings.copy()
+            table["state"] = table["finding_id"].map(states).fillna(table["state"])
+            return table
+        if self.ledger is None:
+            return pd.DataFrame()
+        return self.ledger.findings().reset_index()
+
+    def work_orders_dialog(self):
+        """A work-order dialog for the current findings (not shown)."""
+        from calibra.gui.qt_work_orders import WorkOrdersDialog
+
+        period = None
+        if self.run is not None:
+            period = (self.run.result.period_start.tz_convert(self.site.timezone),
+                      self.run.result.period_end.tz_convert(self.site.timezone))
+        return WorkOrdersDialog(self.site, self.work_order_findings(), period, self)
+
+    def _on_work_orders_clicked(self) -> None:
+        if self.site is None:
+            self.say("Open a site first.")
+            return
+        self.work_orders_dialog().exec()
+
+    def _on_shortcuts_clicked(self) -> None:
+        rows = [(a.text().replace("&", ""), a.shortcut().toString())
+                for a in self.findChildren(QAction) if not a.shortcut().isEmpty()]
+        text = "".join(f"<tr><td>{t}</td><td><b>{k}</b></td></tr>" for t, k in sorted(rows))
+        QMessageBox.information(self, "Keyboard shortcuts", f"<table>{text}</table>")
+
+    def _on_about_clicked(self) -> None:
+        box = QMessageBox(self)
+        box.setWindowTitle("About calibra")
+        box.setIconPixmap(app_icon().pixmap(64, 64))
+        box.setText(ABOUT_HTML.format(version=calibra.__version__))
+        box.exec()
+
+    def closeEvent(self, event: QCloseEvent) -> None:  # noqa: N802 (Qt API)
+        self.jobs.shutdown()
+        if self.ledger is not None:
+            self.ledger.close()
+            self.ledger = None
+        super().closeEvent(event)
