@@ -10,7 +10,7 @@ import numpy as np
 
 from calibra.cli import EXIT_OK, EXIT_UNUSABLE, load_for_command, parse_period, period_arguments
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.site_estimate import topology_per_snapshot
+from calibra.estimation.site_estimate import checked_topology
 from calibra.estimation.week import estimate_period
 from calibra.estimation.wls import Estimator
 from calibra.model.availability import availability_lines
@@ -40,7 +40,10 @@ def run(args: argparse.Namespace) -> int:
     model = MeasurementModel.from_points(site.network, site.points)
     z = model.to_per_unit(snaps.reindex(columns=model.tags).to_numpy(float))
     t0 = time.perf_counter()
-    period = estimate_period(Estimator(model), z, topology_per_snapshot(site, snaps), snaps.index,
+    status, conflicts = checked_topology(site, snaps)
+    for conflict in conflicts:
+        print(f"status point contradicted: {conflict.describe(site.timezone)}")
+    period = estimate_period(Estimator(model), z, status, snaps.index,
                              confidence=args.confidence, progress=terminal_progress())
     elapsed = time.perf_counter() - t0
     out = period.outcomes

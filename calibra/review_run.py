@@ -137,6 +137,7 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
         f"not fully observable {s['not_observable']:,}",
     ]
     lines += availability_lines(site)
+    lines += [f"status point contradicted: {c}" for c in s.get("status_conflicts", [])]
     first = s["rounds"][0] if s["rounds"] else None
     if first:
         lines.append(f"chi-square failures with every point in: {first['chi2_failed']} of "

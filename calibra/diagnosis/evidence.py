@@ -26,7 +26,7 @@ import pandas as pd
 from calibra.diagnosis.suspects import pick_suspects
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_residuals
-from calibra.estimation.site_estimate import topology_per_snapshot
+from calibra.estimation.site_estimate import StatusConflict, checked_topology
 from calibra.estimation.week import PeriodResult, estimate_period
 from calibra.estimation.wls import Estimator, SnapshotEstimate
 from calibra.model.site import Site
@@ -79,6 +79,7 @@ class WeekEvidence:
     in_service: np.ndarray
     representative: Representative | None
     rounds: list[dict] = field(default_factory=list)
+    status_conflicts: list[StatusConflict] = field(default_factory=list)
 
     @property
     def tags(self) -> pd.Index:
@@ -158,7 +159,7 @@ def gather_evidence(
     estimator = Estimator(model)
     values = snaps.reindex(columns=model.tags).to_numpy(float)
     z = model.to_per_unit(values)
-    in_service = topology_per_snapshot(site, snaps)
+    in_service, conflicts = checked_topology(site, snaps)
     k, m = z.shape
     base = np.isfinite(z).any(axis=0)
     set_aside = np.zeros(m, bool) if initial_set_aside is None else initial_set_aside.copy()
@@ -205,7 +206,7 @@ def gather_evidence(
         index=snaps.index, model=model, measured=values.astype(np.float32),
         implied=implied, normalized=_normalized(period).astype(np.float32),
         set_aside=set_aside, period=period, in_service=in_service, representative=rep,
-        rounds=rounds,
+        rounds=rounds, status_conflicts=conflicts,
     )
 
 

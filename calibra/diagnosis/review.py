@@ -207,6 +207,7 @@ def review_site(
         "points": int(len(analog_points(site.points))),
         "set_aside": int(ev.set_aside.sum()),
         "findings": len(findings),
+        "status_conflicts": [c.describe(site.timezone) for c in ev.status_conflicts],
         "rounds": ev.rounds,
     }
     return ReviewResult(site.name, snaps.index[0], snaps.index[-1], ev, diagnoses, findings,

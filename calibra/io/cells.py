@@ -1,13 +1,15 @@
-"""Checking and converting the cells of a small table column by column (vectorised).
+"""Checking and converting the cells of a small table column by column.
 
 Each function returns a Series aligned with the table's records and logs one error per bad
 cell, located by the table's file, the record's spreadsheet row and the column name. A column
 that is missing from the file (already reported by the header check) gives the default.
+The work is done on numpy arrays of text: these tables are small, and per-call pandas string
+overhead would dominate.
 """
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 
 import numpy as np
 import pandas as pd
@@ -18,37 +20,56 @@ from calibra.io.text_files import RawTable
 TRUE_WORDS = ("true", "yes", "1")
 FALSE_WORDS = ("false", "no", "0")
 
+#: A fixed message, or a function of the bad cell's text (called only for bad cells).
+Message = str | Callable[[str], str]
 
-def _report(t: RawTable, column: str, mask, messages, log: ProblemLog) -> None:
-    """Log an error for each record where ``mask`` holds; ``messages`` is a str or a Series."""
-    for i in np.flatnonzero(np.asarray(mask, dtype=bool)):
-        text = messages if isinstance(messages, str) else messages.iloc[i]
+
+def _report(t: RawTable, column: str, mask: np.ndarray, message: Message, log: ProblemLog) -> None:
+    """Log an error for each record where ``mask`` holds."""
+    cells = t.cells(column)
+    for i in np.flatnonzero(mask):
+        text = message if isinstance(message, str) else message(cells[i])
         log.error(t.file, int(t.rows[i]), column, text)
 
 
-def _cells(t: RawTable, column: str) -> pd.Series | None:
-    return t.data[column] if column in t.data.columns else None
+def _words(cells: np.ndarray) -> np.ndarray:
+    return np.array([c.lower() for c in cells], dtype=object)
+
+
+def _text_series(values: np.ndarray) -> pd.Series:
+    return pd.Series(values, dtype=str)
 
 
 def text_cells(t: RawTable, column: str, log: ProblemLog, *, required: bool) -> pd.Series:
     """Stripped text; an empty cell is an error when ``required``."""
-    s = _cells(t, column)
-    if s is None:
-        return pd.Series([""] * len(t.rows), dtype=str)
-    if required:
-        _report(t, column, s.eq(""), "empty; a value is required", log)
-    return s.astype(str)
+    cells = t.cells(column)
+    if required and t.has(column):
+        _report(t, column, cells == "", "empty; a value is required", log)
+    return _text_series(cells)
 
 
 def id_cells(t: RawTable, column: str, log: ProblemLog, what: str) -> pd.Series:
     """Identifiers: required, and unique within the table (later duplicates are errors)."""
-    s = text_cells(t, column, log, required=True)
-    dup = s.duplicated(keep="first") & s.ne("")
-    if dup.any():
-        first_row = pd.Series(t.rows, index=s.index).groupby(s).transform("first")
-        msgs = f"duplicate {what} '" + s + "' (first at row " + first_row.astype(str) + ")"
-        _report(t, column, dup, msgs, log)
-    return s
+    ids = text_cells(t, column, log, required=True)
+    first_row: dict[str, int] = {}
+    duplicate = np.zeros(len(t.rows), dtype=bool)
+    for i, value in enumerate(t.cells(column)):
+        if value == "":
+            continue
+        if value in first_row:
+            duplicate[i] = True
+        else:
+            first_row[value] = int(t.rows[i])
+    _report(t, column, duplicate,
+            lambda v: f"duplicate {what} '{v}' (first at row {first_row[v]})", log)
+    return ids
+
+
+def _parse_numbers(cells: np.ndarray, decimal: str) -> np.ndarray:
+    """Floats of the cells (NaN where a cell is not a number; 'nan' text gives NaN too)."""
+    text = cells if decimal == "." else np.array([c.replace(",", ".") for c in cells],
+                                                 dtype=object)
+    return pd.to_numeric(text, errors="coerce").astype(float)
 
 
 def number_cells(
@@ -62,39 +83,40 @@ def number_cells(
 ) -> pd.Series:
     """Finite floats. Empty cells are errors when ``required``, else ``default``;
     text, NaN and infinity are errors; ``positive`` demands values greater than zero."""
-    s = _cells(t, column)
-    if s is None:
+    if not t.has(column):
         return pd.Series(np.full(len(t.rows), default, dtype=float))
-    text = s.str.replace(",", ".", regex=False) if t.dialect.decimal == "," else s
-    num = pd.to_numeric(text, errors="coerce").astype(float)
-    empty = s.eq("")
-    not_number = ~empty & num.isna() & ~s.str.lower().str.lstrip("+-").eq("nan")
+    cells = t.cells(column)
+    num = np.asarray(_parse_numbers(cells, t.dialect.decimal), dtype=float)
+    empty = cells == ""
+    nan_word = np.array([c.lower().lstrip("+-") == "nan" for c in cells], dtype=bool)
+    not_number = ~empty & np.isnan(num) & ~nan_word
     not_finite = ~empty & ~not_number & ~np.isfinite(num)
-    _report(t, column, not_number, "'" + s + "' is not a number", log)
-    _report(t, column, not_finite, "'" + s + "' is not a finite number", log)
+    _report(t, column, not_number, lambda v: f"'{v}' is not a number", log)
+    _report(t, column, not_finite, lambda v: f"'{v}' is not a finite number", log)
     if required:
         _report(t, column, empty, "empty; a number is required", log)
     if positive:
         bad = np.isfinite(num) & (num <= 0)
-        _report(t, column, bad, "must be greater than zero, not " + s, log)
-    num = num.where(np.isfinite(num), np.nan)
-    return num.where(~empty, default)
+        _report(t, column, bad, lambda v: f"must be greater than zero, not {v}", log)
+    num = np.where(np.isfinite(num), num, np.nan)
+    return pd.Series(np.where(empty, default, num), dtype=float)
 
 
 def bool_cells(t: RawTable, column: str, log: ProblemLog, *, default: bool | None) -> pd.Series:
     """true/false, yes/no, 1/0 (any case). Empty cells give ``default``; when that is None
     an empty cell is an error."""
-    s = _cells(t, column)
-    if s is None:
+    if not t.has(column):
         return pd.Series(np.full(len(t.rows), bool(default)), dtype=bool)
-    low = s.str.lower()
-    is_true = low.isin(TRUE_WORDS)
-    empty = s.eq("")
-    bad = ~empty & ~is_true & ~low.isin(FALSE_WORDS)
-    _report(t, column, bad, "'" + s + "' is not true/false (also accepted: yes/no, 1/0)", log)
+    cells = t.cells(column)
+    low = _words(cells)
+    is_true = np.isin(low, TRUE_WORDS)
+    empty = cells == ""
+    bad = ~empty & ~is_true & ~np.isin(low, FALSE_WORDS)
+    _report(t, column, bad,
+            lambda v: f"'{v}' is not true/false (also accepted: yes/no, 1/0)", log)
     if default is None:
         _report(t, column, empty, "empty; true or false is required", log)
-    return (is_true | (empty & bool(default))).astype(bool)
+    return pd.Series(is_true | (empty & bool(default)), dtype=bool)
 
 
 def choice_cells(
@@ -108,14 +130,14 @@ def choice_cells(
 ) -> pd.Series:
     """One of ``choices`` (keys lower-case, values the canonical spelling), any case.
     Unknown words are errors and give ""."""
-    s = _cells(t, column)
-    if s is None:
-        return pd.Series([""] * len(t.rows), dtype=str)
-    canon = s.str.lower().map(dict(choices))
-    empty = s.eq("")
-    bad = ~empty & canon.isna()
+    if not t.has(column):
+        return _text_series(np.full(len(t.rows), "", dtype=object))
+    cells = t.cells(column)
+    canon = np.array([choices.get(c.lower(), "") for c in cells], dtype=object)
+    empty = cells == ""
+    bad = ~empty & (canon == "")
     listing = ", ".join(dict.fromkeys(choices.values()))
-    _report(t, column, bad, "'" + s + f"' is not a {what} (one of {listing})", log)
+    _report(t, column, bad, lambda v: f"'{v}' is not a {what} (one of {listing})", log)
     if required:
         _report(t, column, empty, f"empty; a {what} is required ({listing})", log)
-    return canon.fillna("").astype(str)
+    return _text_series(canon)

@@ -56,7 +56,7 @@ def read_points(
     for column in ("full_scale", "accuracy_pct"):
         if not t.has(column):
             continue
-        for i in np.flatnonzero(analog & quantity.ne("") & t.data[column].eq("")):
+        for i in np.flatnonzero(analog & quantity.ne("") & (t.cells(column) == "")):
             log.error(
                 t.file, int(t.rows[i]), column,
                 f"empty; a positive number is required for {quantity.iloc[i]}",
@@ -106,12 +106,13 @@ def _ratio_cells(t: RawTable, column: str, log: ProblemLog) -> pd.Series:
 
 def _check_meaning(t: RawTable, points: pd.DataFrame, log: ProblemLog) -> None:
     """Branch end and unit against what the quantity allows."""
+    raw_ends = t.cells("end")
     for i, (q, unit) in enumerate(zip(points["quantity"], points["unit"], strict=True)):
         if q == "":
             continue
         spec = QUANTITIES[q]
         row = int(t.rows[i])
-        raw_end = t.data["end"].iloc[i] if t.has("end") else ""
+        raw_end = raw_ends[i]
         if spec["end"] and raw_end == "":
             log.error(t.file, row, "end", f"empty; {q} needs the branch end: from or to")
         elif not spec["end"] and raw_end != "":

@@ -14,7 +14,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from calibra.io.problems import ProblemLog
 
@@ -92,18 +91,23 @@ def read_csv_text(path: Path, rel: str, log: ProblemLog) -> tuple[str, Dialect] 
 class RawTable:
     """A CSV table read as stripped text.
 
-    ``data`` has one str column per named header column (lower-cased; a required column that
-    is missing from the file is absent here too); ``rows`` holds the spreadsheet row number of
-    each record.
+    ``columns`` maps each named header column (lower-cased; a required column that is missing
+    from the file is absent here too) to its cells, a numpy array of ``str``; ``rows`` holds
+    the spreadsheet row number of each record.
     """
 
     file: str
-    data: pd.DataFrame
+    columns: dict[str, np.ndarray]
     rows: np.ndarray
     dialect: Dialect
 
     def has(self, column: str) -> bool:
-        return column in self.data.columns
+        return column in self.columns
+
+    def cells(self, column: str) -> np.ndarray:
+        """The cells of ``column``; empty text for every record when the column is absent."""
+        found = self.columns.get(column)
+        return found if found is not None else np.full(len(self.rows), "", dtype=object)
 
 
 def read_small_table(
@@ -147,12 +151,12 @@ def read_small_table(
     if not values:
         log.error(rel, None, None, "the table has a header but no data rows")
         return None
-    data = pd.DataFrame(values, columns=range(width), dtype=str)
+    data = np.array(values, dtype=object).reshape(len(values), width)
     keep: dict[int, str] = {}
     seen: dict[str, int] = {}
     for pos, name in enumerate(header):
         if name == "":
-            if data[pos].ne("").any():
+            if (data[:, pos] != "").any():
                 log.error(rel, 1, None, f"column {pos + 1} has values but no name in the header")
         elif name in seen:
             log.error(rel, 1, name, f"column appears twice (columns {seen[name]} and {pos + 1})")
@@ -167,5 +171,5 @@ def read_small_table(
         if name not in known:
             log.warning(rel, 1, name, "unknown column; ignored")
             keep = {p: n for p, n in keep.items() if n != name}
-    data = data[list(keep)].set_axis(list(keep.values()), axis=1)
-    return RawTable(rel, data, np.asarray(rows, dtype=int), dialect)
+    columns = {name: data[:, pos] for pos, name in keep.items()}
+    return RawTable(rel, columns, np.asarray(rows, dtype=int), dialect)
