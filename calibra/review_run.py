@@ -56,8 +56,10 @@ def run_review(
     end: pd.Timestamp | None = None,
     ledger: Ledger | None = None,
     progress: Progress | None = None,
+    engine=None,
 ) -> ReviewRun:
-    """Review ``site`` between ``start`` and ``end`` with the ledger's software corrections."""
+    """Review ``site`` between ``start`` and ``end`` with the ledger's software corrections
+    (``engine``: where the estimates run; default this machine)."""
     st = settings or ReviewSettings()
     t0 = time.perf_counter()
     snaps = site.snapshots.loc[start:end]
@@ -67,7 +69,7 @@ def run_review(
     if ledger is not None:
         corrections = ledger.active_corrections((snaps.index[0], snaps.index[-1]))
         snaps = apply_corrections(snaps, corrections, missing="ignore")
-    result = review_site(site, st, snaps, progress)
+    result = review_site(site, st, snaps, progress, engine)
     table = findings_table(result.findings)
     review_id = None
     if ledger is not None:

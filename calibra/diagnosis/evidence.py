@@ -24,10 +24,11 @@ import numpy as np
 import pandas as pd
 
 from calibra.diagnosis.suspects import pick_suspects
+from calibra.estimation.engine import LocalEngine, PeriodEngine
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_residuals
 from calibra.estimation.site_estimate import StatusConflict, checked_topology
-from calibra.estimation.week import PeriodResult, estimate_period
+from calibra.estimation.week import PeriodResult
 from calibra.estimation.wls import Estimator, SnapshotEstimate
 from calibra.model.site import Site
 from calibra.progress import Progress
@@ -146,12 +147,14 @@ def gather_evidence(
     progress: Progress | None = None,
     initial_set_aside: np.ndarray | None = None,
     screen: bool = True,
+    engine: PeriodEngine | None = None,
 ) -> WeekEvidence:
     """Build the week evidence for every analog point of ``site``.
 
     ``snapshots`` (default: the site's) are the values to review, already corrected for any
     software corrections in force. ``initial_set_aside`` marks points to leave out from the
-    start; ``screen=False`` skips the screening rounds.
+    start; ``screen=False`` skips the screening rounds. ``engine`` estimates the period
+    (default: :class:`~calibra.estimation.engine.LocalEngine` on this machine).
     """
     st = settings or EvidenceSettings()
     snaps = site.snapshots if snapshots is None else snapshots
@@ -167,14 +170,14 @@ def gather_evidence(
     step = max(1, st.screening_step)
     sub = np.arange(0, k, step)
     z_sub, ins_sub = z[sub], in_service[sub]
+    engine = engine or LocalEngine(estimator, z, in_service, snaps.index)
     probe = np.unique(np.linspace(0, len(sub) - 1, min(st.probe_snapshots, len(sub))).astype(int))
     device_of = _device_index(site, model)
     for rnd in range(st.max_rounds if screen else 0):
         if progress is not None:
             progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
-        zr = np.where(set_aside[None, :], np.nan, z_sub)
-        period = estimate_period(estimator, zr, ins_sub, max_block=max(60, st.max_block // step),
-                                 confidence=st.confidence, tolerance=st.screening_tolerance)
+        period = engine.estimate(sub, set_aside, max(60, st.max_block // step),
+                                 st.screening_tolerance, st.confidence)
         stat = _quantile_over_snapshots(_normalized(period), st.screening_quantile)
         cand = np.flatnonzero((stat > st.normalized_threshold) & ~set_aside)
         rounds.append({
@@ -198,8 +201,7 @@ def gather_evidence(
 
     if progress is not None:
         progress.update(st.max_rounds, st.max_rounds + 2, "estimating the full period")
-    zf = np.where(set_aside[None, :], np.nan, z)
-    period = estimate_period(estimator, zf, in_service, snaps.index, st.max_block, st.confidence)
+    period = engine.estimate(np.arange(k), set_aside, st.max_block, 1e-8, st.confidence)
     implied = _implied_values(model, z, period, set_aside, in_service, st.min_sensitivity)
     rep = _representative(estimator, z, in_service, set_aside, st.confidence)
     return WeekEvidence(

@@ -163,11 +163,13 @@ def review_site(
     settings: ReviewSettings | None = None,
     snapshots: pd.DataFrame | None = None,
     progress: Progress | None = None,
+    engine=None,
 ) -> ReviewResult:
-    """Review a period of a site (``snapshots``: the values to review, corrections applied)."""
+    """Review a period of a site (``snapshots``: the values to review, corrections applied;
+    ``engine``: where the estimates run, see :mod:`calibra.estimation.engine`)."""
     st = settings or ReviewSettings()
     snaps = site.snapshots if snapshots is None else snapshots
-    ev = gather_evidence(site, st.evidence, snaps, progress)
+    ev = gather_evidence(site, st.evidence, snaps, progress, engine=engine)
     diagnoses = _classify_all(site, ev, st.classify)
     for _ in range(st.max_passes - 1):
         faulty = np.array([diagnoses[str(t)].kind not in ("healthy", "insufficient")
@@ -176,7 +178,8 @@ def review_site(
         if not extra.any():
             break
         ev = gather_evidence(site, st.evidence, snaps, progress,
-                             initial_set_aside=ev.set_aside | extra, screen=False)
+                             initial_set_aside=ev.set_aside | extra, screen=False,
+                             engine=engine)
         diagnoses = _classify_all(site, ev, st.classify)
     _propagate_device(site, ev, diagnoses)
     mismaps = _mismapped(site, ev, diagnoses)

@@ -432,12 +432,20 @@ class PeriodResult:
     outcomes: pd.DataFrame
 
 
-def topology_runs(in_service: np.ndarray, max_block: int) -> list[tuple[int, int]]:
-    """Split snapshot positions into runs of one topology, each at most ``max_block`` long."""
+def topology_runs(in_service: np.ndarray, max_block: int,
+                  index: pd.Index | None = None) -> list[tuple[int, int]]:
+    """Split snapshot positions into runs of one topology, each at most ``max_block`` long.
+
+    With a DatetimeIndex, runs also break at every UTC day, so that a period cut into days
+    (a cluster works day by day) is solved in exactly the same blocks as the whole period.
+    """
     k = in_service.shape[0]
     if k == 0:
         return []
     change = np.r_[True, np.any(in_service[1:] != in_service[:-1], axis=1)]
+    if isinstance(index, pd.DatetimeIndex) and len(index) == k:
+        day = index.normalize().asi8
+        change |= np.r_[True, day[1:] != day[:-1]]
     starts = np.flatnonzero(change)
     ends = np.r_[starts[1:], k]
     runs = []
@@ -501,7 +509,7 @@ def estimate_period(
     va = np.full((k, n), np.nan, np.float32)
     res = np.full((k, m), np.nan, np.float32)
     om = np.full((k, m), np.nan, np.float32)
-    runs = topology_runs(in_service, max_block)
+    runs = topology_runs(in_service, max_block, index)
     frames: dict[int, pd.DataFrame] = {}
     _WORK.update(estimator=estimator, z=z, in_service=in_service, tolerance=tolerance,
                  confidence=confidence)
