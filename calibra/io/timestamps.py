@@ -14,6 +14,27 @@ import pandas as pd
 from calibra.io.problems import ProblemLog
 
 _OFFSET = r"\d:\d\d(?::\d\d(?:[.,]\d+)?)?\s*(?:Z|z|[+-]\d\d(?::?\d\d)?)$"
+#: Years that a nanosecond time (what the snapshot index holds) can represent in full.
+FIRST_YEAR, LAST_YEAR = 1678, 2261
+OUT_OF_RANGE = (f"time outside the years {FIRST_YEAR}-{LAST_YEAR} that calibra handles; "
+                "row skipped")
+
+
+def _in_range(times: pd.DatetimeIndex) -> np.ndarray:
+    """True where a time is missing or within the representable years (any unit)."""
+    years = np.asarray(times.year, dtype=float)
+    return np.isnan(years) | ((years >= FIRST_YEAR) & (years <= LAST_YEAR))
+
+
+def _nanoseconds(
+    times: pd.DatetimeIndex, rows: np.ndarray, file: str, log: ProblemLog
+) -> pd.DatetimeIndex:
+    """``times`` in nanoseconds; times out of that range become NaT, logged per row."""
+    ok = _in_range(times)
+    if not ok.all():
+        log.per_row(file, rows[~ok], "timestamp", OUT_OF_RANGE)
+        times = times.where(ok)
+    return times.as_unit("ns")
 
 
 def parse_times(
@@ -25,9 +46,10 @@ def parse_times(
     ``rows`` the spreadsheet row number of each. Empty cells give NaT without a message.
     """
     if isinstance(values.dtype, pd.DatetimeTZDtype):
-        return pd.DatetimeIndex(values).tz_convert("UTC").as_unit("ns")
+        return _nanoseconds(pd.DatetimeIndex(values), rows, file, log).tz_convert("UTC")
     if pd.api.types.is_datetime64_dtype(values.dtype):
-        return _localize(pd.DatetimeIndex(values).as_unit("ns"), rows, timezone, file, log)
+        local = _nanoseconds(pd.DatetimeIndex(values), rows, file, log)
+        return _localize(local, rows, timezone, file, log)
     text = values.astype(str).str.strip().where(values.notna(), "").reset_index(drop=True)
     empty = text.eq("").to_numpy()
     aware = text.str.contains(_OFFSET, regex=True).to_numpy() & ~empty
@@ -37,14 +59,14 @@ def parse_times(
     if aware.any():
         parsed = pd.DatetimeIndex(
             pd.to_datetime(text[aware], format="ISO8601", utc=True, errors="coerce")
-        ).as_unit("ns")
+        )
         unparsed[aware] = np.asarray(parsed.isna())
+        parsed = _nanoseconds(parsed, rows[aware], file, log)
         result[aware] = parsed.tz_localize(None).to_numpy()
     if naive.any():
-        parsed = pd.DatetimeIndex(
-            pd.to_datetime(text[naive], format="ISO8601", errors="coerce")
-        ).as_unit("ns")
+        parsed = pd.DatetimeIndex(pd.to_datetime(text[naive], format="ISO8601", errors="coerce"))
         unparsed[naive] = np.asarray(parsed.isna())
+        parsed = _nanoseconds(parsed, rows[naive], file, log)
         result[naive] = _localize(parsed, rows[naive], timezone, file, log).tz_localize(None)
         if aware.any():
             log.warning(

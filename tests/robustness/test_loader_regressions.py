@@ -1,0 +1,38 @@
+"""Loader bugs the property-based tests found, each pinned by a plain example."""
+
+from __future__ import annotations
+
+import pandas as pd
+
+from calibra.io import load_site
+from tests.io.site_builder import find
+
+WEEK = "snapshots/week.csv"
+
+
+def test_time_outside_the_nanosecond_range_is_skipped_not_a_crash(files, tmp_path):
+    # '-1' reads as ISO 8601 year -1 and 9999 is a valid year; neither fits the snapshot index
+    # (pandas nanosecond times span 1677-09-21 to 2262-04-11, pandas documentation).
+    table = files.snapshots["week.csv"]
+    table.set(3, "timestamp", "-1")
+    table.set(4, "timestamp", "9999-12-31T23:59:00+00:00")
+    site = load_site(files.write(tmp_path))
+    for row in (3, 4):
+        p = find(site.problems, WEEK, row, "timestamp", "warning")
+        assert "outside the years 1678-2261" in p.message
+    assert list(site.snapshots.index) == [pd.Timestamp("2024-03-04 09:00", tz="UTC"),
+                                          pd.Timestamp("2024-03-04 09:03", tz="UTC")]
+
+
+def test_parquet_time_outside_the_nanosecond_range(files, tmp_path):
+    files.snapshots = {}
+    root = files.write(tmp_path)
+    stamps = pd.array([pd.Timestamp("2024-03-04 10:00"), pd.Timestamp("2024-03-04 10:01")],
+                      dtype="datetime64[us]")
+    frame = pd.DataFrame({"timestamp": stamps, "FNH.V": [133.1, 133.2]})
+    frame.loc[1, "timestamp"] = pd.Timestamp("3000-01-01").as_unit("us")
+    frame.to_parquet(root / "snapshots/week.parquet")
+    site = load_site(root)
+    p = find(site.problems, "snapshots/week.parquet", 3, "timestamp", "warning")
+    assert "outside the years" in p.message
+    assert len(site.snapshots) == 1
