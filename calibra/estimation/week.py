@@ -294,7 +294,7 @@ class BlockSolver:
                 dx = sol[:nx]
                 if nc:
                     lam[:, active] += sol[nx:]
-                vm[:, active], va[:, active] = _apply(layout, vma, vaa, dx)
+                vm[:, active], va[:, active] = layout.apply_step(vma, vaa, dx)
                 iters[active] += 1
                 finished = step < self.tolerance
                 bad = ~np.isfinite(step) | (step > 10.0)
@@ -408,16 +408,6 @@ class _Anderson:
         self.prev_s[:, active] = s
         self.started[active] = True
         return s
-
-
-def _apply(layout: StateLayout, vm: np.ndarray, va: np.ndarray, dx: np.ndarray):
-    vm = vm.copy()
-    va = va.copy()
-    a = layout.angle_column >= 0
-    va[a] += dx[layout.angle_column[a]]
-    mcol = layout.magnitude_column >= 0
-    vm[mcol] += dx[layout.magnitude_column[mcol]]
-    return vm, va
 
 
 @dataclass
