@@ -241,12 +241,12 @@ class MainWindow(QMainWindow):
             self.ledger.close()
         self.site, self.run, self.figures = site, None, []
         self.ledger = Ledger.for_site(site.path)
+        settings_problem = ""
         try:
             self.settings = load_site_settings(site.path)
         except SettingsError as exc:
             self.settings = SiteSettings()
-            self.say(f"{exc}. Using the default settings until they are saved again.",
-                     warn=True)
+            settings_problem = f"{exc}. Using the default settings until they are saved again."
         focus = commissioning_substations(site.points, site.snapshots)
         self.view = FindingsView(focus)
         self.findings.view = self.view
@@ -262,6 +262,8 @@ class MainWindow(QMainWindow):
         self.setWindowTitle(f"calibra — {site.name}")
         n = len(site.problems)
         self.say(f"Loaded {site.name}" + (f" with {n} load warning(s) (see Site)" if n else ""))
+        if settings_problem:
+            self.say(settings_problem, warn=True)
         self._show_busy(False)
         if self.review_on_open:
             self.start_review()
