@@ -123,7 +123,7 @@ class DetailTabs(QTabWidget):
         self.history = _Table(["when", "who", "action", "finding", "details", "undone"], self)
         self.site_text = QTextBrowser(self)
         self.problems = _Table(PROBLEM_HEADERS, self)
-        site_page = QWidget(self)
+        site_page = self.site_page = QWidget(self)
         lay = QVBoxLayout(site_page)
         lay.setContentsMargins(2, 2, 2, 2)
         lay.addWidget(self.site_text, 2)

@@ -9,6 +9,7 @@ connection and is emitted again from the GUI thread. Cancelling calls
 
 from __future__ import annotations
 
+import gc
 import traceback
 from collections.abc import Callable
 from typing import Any
@@ -78,6 +79,13 @@ class JobRunner(QObject):
         if self.busy:
             raise RuntimeError(f"'{self.name}' is still running")
         self.name = name
+        # Python collects garbage in whichever thread allocates. A collection in the worker
+        # would destroy the window's discarded Qt objects from the wrong thread (Qt warns
+        # "Timers cannot be started from another thread" and may crash). So nothing is
+        # collected while a job runs; the GUI thread collects once it has ended.
+        self._gc_was_enabled = gc.isenabled()
+        gc.collect()
+        gc.disable()
         thread = QThread()
         thread.setObjectName(f"calibra-{name}")
         worker = _Worker(fn)
@@ -107,6 +115,7 @@ class JobRunner(QObject):
         thread.quit()  # the event loop ends once the job function has returned
         ended = thread.wait(ms)
         self._thread = self._worker = None
+        self._restore_gc()
         return ended
 
     # ---- relayed in the GUI thread ------------------------------------------------------
@@ -139,4 +148,10 @@ class JobRunner(QObject):
             thread.quit()
             thread.wait()  # the thread has ended: the worker can go with it
         self._thread = self._worker = None
+        self._restore_gc()
         return self.name
+
+    def _restore_gc(self) -> None:
+        if getattr(self, "_gc_was_enabled", False):
+            gc.enable()
+            gc.collect()

@@ -255,6 +255,7 @@ class MainWindow(QMainWindow):
         self.findings.refresh()
         self.diagram.set_site(site, focus)
         self.details.show_site(site)
+        self.details.setCurrentWidget(self.details.site_page)  # what was loaded, first
         self.details.show_runs(None, None)
         self.show_point(None, None)
         self.recent.add(site.path)
@@ -296,9 +297,17 @@ class MainWindow(QMainWindow):
         before = self.figures[-2] if len(self.figures) > 1 else None
         self.details.show_runs(before, self.figures[-1])
         s = run.result.summary
-        self.say(f"Review done in {run.seconds:.1f} s: {len(run.findings)} finding(s), "
-                 f"{s['chi2_failed']:,} chi-square failure(s) of {s['converged']:,} "
-                 f"estimated snapshots")
+        text = (f"Review done in {run.seconds:.1f} s: {len(run.findings)} finding(s), "
+                f"{s['chi2_failed']:,} chi-square failure(s) of {s['converged']:,} "
+                f"estimated snapshots")
+        if before is not None:
+            after = self.figures[-1]
+            text += (f" — before/after: chi-square failures with every point in "
+                     f"{before.chi2_failed_all_in} → {after.chi2_failed_all_in}, findings "
+                     f"{before.findings} → {after.findings} (see Reviews)")
+        self.say(text)
+        if self.details.currentWidget() is self.details.site_page:
+            self.details.setCurrentWidget(self.details.point)
         if self.current_tag is not None:
             self.show_point(self.current_finding, self.current_tag)
         else:

@@ -34,6 +34,11 @@ def test_review_correct_rerun(qtbot, window, site_folder):
     open_and_wait(qtbot, window, site_folder)
     assert window.site is not None and window.run is None
     assert "Small test grid" in window.windowTitle()
+    # What was loaded is shown first: counts, span, missing data (the site's own files:
+    # twelve hours of one-minute snapshots, 40 buses in the invented grid).
+    summary = window.details.site_text.toPlainText()
+    assert window.details.currentWidget() is window.details.site_page
+    assert "40 buses" in summary and "snapshots: 720" in summary and "missing" in summary
     review_and_wait(qtbot, window)
     first = window.run
     found = set(first.findings["finding_id"])
@@ -78,6 +83,7 @@ def test_review_correct_rerun(qtbot, window, site_folder):
     assert after < before
     assert window.figures[0].chi2_failed_all_in == before
     assert window.figures[1].chi2_failed_all_in == after
+    assert f"{before} → {after}" in window.message.text()  # before/after at a glance
     compare = window.details.compare
     assert compare.rowCount() > 0 and compare.item(0, 1).text().startswith(f"{before:,}")
 
