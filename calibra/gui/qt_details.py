@@ -54,8 +54,10 @@ def point_html(site: Site, tag: str, finding: pd.Series | None, timezone: str) -
     if finding is not None:
         state = str(finding.get("state", ""))
         colour = STATE_COLOURS.get(state, "#5a6169")
+        seen = "" if finding.get("in_review", True) else (
+            " · <i>not found by the latest review</i>")
         parts.append(f"<p style='margin:2px 0'><b>{escape(str(finding['finding']))}</b> · "
-                     f"<span style='color:{colour}'>{escape(state)}</span></p>"
+                     f"<span style='color:{colour}'>{escape(state)}</span>{seen}</p>"
                      f"<p style='margin:6px 0'>{escape(str(finding.get('evidence', '')))}</p>")
         values = []
         for key, label in _FINDING:
@@ -158,7 +160,8 @@ class DetailTabs(QTabWidget):
         for _, a in history.iloc[::-1].iterrows():
             when = pd.Timestamp(a["at"]).tz_convert(timezone)
             rows.append([f"{when:%Y-%m-%d %H:%M:%S}", str(a["user"]), str(a["action"]),
-                         str(a["finding_id"] or "(whole point)"),
+                         a["finding_id"] if isinstance(a["finding_id"], str)
+                         else "(whole point)",
                          _payload_text(a["payload"] or {}, timezone),
                          "" if pd.isna(a["undone_by"]) else "undone"])
         self.history.fill(rows)

@@ -46,6 +46,9 @@ def _plot(parent: QWidget, date_axis: bool = True, **labels) -> pg.PlotWidget:
     for side, text in labels.items():
         w.setLabel(side, text)
     w.getPlotItem().getViewBox().setMouseMode(pg.ViewBox.PanMode)
+    for side in ("left", "bottom"):
+        if not date_axis or side == "left":
+            w.getAxis(side).enableAutoSIPrefix(False)  # the unit is in the label
     return w
 
 
@@ -202,4 +205,4 @@ class PlotPanel(QWidget):
             return
         for sample, text in legend.items:
             if sample.item is self.curves["model"]:
-                text.setText(label or "fitted error")
+                text.setText(label or "no fault model")
