@@ -431,6 +431,8 @@ class MainWindow(QMainWindow):
         box.exec()
 
     def closeEvent(self, event: QCloseEvent) -> None:  # noqa: N802 (Qt API)
+        if self.jobs.busy:
+            self.hide()  # the job stops at its next progress step; do not look frozen meanwhile
         self.jobs.shutdown()
         if self.ledger is not None:
             self.ledger.close()

@@ -173,3 +173,13 @@ def test_keyboard_moves_through_findings(qtbot, window, site_folder):
     assert window.current_finding == ids[0]
     shortcuts = [a.shortcut().toString() for a in window.point_actions.actions.values()]
     assert len(set(shortcuts)) == len(shortcuts) and "" not in shortcuts
+
+
+def test_closing_during_a_review_stops_it(qtbot, window, site_folder):
+    open_and_wait(qtbot, window, site_folder)
+    with qtbot.waitSignal(window.jobs.progressed, timeout=30000):
+        window.start_review()
+    window.close()
+    assert not window.jobs.busy and window.ledger is None
+    with Ledger.for_site(site_folder) as ledger:
+        assert ledger.reviews().empty
