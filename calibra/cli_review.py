@@ -14,6 +14,7 @@ from calibra.cli import (
     parse_period,
     period_arguments,
 )
+from calibra.cluster import ClusterError, parse_cluster_address
 from calibra.diagnosis.review import ReviewSettings
 from calibra.ledger import Ledger, LedgerError
 from calibra.progress import terminal_progress
@@ -37,6 +38,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--no-ledger", action="store_true",
                         help="do not read or write the ledger (no corrections applied)")
     parser.add_argument("--no-pdf", action="store_true", help="skip the PDF work orders")
+    # Optional extra calibra[cluster]: estimate day by day on Dask workers (calibra/cluster/).
+    parser.add_argument("--cluster", metavar="ADDRESS", default=None,
+                        help="estimate on a Dask cluster: a scheduler address "
+                             "(tcp://HOST:PORT) or local:N for N worker processes here")
+    parser.add_argument("--worker-site", metavar="PATH", default=None,
+                        help="with --cluster: the site folder as the workers see it, a path or "
+                             "a URL such as s3://bucket/site (default: this folder's path)")
 
 
 def _settings(args: argparse.Namespace) -> ReviewSettings:
@@ -56,8 +64,32 @@ def _settings(args: argparse.Namespace) -> ReviewSettings:
     return st
 
 
+def _check_cluster_options(args: argparse.Namespace) -> None:
+    if args.cluster is None:
+        if args.worker_site is not None:
+            raise UsageError("--worker-site needs --cluster")
+        return
+    try:
+        parse_cluster_address(args.cluster)
+    except ValueError as exc:
+        raise UsageError(f"--cluster: {exc}") from None
+
+
+def _review(args: argparse.Namespace, site, settings, start, end, ledger):
+    """The review here, or on the cluster named by --cluster."""
+    progress = terminal_progress()
+    if args.cluster is None:
+        return run_review(site, settings, start, end, ledger, progress)
+    from calibra.cluster import cluster_client, review_on_cluster
+
+    with cluster_client(args.cluster) as client:
+        return review_on_cluster(client, site, settings, start, end, ledger, progress,
+                                 args.worker_site)
+
+
 def run(args: argparse.Namespace) -> int:
     settings = _settings(args)
+    _check_cluster_options(args)
     site = load_for_command(args.site)
     if site is None:
         return EXIT_UNUSABLE
@@ -72,9 +104,12 @@ def run(args: argparse.Namespace) -> int:
             return EXIT_UNUSABLE
     try:
         try:
-            review = run_review(site, settings, start, end, ledger, terminal_progress())
+            review = _review(args, site, settings, start, end, ledger)
         except ValueError as exc:
             print(f"result: {exc}")
+            return EXIT_UNUSABLE
+        except ClusterError as exc:  # no workers, a worker that reads other data, ...
+            print(f"cluster: {exc}")
             return EXIT_UNUSABLE
         files = write_outputs(review, site, out, pdf=not args.no_pdf)
     finally:
