@@ -132,6 +132,17 @@ def _representative(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
     return None
 
 
+class _Stage:
+    """Relays a stage's progress with the stage's name (and its cancel check)."""
+
+    def __init__(self, progress: Progress | None, name: str):
+        self.progress, self.name = progress, name
+
+    def update(self, done: int, total: int, message: str = "") -> None:
+        if self.progress is not None:
+            self.progress.update(done, total, self.name)
+
+
 def _device_index(site: Site, model: MeasurementModel) -> np.ndarray:
     """Device number of each power-flow/injection point (-1 for other quantities)."""
     pts = site.points.loc[model.tags]
@@ -177,7 +188,8 @@ def gather_evidence(
         if progress is not None:
             progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
         period = engine.estimate(sub, set_aside, max(60, st.max_block // step),
-                                 st.screening_tolerance, st.confidence)
+                                 st.screening_tolerance, st.confidence,
+                                 _Stage(progress, f"screening round {rnd + 1}"))
         stat = _quantile_over_snapshots(_normalized(period), st.screening_quantile)
         cand = np.flatnonzero((stat > st.normalized_threshold) & ~set_aside)
         rounds.append({
@@ -201,7 +213,8 @@ def gather_evidence(
 
     if progress is not None:
         progress.update(st.max_rounds, st.max_rounds + 2, "estimating the full period")
-    period = engine.estimate(np.arange(k), set_aside, st.max_block, 1e-8, st.confidence)
+    period = engine.estimate(np.arange(k), set_aside, st.max_block, 1e-8, st.confidence,
+                             _Stage(progress, "estimating the full period"))
     implied = _implied_values(model, z, period, set_aside, in_service, st.min_sensitivity)
     rep = _representative(estimator, z, in_service, set_aside, st.confidence)
     return WeekEvidence(
