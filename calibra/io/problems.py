@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import unicodedata
 from collections.abc import Iterable
 
 from calibra.model.site import LoadProblem
@@ -10,22 +11,44 @@ from calibra.model.site import LoadProblem
 ROW_LIMIT = 20
 
 
+def one_line(text: str) -> str:
+    """``text`` with line breaks and other control characters written as escapes
+    (``\\n``, ``\\x00``…), so that a problem always prints as one line."""
+    if text.isprintable():
+        return text
+    return "".join(
+        ch.encode("unicode_escape").decode("ascii")
+        if unicodedata.category(ch) in ("Cc", "Zl", "Zp") else ch
+        for ch in text
+    )
+
+
+def _problem(
+    file: str, row: int | None, column: str | None, message: str, severity: str, count: int
+) -> LoadProblem:
+    return LoadProblem(one_line(file), row, None if column is None else one_line(column),
+                       one_line(message), severity, int(count))
+
+
 class ProblemLog:
-    """An ordered list of :class:`LoadProblem` with helpers to add errors and warnings."""
+    """An ordered list of :class:`LoadProblem` with helpers to add errors and warnings.
+
+    Files, columns and messages are kept on one line (cell text may hold line breaks)."""
 
     def __init__(self) -> None:
         self.items: list[LoadProblem] = []
 
     def error(self, file: str, row: int | None, column: str | None, message: str) -> None:
-        self.items.append(LoadProblem(file, row, column, message, "error", 1))
+        self.items.append(_problem(file, row, column, message, "error", 1))
 
     def warning(
         self, file: str, row: int | None, column: str | None, message: str, count: int = 1
     ) -> None:
-        self.items.append(LoadProblem(file, row, column, message, "warning", int(count)))
+        self.items.append(_problem(file, row, column, message, "warning", count))
 
     def add(self, problem: LoadProblem) -> None:
-        self.items.append(problem)
+        self.items.append(_problem(problem.file, problem.row, problem.column, problem.message,
+                                   problem.severity, problem.count))
 
     def per_row(
         self,
@@ -39,16 +62,14 @@ class ProblemLog:
         """One problem per row up to ``limit``, then one more line counting the rest."""
         rows = [int(r) for r in rows]
         for r in rows[:limit]:
-            self.items.append(LoadProblem(file, r, column, message, severity, 1))
+            self.items.append(_problem(file, r, column, message, severity, 1))
         rest = rows[limit:]
         if rest:
-            self.items.append(
-                LoadProblem(
-                    file, rest[0], column,
-                    f"{message} (also in {len(rest)} more rows from this row on)",
-                    severity, len(rest),
-                )
-            )
+            self.items.append(_problem(
+                file, rest[0], column,
+                f"{message} (also in {len(rest)} more rows from this row on)",
+                severity, len(rest),
+            ))
 
     @property
     def has_errors(self) -> bool:

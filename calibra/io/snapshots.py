@@ -17,8 +17,18 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import pyarrow.parquet as pq
 
 from calibra.io.problems import ProblemLog
+from calibra.io.snapshot_period import (
+    FilePlan,
+    Period,
+    plan_csv,
+    plan_parquet,
+    read_csv_rows,
+    read_parquet_rows,
+)
+from calibra.io.snapshot_size import FileRows, estimate_rows, refuse_if_too_large
 from calibra.io.text_files import read_csv_text
 from calibra.io.timestamps import parse_times
 
@@ -58,16 +68,22 @@ def read_snapshots(
     log: ProblemLog,
     *,
     required: bool = True,
+    period: Period | None = None,
+    limit: int | None = None,
 ) -> pd.DataFrame | None:
     """All snapshot files as one frame: tz-aware UTC index ``timestamp``, one float64 column
     per point of ``points`` (all NaN when a point has no column), rows in time order.
 
     ``points`` may be None when the point list could not be read: every named column is then
     loaded. Files whose time ranges overlap are reported; a time that appears in several
-    files keeps the values of the file that starts first. Returns None when nothing usable
-    was found and snapshots are ``required`` (an error is logged).
+    files keeps the values of the file that starts first. ``period`` (UTC start, end; either
+    may be None) keeps only the snapshots in it, reading the files in chunks. A table larger
+    than ``limit`` bytes is refused before any value is read (see
+    :mod:`calibra.io.snapshot_size`). Returns None when nothing usable was found and
+    snapshots are ``required``, or when the table is refused (an error is logged).
     """
     files = snapshot_files(folder, log)
+    tags = points.index if points is not None else pd.Index([])
     if not files:
         if required:
             log.error(
@@ -76,21 +92,28 @@ def read_snapshots(
                 if (folder / SNAPSHOT_DIR).is_dir() else "folder not found",
             )
             return None
-        return empty_snapshots(points.index if points is not None else pd.Index([]))
+        return empty_snapshots(tags)
     quantities = points["quantity"] if points is not None else None
-    frames: list[tuple[str, pd.DataFrame]] = []
     errors_before = log.error_count()
-    for path in files:
-        rel = f"{SNAPSHOT_DIR}/{path.name}"
-        frame = _read_file(path, rel, quantities, timezone, log)
-        if frame is not None and len(frame):
-            frames.append((rel, frame))
+    if period is None:
+        sizes = [estimate_rows(path, _rel(path)) for path in files]
+        if refuse_if_too_large([s for s in sizes if s is not None], len(tags), limit, log):
+            return None
+        read = [(_rel(path), _read_file(path, _rel(path), quantities, timezone, log))
+                for path in files]
+    else:
+        read = _read_period(files, quantities, len(tags), timezone, period, limit, log)
+        if read is None:
+            return None
+    frames = [(rel, frame) for rel, frame in read if frame is not None and len(frame)]
     if not frames:
-        if required:
+        if required and period is None:
             if log.error_count() == errors_before:
                 log.error(SNAPSHOT_DIR, None, None, "no snapshot rows could be read")
             return None
-        return empty_snapshots(points.index if points is not None else pd.Index([]))
+        if period is not None:
+            log.warning(SNAPSHOT_DIR, None, None, f"no snapshots {_describe(period)}")
+        return empty_snapshots(tags)
     frames.sort(key=lambda item: item[1].index[0])
     _report_overlaps(frames, log)
     merged = pd.concat([f for _, f in frames], axis=0, sort=False)
@@ -98,10 +121,49 @@ def read_snapshots(
         order = np.argsort(merged.index.asi8, kind="stable")
         merged = merged.iloc[order]
         merged = merged[~merged.index.duplicated(keep="first")]
-    tags = points.index if points is not None else merged.columns
-    merged = merged.reindex(columns=pd.Index(tags, dtype=str)).astype(np.float64)
+    columns = tags if points is not None else merged.columns
+    merged = merged.reindex(columns=pd.Index(columns, dtype=str)).astype(np.float64)
     merged.index.name = "timestamp"
     return merged
+
+
+def _rel(path: Path) -> str:
+    return f"{SNAPSHOT_DIR}/{path.name}"
+
+
+def _read_period(
+    files: list[Path], quantities: pd.Series | None, points: int, timezone: str,
+    period: Period, limit: int | None, log: ProblemLog,
+) -> list[tuple[str, pd.DataFrame | None]] | None:
+    """The files' rows in ``period``: times first, the size check, then the kept rows."""
+    plans: list[FilePlan] = []
+    for path in files:
+        planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
+        plan = planner(path, _rel(path), timezone, period, log)
+        if plan is not None:
+            plans.append(plan)
+    kept = [FileRows(p.rel, p.in_period, True) for p in plans]
+    if refuse_if_too_large(kept, points, limit, log, period=_describe(period)):
+        return None
+    read = []
+    for plan in plans:
+        if plan.path.name.lower().endswith(".parquet"):
+            table = read_parquet_rows(plan)
+        else:
+            table = read_csv_rows(plan, log)
+        frame = None
+        if table is not None and len(table) and _first_is_timestamp(plan.names, plan.rel, log):
+            positions = table.index.to_numpy()
+            table = table.reset_index(drop=True)
+            frame = _frame(table, plan.names, positions + 2, plan.times[positions],
+                           quantities, plan.rel, log)
+        read.append((plan.rel, frame))
+    return read
+
+
+def _describe(period: Period) -> str:
+    start, end = (f"{t:%Y-%m-%d %H:%M} UTC" if t is not None else None for t in period)
+    return f"from {start or 'the start'} to {end or 'the end'}"
 
 
 def _report_overlaps(frames: list[tuple[str, pd.DataFrame]], log: ProblemLog) -> None:
@@ -136,12 +198,27 @@ def _read_file(
         log.warning(rel, None, None, "the file has a header but no data rows")
         return None
     names = [str(c).strip() for c in table.columns]
-    if names[0].lower() != "timestamp":
-        log.error(rel, 1, names[0], "the first column must be 'timestamp'")
+    if not _first_is_timestamp(names, rel, log):
         return None
     rows = np.arange(2, table.shape[0] + 2)
-    keep = _value_columns(table, names, quantities, rel, log)
     times = parse_times(table.iloc[:, 0], rows, timezone, file=rel, log=log)
+    return _frame(table, names, rows, times, quantities, rel, log)
+
+
+def _first_is_timestamp(names: list[str], rel: str, log: ProblemLog) -> bool:
+    if names[0].lower() != "timestamp":
+        log.error(rel, 1, names[0], "the first column must be 'timestamp'")
+        return False
+    return True
+
+
+def _frame(
+    table: pd.DataFrame, names: list[str], rows: np.ndarray, times: pd.DatetimeIndex,
+    quantities: pd.Series | None, rel: str, log: ProblemLog,
+) -> pd.DataFrame:
+    """The checked values of ``table`` (a file's rows, spreadsheet ``rows``, UTC ``times``)
+    as a time × tag frame in time order."""
+    keep = _value_columns(table, names, quantities, rel, log)
     valid = np.asarray(times.notna())
     _report_rows_without_time(table, valid, rows, rel, log)
     tags = [names[p] for p in keep]
@@ -207,10 +284,11 @@ def _rows_with_extra_values(text: str, sep: str, width: int) -> list[int]:
 
 
 def _read_parquet(path: Path, rel: str, log: ProblemLog) -> pd.DataFrame | None:
-    try:
-        table = pd.read_parquet(path)
+    try:  # through the file object: Arrow's dataset reader refuses repeated column names
+        table = pq.ParquetFile(path).read(use_pandas_metadata=True).to_pandas()
     except Exception as exc:  # noqa: BLE001 - pyarrow raises many kinds; all mean "unreadable"
-        log.error(rel, None, None, f"cannot read as Parquet: {exc}")
+        first_line = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+        log.error(rel, None, None, f"cannot read as Parquet: {first_line}")
         return None
     if isinstance(table.index, pd.DatetimeIndex) or table.index.name == "timestamp":
         table = table.reset_index()

@@ -3,9 +3,12 @@
 from __future__ import annotations
 
 import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
 
 from calibra.io import load_site
 from tests.io.site_builder import find
+from tests.io.site_builder import problems_of as load_problems
 
 WEEK = "snapshots/week.csv"
 
@@ -36,3 +39,26 @@ def test_parquet_time_outside_the_nanosecond_range(files, tmp_path):
     p = find(site.problems, "snapshots/week.parquet", 3, "timestamp", "warning")
     assert "outside the years" in p.message
     assert len(site.snapshots) == 1
+
+
+def test_a_line_break_in_a_cell_stays_on_one_line_of_the_problem(files, tmp_path):
+    files.snapshots["week.csv"].set(3, "FNH.V", "13\n3.0")
+    files.buses.set(3, "kv", "1\r\n32")
+    problems = load_problems(files.write(tmp_path))
+    p = find(problems, WEEK, 3, "FNH.V", "warning")
+    assert p.message.startswith("'13\\n3.0' is not a number") and "\n" not in str(p)
+    q = find(problems, "network/buses.csv", 3, "kv")
+    assert q.message == "'1\\r\\n32' is not a number"
+
+
+def test_parquet_with_a_repeated_column_name_is_reported_like_csv(files, tmp_path):
+    # pyarrow's dataset reader refused such files with a message over several lines
+    files.snapshots = {}
+    root = files.write(tmp_path)
+    table = pa.Table.from_arrays(
+        [pa.array(pd.to_datetime(["2024-03-04 10:00", "2024-03-04 10:01"])),
+         pa.array([133.1, 133.2]), pa.array([133.3, 133.4])],
+        names=["timestamp", "FNH.V", "FNH.V"])
+    pq.write_table(table, root / "snapshots/week.parquet")
+    p = find(load_problems(root), "snapshots/week.parquet", 1, "FNH.V")
+    assert p.message == "column appears twice (columns 2 and 3)"
