@@ -20,6 +20,7 @@ from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE, read_branches, 
 from calibra.io.point_list import POINTS_FILE, read_points
 from calibra.io.problems import ProblemLog
 from calibra.io.site_config import SITE_FILE, SiteConfig, read_site_config
+from calibra.io.snapshot_size import memory_limit as default_memory_limit
 from calibra.io.snapshots import read_snapshots
 from calibra.io.text_files import read_text
 from calibra.model.network import Network
@@ -30,29 +31,72 @@ NETWORK_DIR = "network"
 CDF_SUFFIXES = (".cdf", ".txt")
 
 
-def load_site(path: str | Path, *, strict: bool = False, require_snapshots: bool = True) -> Site:
+def load_site(
+    path: str | Path,
+    *,
+    strict: bool = False,
+    require_snapshots: bool = True,
+    start: pd.Timestamp | str | None = None,
+    end: pd.Timestamp | str | None = None,
+    memory_limit: int | None = None,
+) -> Site:
     """Read and check a site folder.
 
     Raises :class:`SiteLoadError` with every problem found when any is an error (with
     ``strict``, also when any is a warning). ``require_snapshots=False`` accepts a folder
     without snapshot files (the frame is then empty), e.g. before a simulation fills it.
+
+    ``start``/``end`` (both included; naive times are in the site's timezone) load only the
+    snapshots of that period, reading the files in chunks, so a long history can be reviewed
+    in parts. A snapshot table larger than ``memory_limit`` bytes (default:
+    :func:`calibra.io.snapshot_size.memory_limit`) is refused before it is read, with a
+    problem that says how large it would be and what to do. Raises ValueError when
+    ``start``/``end`` is not a time or the limit's environment variable is not a size.
     """
     folder = Path(path)
     log = ProblemLog()
     if not folder.is_dir():
         log.error(".", None, None, f"site folder '{folder}' not found")
         raise SiteLoadError(log.items)
+    limit = memory_limit if memory_limit is not None else default_memory_limit()
     config = read_site_config(folder, log)
     network, buses, branches = _read_network(folder, config, log)
     points, point_rows = read_points(folder, buses, branches, log)
     timezone = config.timezone if config is not None else "UTC"
-    snapshots = read_snapshots(folder, points, timezone, log, required=require_snapshots)
+    period = _period(start, end, timezone)
+    snapshots = read_snapshots(folder, points, timezone, log, required=require_snapshots,
+                               period=period, limit=limit or None)
     if points is not None and snapshots is not None and len(snapshots.index):
         _report_points_without_data(points, point_rows, snapshots, log)
     unusable = log.has_errors or (strict and log.items)
     if unusable or config is None or network is None or points is None or snapshots is None:
         raise SiteLoadError(log.items)
     return Site(folder, config.name, config.timezone, network, points, snapshots, log.items)
+
+
+def _period(start, end, timezone: str) -> tuple[pd.Timestamp | None, ...] | None:
+    """The period as UTC times (naive ones in the site's timezone); None when open."""
+    if start is None and end is None:
+        return None
+    out = []
+    for value in (start, end):
+        if value is None:
+            out.append(None)
+            continue
+        try:
+            ts = pd.Timestamp(value)
+        except (ValueError, TypeError) as exc:
+            raise ValueError(f"not a time: {value!r}") from exc
+        if ts is pd.NaT:
+            raise ValueError(f"not a time: {value!r}")
+        if ts.tzinfo is None:
+            try:
+                ts = ts.tz_localize(timezone, ambiguous="raise", nonexistent="raise")
+            except ValueError as exc:
+                raise ValueError(f"{value!r} is not a single moment in {timezone} (daylight "
+                                 "saving time skips or repeats it); give a UTC offset") from exc
+        out.append(ts.tz_convert("UTC"))
+    return out[0], out[1]
 
 
 # ----------------------------------------------------------------------------- network
