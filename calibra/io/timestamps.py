@@ -52,10 +52,11 @@ def parse_times(
         return _localize(local, rows, timezone, file, log)
     text = values.astype(str).str.strip().where(values.notna(), "").reset_index(drop=True)
     empty = text.eq("").to_numpy()
-    aware = text.str.contains(_OFFSET, regex=True).to_numpy() & ~empty
-    naive = ~aware & ~empty
+    # ISO 8601 starts with the year; pandas would also read the words 'now' and 'today'
+    unparsed = ~empty & ~text.str.match(r"[+-]?\d").to_numpy(dtype=bool)
+    aware = text.str.contains(_OFFSET, regex=True).to_numpy() & ~empty & ~unparsed
+    naive = ~aware & ~empty & ~unparsed
     result = np.full(len(text), np.datetime64("NaT", "ns"))
-    unparsed = np.zeros(len(text), dtype=bool)
     if aware.any():
         parsed = pd.DatetimeIndex(
             pd.to_datetime(text[aware], format="ISO8601", utc=True, errors="coerce")

@@ -62,3 +62,14 @@ def test_parquet_with_a_repeated_column_name_is_reported_like_csv(files, tmp_pat
     pq.write_table(table, root / "snapshots/week.parquet")
     p = find(load_problems(root), "snapshots/week.parquet", 1, "FNH.V")
     assert p.message == "column appears twice (columns 2 and 3)"
+
+
+def test_words_that_pandas_reads_as_the_current_time_are_not_times(files, tmp_path):
+    # pandas.to_datetime(format="ISO8601") turns 'now' and 'today' into the clock time of
+    # the load; ISO 8601 times start with the year
+    files.snapshots["week.csv"].set(3, "timestamp", "now").set(4, "timestamp", "today")
+    site = load_site(files.write(tmp_path))
+    for row in (3, 4):
+        assert "not an ISO 8601 time" in find(site.problems, WEEK, row, "timestamp",
+                                              "warning").message
+    assert len(site.snapshots) == 2
