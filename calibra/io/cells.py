@@ -1,10 +1,10 @@
 """Checking and converting the cells of a small table column by column.
 
-Each function returns a Series aligned with the table's records and logs one error per bad
-cell, located by the table's file, the record's spreadsheet row and the column name. A column
-that is missing from the file (already reported by the header check) gives the default.
-The work is done on numpy arrays of text: these tables are small, and per-call pandas string
-overhead would dominate.
+Each function returns a numpy array aligned with the table's records (text as ``object``
+arrays of ``str``) and logs one error per bad cell, located by the table's file, the record's
+spreadsheet row and the column name. A column that is missing from the file (already reported
+by the header check) gives the default. The work is done on numpy arrays of text: these
+tables are small, and per-call pandas string overhead would dominate.
 """
 
 from __future__ import annotations
@@ -36,19 +36,26 @@ def _words(cells: np.ndarray) -> np.ndarray:
     return np.array([c.lower() for c in cells], dtype=object)
 
 
-def _text_series(values: np.ndarray) -> pd.Series:
-    return pd.Series(values, dtype=str)
-
-
-def text_cells(t: RawTable, column: str, log: ProblemLog, *, required: bool) -> pd.Series:
+def text_cells(t: RawTable, column: str, log: ProblemLog, *, required: bool) -> np.ndarray:
     """Stripped text; an empty cell is an error when ``required``."""
     cells = t.cells(column)
     if required and t.has(column):
         _report(t, column, cells == "", "empty; a value is required", log)
-    return _text_series(cells)
+    return cells
 
 
-def id_cells(t: RawTable, column: str, log: ProblemLog, what: str) -> pd.Series:
+def first_occurrences(ids: np.ndarray) -> np.ndarray:
+    """True at the first record of each non-empty id (the records a table keeps)."""
+    seen: set[str] = set()
+    keep = np.zeros(len(ids), dtype=bool)
+    for i, value in enumerate(ids):
+        if value and value not in seen:
+            seen.add(value)
+            keep[i] = True
+    return keep
+
+
+def id_cells(t: RawTable, column: str, log: ProblemLog, what: str) -> np.ndarray:
     """Identifiers: required, and unique within the table (later duplicates are errors)."""
     ids = text_cells(t, column, log, required=True)
     first_row: dict[str, int] = {}
@@ -80,11 +87,11 @@ def number_cells(
     required: bool = True,
     default: float = np.nan,
     positive: bool = False,
-) -> pd.Series:
+) -> np.ndarray:
     """Finite floats. Empty cells are errors when ``required``, else ``default``;
     text, NaN and infinity are errors; ``positive`` demands values greater than zero."""
     if not t.has(column):
-        return pd.Series(np.full(len(t.rows), default, dtype=float))
+        return np.full(len(t.rows), default, dtype=float)
     cells = t.cells(column)
     num = np.asarray(_parse_numbers(cells, t.dialect.decimal), dtype=float)
     empty = cells == ""
@@ -99,14 +106,14 @@ def number_cells(
         bad = np.isfinite(num) & (num <= 0)
         _report(t, column, bad, lambda v: f"must be greater than zero, not {v}", log)
     num = np.where(np.isfinite(num), num, np.nan)
-    return pd.Series(np.where(empty, default, num), dtype=float)
+    return np.where(empty, default, num).astype(float)
 
 
-def bool_cells(t: RawTable, column: str, log: ProblemLog, *, default: bool | None) -> pd.Series:
+def bool_cells(t: RawTable, column: str, log: ProblemLog, *, default: bool | None) -> np.ndarray:
     """true/false, yes/no, 1/0 (any case). Empty cells give ``default``; when that is None
     an empty cell is an error."""
     if not t.has(column):
-        return pd.Series(np.full(len(t.rows), bool(default)), dtype=bool)
+        return np.full(len(t.rows), bool(default), dtype=bool)
     cells = t.cells(column)
     low = _words(cells)
     is_true = np.isin(low, TRUE_WORDS)
@@ -116,7 +123,7 @@ def bool_cells(t: RawTable, column: str, log: ProblemLog, *, default: bool | Non
             lambda v: f"'{v}' is not true/false (also accepted: yes/no, 1/0)", log)
     if default is None:
         _report(t, column, empty, "empty; true or false is required", log)
-    return pd.Series(is_true | (empty & bool(default)), dtype=bool)
+    return is_true | (empty & bool(default))
 
 
 def choice_cells(
@@ -127,11 +134,11 @@ def choice_cells(
     *,
     required: bool,
     what: str,
-) -> pd.Series:
+) -> np.ndarray:
     """One of ``choices`` (keys lower-case, values the canonical spelling), any case.
     Unknown words are errors and give ""."""
     if not t.has(column):
-        return _text_series(np.full(len(t.rows), "", dtype=object))
+        return np.full(len(t.rows), "", dtype=object)
     cells = t.cells(column)
     canon = np.array([choices.get(c.lower(), "") for c in cells], dtype=object)
     empty = cells == ""
@@ -140,4 +147,4 @@ def choice_cells(
     _report(t, column, bad, lambda v: f"'{v}' is not a {what} (one of {listing})", log)
     if required:
         _report(t, column, empty, f"empty; a {what} is required ({listing})", log)
-    return _text_series(canon)
+    return canon

@@ -7,7 +7,14 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from calibra.io.cells import bool_cells, choice_cells, id_cells, number_cells, text_cells
+from calibra.io.cells import (
+    bool_cells,
+    choice_cells,
+    first_occurrences,
+    id_cells,
+    number_cells,
+    text_cells,
+)
 from calibra.io.problems import ProblemLog
 from calibra.io.text_files import read_small_table
 from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS
@@ -40,12 +47,11 @@ def read_buses(folder: Path, log: ProblemLog) -> pd.DataFrame | None:
             "zero_injection": bool_cells(t, "zero_injection", log, default=None),
             "g_shunt_mw": number_cells(t, "g_shunt_mw", log, required=False, default=0.0),
             "b_shunt_mvar": number_cells(t, "b_shunt_mvar", log, required=False, default=0.0),
-            "name": name.where(name.ne(""), ids),
-        }
+            "name": np.where(name != "", name, ids),
+        },
+        index=pd.Index(ids, name="bus", dtype=str),
     )
-    buses.index = pd.Index(ids, name="bus")
-    buses = buses[~buses.index.duplicated(keep="first") & (buses.index.str.len() > 0)]
-    return buses[BUS_COLUMNS]
+    return buses[first_occurrences(ids)][BUS_COLUMNS]
 
 
 def read_branches(
@@ -65,16 +71,17 @@ def read_branches(
     ids = id_cells(t, "branch", log, "branch id")
     from_bus = text_cells(t, "from_bus", log, required=True)
     to_bus = text_cells(t, "to_bus", log, required=True)
+    known = set(bus_ids) if bus_ids is not None else None
     for column, ends in (("from_bus", from_bus), ("to_bus", to_bus)):
-        if bus_ids is None:
+        if known is None:
             continue
-        unknown = ends.ne("") & ~ends.isin(bus_ids)
-        for i in np.flatnonzero(unknown):
-            log.error(t.file, int(t.rows[i]), column, f"unknown bus '{ends.iloc[i]}'")
-    for i in np.flatnonzero(from_bus.ne("") & from_bus.eq(to_bus)):
+        for i, bus in enumerate(ends):
+            if bus and bus not in known:
+                log.error(t.file, int(t.rows[i]), column, f"unknown bus '{bus}'")
+    for i in np.flatnonzero((from_bus != "") & (from_bus == to_bus)):
         log.error(
             t.file, int(t.rows[i]), "to_bus",
-            f"the branch connects bus '{to_bus.iloc[i]}' to itself",
+            f"the branch connects bus '{to_bus[i]}' to itself",
         )
     r = number_cells(t, "r", log)
     x = number_cells(t, "x", log)
@@ -97,11 +104,8 @@ def read_branches(
                 t, "kind", BRANCH_KINDS, log, required=True, what="branch kind"
             ),
             "in_service": bool_cells(t, "in_service", log, default=True),
-            "name": name.where(name.ne(""), ids),
-        }
+            "name": np.where(name != "", name, ids),
+        },
+        index=pd.Index(ids, name="branch", dtype=str),
     )
-    branches.index = pd.Index(ids, name="branch")
-    branches = branches[
-        ~branches.index.duplicated(keep="first") & (branches.index.str.len() > 0)
-    ]
-    return branches[BRANCH_COLUMNS]
+    return branches[first_occurrences(ids)][BRANCH_COLUMNS]

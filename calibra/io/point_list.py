@@ -7,7 +7,13 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from calibra.io.cells import choice_cells, id_cells, number_cells, text_cells
+from calibra.io.cells import (
+    choice_cells,
+    first_occurrences,
+    id_cells,
+    number_cells,
+    text_cells,
+)
 from calibra.io.problems import ProblemLog
 from calibra.io.text_files import RawTable, read_small_table
 from calibra.model.points import (
@@ -47,64 +53,67 @@ def read_points(
     quantity = choice_cells(
         t, "quantity", {q: q for q in QUANTITIES}, log, required=True, what="quantity"
     )
-    element = text_cells(t, "element", log, required=True)
-    end = choice_cells(t, "end", {e: e for e in ENDS}, log, required=False, what="branch end")
-    unit = choice_cells(t, "unit", _UNITS, log, required=True, what="unit")
-    analog = quantity.ne("branch_status")
-    full_scale = number_cells(t, "full_scale", log, required=False, positive=True)
-    accuracy = number_cells(t, "accuracy_pct", log, required=False, positive=True)
+    analog = (quantity != "branch_status") & (quantity != "")
+    columns = {
+        "quantity": quantity,
+        "element": text_cells(t, "element", log, required=True),
+        "end": choice_cells(t, "end", {e: e for e in ENDS}, log, required=False,
+                            what="branch end"),
+        "unit": choice_cells(t, "unit", _UNITS, log, required=True, what="unit"),
+        "full_scale": number_cells(t, "full_scale", log, required=False, positive=True),
+        "accuracy_pct": number_cells(t, "accuracy_pct", log, required=False, positive=True),
+    }
     for column in ("full_scale", "accuracy_pct"):
         if not t.has(column):
             continue
-        for i in np.flatnonzero(analog & quantity.ne("") & (t.cells(column) == "")):
+        for i in np.flatnonzero(analog & (t.cells(column) == "")):
             log.error(
                 t.file, int(t.rows[i]), column,
-                f"empty; a positive number is required for {quantity.iloc[i]}",
+                f"empty; a positive number is required for {quantity[i]}",
             )
-    points = pd.DataFrame(
-        {
-            "quantity": quantity,
-            "element": element,
-            "end": end,
-            "unit": unit,
-            "full_scale": full_scale,
-            "accuracy_pct": accuracy,
-            "substation": text_cells(t, "substation", log, required=True),
-            "device": text_cells(t, "device", log, required=True),
-            "rtu": text_cells(t, "rtu", log, required=False),
-            "channel": text_cells(t, "channel", log, required=False),
-            "ct_ratio": _ratio_cells(t, "ct_ratio", log),
-            "vt_ratio": _ratio_cells(t, "vt_ratio", log),
-            "sigma": number_cells(t, "sigma", log, required=False, positive=True),
-            "note": text_cells(t, "note", log, required=False),
-        }
-    )
-    _check_meaning(t, points, log)
-    _check_elements(t, points, buses, branches, log)
-    points.index = pd.Index(tags, name="tag")
-    keep = ~points.index.duplicated(keep="first") & (points.index.str.len() > 0)
-    rows = pd.Series(t.rows[keep], index=points.index[keep])
-    return points[keep][POINT_COLUMNS], rows
+    columns.update({
+        "substation": text_cells(t, "substation", log, required=True),
+        "device": text_cells(t, "device", log, required=True),
+        "rtu": text_cells(t, "rtu", log, required=False),
+        "channel": text_cells(t, "channel", log, required=False),
+        "ct_ratio": _ratio_cells(t, "ct_ratio", log),
+        "vt_ratio": _ratio_cells(t, "vt_ratio", log),
+        "sigma": number_cells(t, "sigma", log, required=False, positive=True),
+        "note": text_cells(t, "note", log, required=False),
+    })
+    _check_meaning(t, columns, log)
+    _check_elements(t, columns, buses, branches, log)
+    keep = first_occurrences(tags)
+    points = pd.DataFrame({c: columns[c][keep] for c in POINT_COLUMNS},
+                          index=pd.Index(tags[keep], name="tag", dtype=str))
+    return points, pd.Series(t.rows[keep], index=points.index)
 
 
-def _ratio_cells(t: RawTable, column: str, log: ProblemLog) -> pd.Series:
+def _ratio_cells(t: RawTable, column: str, log: ProblemLog) -> np.ndarray:
     """Instrument-transformer ratios such as ``1200:5`` (kept as text once checked)."""
-    s = text_cells(t, column, log, required=False)
-    for i in np.flatnonzero(s.ne("")):
-        try:
-            value = parse_ratio(s.iloc[i])
-            ok = value is not None and np.isfinite(value)
-        except ValueError:
-            ok = False
-        if not ok:
+    cells = text_cells(t, column, log, required=False)
+    checked: dict[str, bool] = {}
+    for i, text in enumerate(cells):
+        if text == "":
+            continue
+        if text not in checked:
+            try:
+                value = parse_ratio(text)
+                checked[text] = value is not None and bool(np.isfinite(value))
+            except ValueError:
+                checked[text] = False
+        if not checked[text]:
             log.error(
                 t.file, int(t.rows[i]), column,
-                f"'{s.iloc[i]}' is not a ratio of two positive numbers such as 1200:5",
+                f"'{text}' is not a ratio of two positive numbers such as 1200:5",
             )
-    return s
+    return cells
 
 
-def _check_meaning(t: RawTable, points: pd.DataFrame, log: ProblemLog) -> None:
+Columns = dict[str, np.ndarray]
+
+
+def _check_meaning(t: RawTable, points: Columns, log: ProblemLog) -> None:
     """Branch end and unit against what the quantity allows."""
     raw_ends = t.cells("end")
     for i, (q, unit) in enumerate(zip(points["quantity"], points["unit"], strict=True)):
@@ -126,14 +135,19 @@ def _check_meaning(t: RawTable, points: pd.DataFrame, log: ProblemLog) -> None:
 
 def _check_elements(
     t: RawTable,
-    points: pd.DataFrame,
+    points: Columns,
     buses: pd.DataFrame | None,
     branches: pd.DataFrame | None,
     log: ProblemLog,
 ) -> None:
     """Each element must be a known bus or branch of the kind the quantity needs; the point's
     substation should be that of the measured bus or branch end (a warning otherwise)."""
-    bus_sub = buses["substation"] if buses is not None else None
+    bus_sub = dict(zip(buses.index, buses["substation"], strict=True)) if buses is not None \
+        else None
+    ends = (dict(zip(branches.index, zip(branches["from_bus"], branches["to_bus"],
+                                         strict=True), strict=True))
+            if branches is not None else None)
+    ids = {"bus": bus_sub, "branch": ends}
     for i, (q, element, end, sub) in enumerate(
         zip(points["quantity"], points["element"], points["end"], points["substation"],
             strict=True)
@@ -142,12 +156,12 @@ def _check_elements(
             continue
         row = int(t.rows[i])
         kind = QUANTITIES[q]["element"]
-        known = branches if kind == "branch" else buses
-        other = buses if kind == "branch" else branches
+        known = ids[kind]
+        other = ids["bus" if kind == "branch" else "branch"]
         if known is None:
             continue
-        if element not in known.index:
-            if other is not None and element in other.index:
+        if element not in known:
+            if other is not None and element in other:
                 other_kind = "bus" if kind == "branch" else "branch"
                 log.error(
                     t.file, row, "element", f"'{element}' is a {other_kind}, but {q} needs a {kind}"
@@ -160,9 +174,9 @@ def _check_elements(
         if kind == "bus":
             at = [element]
         elif end in ENDS:
-            at = [known.at[element, f"{end}_bus"]]
+            at = [known[element][ENDS.index(end)]]
         else:
-            at = [known.at[element, "from_bus"], known.at[element, "to_bus"]]
+            at = list(known[element])
         subs = [bus_sub.get(b, "") for b in at]
         if sub not in subs:
             where = " or ".join(f"'{s}' (bus '{b}')" for s, b in zip(subs, at, strict=True))

@@ -233,6 +233,8 @@ def _frame(
 def _report_rows_without_time(
     table: pd.DataFrame, valid: np.ndarray, rows: np.ndarray, rel: str, log: ProblemLog
 ) -> None:
+    if valid.all():
+        return
     stamp = table.iloc[:, 0]
     no_stamp = stamp.isna().to_numpy().copy()
     if not pd.api.types.is_datetime64_any_dtype(stamp.dtype):
