@@ -64,8 +64,9 @@ def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.nd
         row = corr_row(top)
         cluster = [top]
         if row is not None:
+            rho = np.nan_to_num(row, nan=0.0, posinf=0.0, neginf=0.0)
             cluster += [j for j in remaining[1:]
-                        if abs(np.nan_to_num(row[j])) > CLUSTER_CORRELATION][:CLUSTER_SIZE - 1]
+                        if abs(rho[j]) > CLUSTER_CORRELATION][:CLUSTER_SIZE - 1]
         units = _units(cluster, device_of, base & ~set_aside)
         best = _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base,
                           status0, probe_starts)
@@ -129,5 +130,6 @@ def _explained(j: int, picked: list[int], stat: np.ndarray, corr_row, threshold:
     for p in picked:
         row = corr_row(p)
         if row is not None:
-            total += abs(np.nan_to_num(row[j])) * stat[p]
+            rho = np.nan_to_num(row[j], nan=0.0, posinf=0.0, neginf=0.0)
+            total += min(abs(rho), 1.0) * stat[p]
     return stat[j] - total < 1.5 * threshold
