@@ -23,7 +23,13 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from calibra.io.problems import ProblemLog
-from calibra.io.text_files import Dialect, sniff_dialect
+from calibra.io.text_files import (
+    Dialect,
+    csv_records,
+    first_line,
+    header_problem,
+    sniff_dialect,
+)
 from calibra.io.timestamps import parse_times
 
 CHUNK_ROWS = 50_000
@@ -104,13 +110,14 @@ def plan_csv(path: Path, rel: str, timezone: str, period: Period,
         try:
             with _open_text(path, encoding) as handle:
                 head = handle.read(HEAD_BYTES)
-            if not head.strip():
-                log.error(rel, None, None, "the file is empty")
+                while first_line(head) == head and (more := handle.read(HEAD_BYTES)):
+                    head += more  # a header longer than HEAD_BYTES (thousands of tags)
+            problem = header_problem(head)
+            if problem is not None:
+                log.error(rel, None if problem == "the file is empty" else 1, None, problem)
                 return None
             plan.dialect = sniff_dialect(head)
-            header = head.lstrip("\r\n").split("\n", 1)[0].rstrip("\r")
-            plan.names = [n.strip() for n in next(csv.reader([header],
-                                                             delimiter=plan.dialect.sep))]
+            plan.names = [n.strip() for n in next(csv_records(head, plan.dialect.sep))]
             stamps = _csv_times(plan)
         except UnicodeDecodeError:
             continue

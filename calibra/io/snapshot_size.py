@@ -34,6 +34,10 @@ MEMORY_LIMIT_ENV = "CALIBRA_SNAPSHOT_MEMORY_LIMIT"
 MAX_DEFAULT_LIMIT = 4 * 2**30
 MEMORY_SHARE = 8
 SAMPLE_BYTES = 256 * 2**10
+MAX_SAMPLE_BYTES = 64 * 2**20
+SAMPLE_LINES = 20
+DEFLATE_MAX_RATIO = 1032  # deflate expands at most 1032-fold (zlib technical details)
+_LINE_END = re.compile(rb"\r\n|\r|\n")
 BYTES_PER_VALUE = 8  # float64 values and int64 nanosecond times
 _UNITS = {"": 1, "b": 1, "k": 10**3, "kb": 10**3, "kib": 2**10, "m": 10**6, "mb": 10**6,
           "mib": 2**20, "g": 10**9, "gb": 10**9, "gib": 2**30, "t": 10**12, "tb": 10**12,
@@ -102,6 +106,8 @@ def _gzip_size(path: Path) -> int:
         handle.seek(max(compressed - 4, 0))
         isize = int.from_bytes(handle.read(4), "little")
     rough = compressed * _gzip_expansion(path)
+    if isize > compressed * DEFLATE_MAX_RATIO:  # not a trailer: a damaged or cut file
+        return int(rough)
     return isize + max(round((rough - isize) / 2**32), 0) * 2**32
 
 
@@ -122,12 +128,22 @@ def _gzip_expansion(path: Path) -> float:
 
 
 def _csv_head(path: Path) -> bytes:
-    if path.name.lower().endswith(".gz"):
-        inflater = zlib.decompressobj(wbits=31)
-        with path.open("rb") as handle:
-            return inflater.decompress(handle.read(SAMPLE_BYTES), SAMPLE_BYTES)
+    """The first bytes of a CSV file (decompressed): at least ``SAMPLE_BYTES`` and, with a
+    header longer than that (thousands of tags), the header and some lines after it."""
+    gz = path.name.lower().endswith(".gz")
+    inflater = zlib.decompressobj(wbits=31) if gz else None
+    head = b""
     with path.open("rb") as handle:
-        return handle.read(SAMPLE_BYTES)
+        while len(head) < MAX_SAMPLE_BYTES:
+            data = inflater.unconsumed_tail if inflater and inflater.unconsumed_tail else (
+                handle.read(SAMPLE_BYTES))
+            if not data:
+                break
+            head += inflater.decompress(data, SAMPLE_BYTES) if inflater else data
+            if (inflater and inflater.eof) or (
+                    len(head) >= SAMPLE_BYTES and len(_LINE_END.findall(head)) > SAMPLE_LINES):
+                break
+    return head
 
 
 def estimate_rows(path: Path, rel: str) -> FileRows | None:
@@ -144,12 +160,13 @@ def estimate_rows(path: Path, rel: str) -> FileRows | None:
         return None
     except Exception:  # noqa: BLE001 - pyarrow raises many kinds; the reader reports them
         return None
-    lines = head.count(b"\n")
-    if lines < 2 or len(head) >= size:  # the whole file is in the sample: count exactly
-        return FileRows(rel, max(lines - 1 + (not head.endswith(b"\n")), 0), True)
-    header_end = head.index(b"\n") + 1
-    mean = (head.rindex(b"\n") + 1 - header_end) / (lines - 1)
-    return FileRows(rel, int((size - header_end) / max(mean, 1.0)), False)
+    if len(head) >= size:  # the whole file is in the sample: count its lines
+        return FileRows(rel, max(len(_LINE_END.split(head.rstrip(b"\r\n"))) - 1, 0), True)
+    ends = [m.end() for m in _LINE_END.finditer(head)]
+    if len(ends) < 2:  # one line in the sample: rows as long as it, at the least
+        return FileRows(rel, int(size / max(len(head), 1)), False)
+    mean = (ends[-1] - ends[0]) / (len(ends) - 1)
+    return FileRows(rel, int((size - ends[0]) / max(mean, 1.0)), False)
 
 
 def refuse_if_too_large(

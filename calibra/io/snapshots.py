@@ -29,7 +29,7 @@ from calibra.io.snapshot_period import (
     read_parquet_rows,
 )
 from calibra.io.snapshot_size import FileRows, estimate_rows, refuse_if_too_large
-from calibra.io.text_files import read_csv_text
+from calibra.io.text_files import csv_records, read_csv_text
 from calibra.io.timestamps import parse_times
 
 SNAPSHOT_DIR = "snapshots"
@@ -250,7 +250,11 @@ def _read_csv(path: Path, rel: str, log: ProblemLog) -> pd.DataFrame | None:
     if found is None:
         return None
     text, dialect = found
-    header = next(csv.reader([text.split("\n", 1)[0].rstrip("\r")], delimiter=dialect.sep))
+    try:
+        header = next(csv_records(text, dialect.sep))
+    except csv.Error as exc:
+        log.error(rel, 1, None, f"the header is not readable as CSV: {exc}")
+        return None
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", pd.errors.ParserWarning)
@@ -279,9 +283,12 @@ def _read_csv(path: Path, rel: str, log: ProblemLog) -> pd.DataFrame | None:
 
 def _rows_with_extra_values(text: str, sep: str, width: int) -> list[int]:
     rows = []
-    for number, record in enumerate(csv.reader(io.StringIO(text), delimiter=sep), start=1):
-        if len(record) > width and any(cell.strip() for cell in record[width:]):
-            rows.append(number)
+    try:
+        for number, record in enumerate(csv_records(text, sep), start=1):
+            if len(record) > width and any(cell.strip() for cell in record[width:]):
+                rows.append(number)
+    except csv.Error:
+        pass  # the rows found so far (the caller falls back to row 2)
     return rows
 
 

@@ -17,6 +17,8 @@ import numpy as np
 
 from calibra.io.problems import ProblemLog
 
+SNIFF_CHARS = 64 * 1024
+_LINE_END = re.compile(r"\r\n|\r|\n")
 _DECIMAL_COMMA = re.compile(r"(?:^|[;\t])\s*[-+]?\d+,\d+\s*(?:[;\t]|$)", re.MULTILINE)
 
 
@@ -58,7 +60,9 @@ def read_text(path: Path, rel: str, log: ProblemLog) -> str | None:
 
 
 def sniff_dialect(text: str) -> Dialect:
-    """Guess the separator from the header line and the decimal mark from the data."""
+    """Guess the separator from the header line and the decimal mark from the data (the
+    first 64 KiB are enough to decide)."""
+    text = _LINE_END.sub("\n", text[:SNIFF_CHARS])
     head = text.lstrip("\r\n").split("\n", 1)[0]
     counts = {sep: head.count(sep) for sep in (",", ";", "\t")}
     sep = max(counts, key=lambda s: (counts[s], s == ","))
@@ -72,14 +76,36 @@ def sniff_dialect(text: str) -> Dialect:
     return Dialect(sep, decimal)
 
 
+def first_line(text: str) -> str:
+    """The text up to the first line end: LF, CR LF (Windows) or CR alone (classic Mac,
+    Excel's "CSV (Macintosh)")."""
+    return _LINE_END.split(text, maxsplit=1)[0]
+
+
+def csv_records(text: str, sep: str):
+    """The records of CSV text, whatever its line ends (quoted line breaks kept)."""
+    return csv.reader(io.StringIO(text, newline=""), delimiter=sep)
+
+
+def header_problem(text: str) -> str | None:
+    """Why the text has no usable first row (empty file, or an empty row 1), else None."""
+    if not text.strip():
+        return "the file is empty"
+    if not first_line(text).strip():
+        return "row 1 is empty: the column names must be in the first row"
+    return None
+
+
 def read_csv_text(path: Path, rel: str, log: ProblemLog) -> tuple[str, Dialect] | None:
     """The decoded text of a CSV file and its dialect (a warning when not comma-separated);
-    None, with an error logged, when it cannot be read or is empty."""
+    None, with an error logged, when it cannot be read, is empty or does
+    not start with its header."""
     text = read_text(path, rel, log)
     if text is None:
         return None
-    if not text.strip():
-        log.error(rel, None, None, "the file is empty")
+    problem = header_problem(text)
+    if problem is not None:
+        log.error(rel, None if problem == "the file is empty" else 1, None, problem)
         return None
     dialect = sniff_dialect(text)
     if dialect.sep != ",":
@@ -126,10 +152,12 @@ def read_small_table(
     if found is None:
         return None
     text, dialect = found
+    records: list[list[str]] = []
     try:
-        records = list(csv.reader(io.StringIO(text), delimiter=dialect.sep))
-    except csv.Error as exc:
-        log.error(rel, None, None, f"not readable as CSV: {exc}")
+        for record in csv_records(text, dialect.sep):
+            records.append(record)
+    except csv.Error as exc:  # e.g. a cell longer than the csv module's field limit
+        log.error(rel, len(records) + 1, None, f"not readable as CSV: {exc}")
         return None
     header = [h.strip().lower() for h in records[0]]
     width = len(header)

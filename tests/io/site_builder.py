@@ -65,7 +65,7 @@ class Table:
     """A CSV table held as header + rows of text, edited by spreadsheet row number."""
 
     def __init__(self, text: str) -> None:
-        records = list(csv.reader(io.StringIO(text)))
+        records = list(csv.reader(io.StringIO(text, newline="")))
         self.header = records[0]
         self.rows = [r + [""] * (len(self.header) - len(r)) for r in records[1:]]
 

@@ -73,3 +73,30 @@ def test_words_that_pandas_reads_as_the_current_time_are_not_times(files, tmp_pa
         assert "not an ISO 8601 time" in find(site.problems, WEEK, row, "timestamp",
                                               "warning").message
     assert len(site.snapshots) == 2
+
+
+def test_classic_mac_line_ends_are_read(files, tmp_path):
+    # Excel's "CSV (Macintosh)" ends lines with CR alone; the csv module refused such text
+    # with a traceback ("new-line character seen in unquoted field")
+    files.extra["snapshots/week.csv"] = files.snapshots.pop("week.csv").text().replace(
+        "\n", "\r")
+    files.extra["points.csv"] = files.points.text().replace("\n", "\r")
+    files.points = None
+    site = load_site(files.write(tmp_path))
+    assert site.problems == [] and len(site.snapshots) == 4 and len(site.points) == 7
+
+
+def test_an_empty_first_row_is_named_as_such(files, tmp_path):
+    files.extra["network/buses.csv"] = "\n" + files.buses.text()
+    files.buses = None
+    files.extra["snapshots/week.csv"] = " \r\n" + files.snapshots.pop("week.csv").text()
+    problems = load_problems(files.write(tmp_path))
+    for rel in ("network/buses.csv", WEEK):
+        assert find(problems, rel, 1, None).message == (
+            "row 1 is empty: the column names must be in the first row")
+
+
+def test_a_cell_beyond_the_csv_field_limit_is_located(files, tmp_path):
+    files.points.set(4, "note", "x" * 200_000)  # Python's csv module stops at 131,072
+    p = find(load_problems(files.write(tmp_path)), "points.csv", 4, None)
+    assert p.message.startswith("not readable as CSV: field larger than field limit")
