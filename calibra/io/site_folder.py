@@ -143,6 +143,9 @@ def _read_network(folder: Path, config: SiteConfig | None, log: ProblemLog) -> T
     if config is not None and config.base_mva is None:
         log.error(SITE_FILE, None, "base_mva", "required key is missing from [site]")
     reference = None
+    if buses is not None and buses.empty:
+        log.error(BUSES_FILE, None, "bus", "no row has a bus id; the network has no bus")
+        buses = None
     if config is not None and buses is not None:
         reference = config.reference_bus or str(buses.index[0])
         if reference not in buses.index:

@@ -100,3 +100,13 @@ def test_a_cell_beyond_the_csv_field_limit_is_located(files, tmp_path):
     files.points.set(4, "note", "x" * 200_000)  # Python's csv module stops at 131,072
     p = find(load_problems(files.write(tmp_path)), "points.csv", 4, None)
     assert p.message.startswith("not readable as CSV: field larger than field limit")
+
+
+def test_a_bus_table_without_any_bus_id(files, tmp_path):
+    # with no reference_bus in site.toml the first bus is the reference: there was none
+    files.toml = files.toml.replace('reference_bus = "FNH132"\n', "")
+    for row in range(2, 7):
+        files.buses.set(row, "bus", "")
+    problems = load_problems(files.write(tmp_path))
+    assert find(problems, "network/buses.csv", None, "bus").message == (
+        "no row has a bus id; the network has no bus")
