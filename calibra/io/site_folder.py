@@ -20,6 +20,7 @@ from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE, read_branches, 
 from calibra.io.point_list import POINTS_FILE, read_points
 from calibra.io.problems import ProblemLog
 from calibra.io.site_config import SITE_FILE, SiteConfig, read_site_config
+from calibra.io.snapshot_size import MEMORY_LIMIT_ENV
 from calibra.io.snapshot_size import memory_limit as default_memory_limit
 from calibra.io.snapshots import read_snapshots
 from calibra.io.text_files import read_text
@@ -50,15 +51,20 @@ def load_site(
     snapshots of that period, reading the files in chunks, so a long history can be reviewed
     in parts. A snapshot table larger than ``memory_limit`` bytes (default:
     :func:`calibra.io.snapshot_size.memory_limit`) is refused before it is read, with a
-    problem that says how large it would be and what to do. Raises ValueError when
-    ``start``/``end`` is not a time or the limit's environment variable is not a size.
+    problem that says how large it would be and what to do (a limit variable that holds no
+    size is a problem of the "file" ``CALIBRA_SNAPSHOT_MEMORY_LIMIT``). Raises ValueError when
+    ``start``/``end`` is not a time.
     """
     folder = Path(path)
     log = ProblemLog()
     if not folder.is_dir():
         log.error(".", None, None, f"site folder '{folder}' not found")
         raise SiteLoadError(log.items)
-    limit = memory_limit if memory_limit is not None else default_memory_limit()
+    try:
+        limit = memory_limit if memory_limit is not None else default_memory_limit()
+    except ValueError as exc:  # the environment variable holds no size
+        log.error(MEMORY_LIMIT_ENV, None, None, str(exc))
+        limit = None
     config = read_site_config(folder, log)
     network, buses, branches = _read_network(folder, config, log)
     points, point_rows = read_points(folder, buses, branches, log)

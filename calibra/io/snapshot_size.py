@@ -16,6 +16,8 @@ The limit (:func:`memory_limit`): the environment variable ``CALIBRA_SNAPSHOT_ME
 (bytes, or a size such as ``6GB``, ``512MiB``; ``0`` means no limit) when set, else
 4 GiB or an eighth of the physical memory (or of the container's memory limit), whichever is
 less. An eighth leaves room for the review's working arrays (common practice, no source).
+While a CSV file is read whole its text is held too (about as large again); a period is read
+in chunks (:mod:`calibra.io.snapshot_period`).
 """
 
 from __future__ import annotations

@@ -101,8 +101,10 @@ def test_the_limit_comes_from_the_environment(tmp_path, monkeypatch):
     monkeypatch.setenv(MEMORY_LIMIT_ENV, "0")
     assert memory_limit() is None and len(load_site(root).snapshots) == 36
     monkeypatch.setenv(MEMORY_LIMIT_ENV, "lots")
-    with pytest.raises(ValueError, match="not a size"):
+    with pytest.raises(SiteLoadError) as info:
         load_site(root)
+    assert find(info.value.problems, MEMORY_LIMIT_ENV, None, None).message == (
+        "'lots' is not a size such as 6GB or 512MiB")
 
 
 def test_default_limit_is_the_smaller_of_4_gib_and_an_eighth_of_memory(monkeypatch):
