@@ -44,6 +44,7 @@ MAX_CACHED = 2
 
 _CACHE: OrderedDict[tuple, PreparedPeriod] = OrderedDict()
 _LOCK = threading.Lock()
+_ALLOCATOR = {"tuned": False}
 
 
 @dataclass(frozen=True)
@@ -96,6 +97,30 @@ def worker_name() -> str:
 def worker_version() -> str:
     """The calibra version installed where this runs (the client compares it with its own)."""
     return calibra.__version__
+
+
+def tune_allocator() -> bool:
+    """Undo the effect of ``MALLOC_TRIM_THRESHOLD_`` on this worker process (glibc only).
+
+    Dask's nanny starts workers with ``MALLOC_TRIM_THRESHOLD_=65536`` so that freed memory goes
+    back to the system at once. Setting it turns off glibc's adaptive thresholds, so every
+    large temporary array of the block iteration is mapped and unmapped again: measured here,
+    one day of IEEE 118 took 2.5-3× longer (800,000 page faults instead of 36,000). The
+    thresholds are set back to where the adaptive rule settles on 64-bit glibc (mmap 32 MiB,
+    trim 64 MiB; mallopt(3)). Returns whether they were changed.
+    """
+    if _ALLOCATOR["tuned"] or "MALLOC_TRIM_THRESHOLD_" not in os.environ:
+        return False
+    _ALLOCATOR["tuned"] = True
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL("libc.so.6")
+        m_trim_threshold, m_mmap_threshold = -1, -3  # from glibc's malloc.h
+        return bool(libc.mallopt(m_mmap_threshold, 32 << 20)
+                    and libc.mallopt(m_trim_threshold, 64 << 20))
+    except (OSError, AttributeError):
+        return False
 
 
 def _url_files(location: str) -> tuple[object, str, list[tuple[str, str, dict]]]:
@@ -154,6 +179,7 @@ def prepared_period(job: DayJob) -> PreparedPeriod:
     key = (job.location, site_fingerprint(job.location), job.start_ns, job.end_ns,
            job.corrections)
     with _LOCK:
+        tune_allocator()
         hit = _CACHE.get(key)
         if hit is not None:
             _CACHE.move_to_end(key)
