@@ -94,8 +94,15 @@ class Table:
         return self
 
     def text(self, sep: str = ",") -> str:
+        """CSV text with LF line ends. A cell holding a CR alone is quoted (all cells are, then:
+        the csv module quotes only for the line terminator's characters), as RFC 4180 asks;
+        unquoted, the CR would end the record."""
+        records = [self.header, *self.rows]
+        carriage_return = any("\r" in cell for record in records for cell in record)
         out = io.StringIO()
-        csv.writer(out, delimiter=sep, lineterminator="\n").writerows([self.header, *self.rows])
+        csv.writer(out, delimiter=sep, lineterminator="\n",
+                   quoting=csv.QUOTE_ALL if carriage_return else csv.QUOTE_MINIMAL,
+                   ).writerows(records)
         return out.getvalue()
 
 
