@@ -194,8 +194,8 @@ def instant(text: str) -> pd.Timestamp | None:
         if ts.tzinfo is None:
             ts = ts.tz_localize(TIMEZONE, ambiguous="raise", nonexistent="raise")
         return ts.tz_convert("UTC")
-    except (ValueError, OverflowError, Exception):  # noqa: BLE001 - any failure: no instant
-        return None
+    except Exception:  # noqa: BLE001 - pandas raises several kinds (NotImplementedError
+        return None  # beyond year 9999, ValueError for skipped or repeated local times)
 
 
 @st.composite

@@ -32,7 +32,6 @@ START = "2026-04-14 06:00"
 PERIODS = 36
 FREQ = "15min"
 SNAPSHOT_FILE = "snapshots/day.csv"
-TABLE_FILES = ("network/buses.csv", "network/branches.csv", "points.csv", SNAPSHOT_FILE)
 
 
 def brackwater_case() -> GridCase:
@@ -71,15 +70,6 @@ def brackwater_case() -> GridCase:
                     load_mvar=s({"CSH_132": 9.0, "CSH_33": 7.0, "TDW_33": 4.0}),
                     gen_mw=s({"WRF_132": 0.0}), gen_mvar=s(dtype=float),
                     v_set=s({"WRF_132": 1.02}), pv=s({"WRF_132": False}))
-
-
-def _text(write, *args) -> str:
-    with tempfile.TemporaryDirectory() as tmp:
-        path = Path(tmp) / "out"
-        write(*args, path)
-        if path.is_dir():
-            raise AssertionError("expected a file")
-        return path.read_text(encoding="utf-8")
 
 
 def snapshot_csv(snapshots: pd.DataFrame, timezone: str) -> str:
