@@ -142,6 +142,14 @@ class _Stage:
         if self.progress is not None:
             self.progress.update(done, total, self.name)
 
+    @property
+    def cancelled(self) -> bool:
+        return self.progress is not None and self.progress.cancelled
+
+    def cancel(self) -> None:
+        if self.progress is not None:
+            self.progress.cancel()
+
 
 def _device_index(site: Site, model: MeasurementModel) -> np.ndarray:
     """Device number of each power-flow/injection point (-1 for other quantities)."""
