@@ -119,10 +119,15 @@ def run_check(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def load_for_command(folder: Path) -> Site | None:
-    """Load a site for a command that works on it; print problems; None when not usable."""
+def load_for_command(folder: Path, start: str | None = None,
+                     end: str | None = None) -> Site | None:
+    """Load a site for a command that works on it (only the snapshots from ``start`` to
+    ``end`` when given, so a long history is never read whole); print problems; None when not
+    usable."""
     try:
-        site = load_site(_site_folder(folder))
+        site = load_site(_site_folder(folder), start=start, end=end)
+    except ValueError as exc:  # a --from/--to that is not a time
+        raise UsageError(str(exc)) from exc
     except SiteLoadError as exc:
         for problem in exc.problems:
             print(problem)

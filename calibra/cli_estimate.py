@@ -27,7 +27,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    site = load_for_command(args.site)
+    site = load_for_command(args.site, args.start, args.end)
     if site is None:
         return EXIT_UNUSABLE
     start, end = parse_period(site, args)

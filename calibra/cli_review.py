@@ -90,7 +90,7 @@ def _review(args: argparse.Namespace, site, settings, start, end, ledger):
 def run(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _check_cluster_options(args)
-    site = load_for_command(args.site)
+    site = load_for_command(args.site, args.start, args.end)
     if site is None:
         return EXIT_UNUSABLE
     start, end = parse_period(site, args)
