@@ -3,9 +3,9 @@
 A worker receives only small jobs (where the site is, the period's bounds, the corrections as
 plain data, the day's snapshot positions and the points set aside). It reads the site folder
 itself — a path it can see, or an fsspec URL such as ``s3://bucket/site`` that it copies to a
-temporary folder once — and keeps the prepared period (per-unit values, topology, estimator) in
-memory for the next jobs of the same review. The cache key holds the size and modification time
-of every site file, so a changed folder is read again.
+temporary folder — loading only the period's snapshots, and keeps the prepared period (per-unit
+values, topology, estimator) in memory for the next jobs of the same review. The cache key holds
+the size and modification time of every site file, so a changed folder is read again.
 """
 
 from __future__ import annotations
@@ -158,10 +158,11 @@ def site_fingerprint(location: str) -> tuple:
     return tuple(out)
 
 
-def _load(location: str):
-    """Load the site at ``location`` (a URL is copied to a temporary folder first)."""
+def _load(location: str, start: pd.Timestamp, end: pd.Timestamp):
+    """Load the site at ``location`` with the snapshots from ``start`` to ``end`` only (a URL
+    is copied to a temporary folder first)."""
     if not is_url(location):
-        return load_site(location)
+        return load_site(location, start=start, end=end)
     fs, _, files = _url_files(location)
     folder = tempfile.mkdtemp(prefix="calibra-site-")
     try:
@@ -169,7 +170,7 @@ def _load(location: str):
             target = Path(folder) / rel
             target.parent.mkdir(parents=True, exist_ok=True)
             fs.get_file(remote, str(target))
-        return load_site(folder)
+        return load_site(folder, start=start, end=end)
     finally:
         shutil.rmtree(folder, ignore_errors=True)
 
@@ -184,8 +185,10 @@ def prepared_period(job: DayJob) -> PreparedPeriod:
         if hit is not None:
             _CACHE.move_to_end(key)
             return hit
+        start = pd.Timestamp(job.start_ns, tz="UTC")
+        end = pd.Timestamp(job.end_ns, tz="UTC")
         try:
-            site = _load(job.location)
+            site = _load(job.location, start, end)
         except SiteLoadError as exc:
             first = "; ".join(str(p) for p in exc.problems[:3])
             raise ClusterError(f"worker {worker_name()} cannot load the site at "
@@ -193,9 +196,7 @@ def prepared_period(job: DayJob) -> PreparedPeriod:
         except OSError as exc:
             raise ClusterError(f"worker {worker_name()} cannot read the site at "
                                f"{job.location}: {exc}") from None
-        prepared = prepare_period(site, pd.Timestamp(job.start_ns, tz="UTC"),
-                                  pd.Timestamp(job.end_ns, tz="UTC"),
-                                  corrections_from_records(job.corrections))
+        prepared = prepare_period(site, start, end, corrections_from_records(job.corrections))
         _CACHE[key] = prepared
         while len(_CACHE) > MAX_CACHED:
             _CACHE.popitem(last=False)
