@@ -160,24 +160,40 @@ class MeasurementFunctions:
 
         ``vm``/``va`` of shape (n,) give h of shape (m,); of shape (n, k) give (m, k).
         """
-        _, T = self._admittance_operator(in_service)
+        _, T, _ = self._admittance_operator(in_service)
         V = vm * np.exp(1j * va)
         return self._from_currents(V, T @ V, vm)
 
     def _from_currents(self, V, current, vm) -> np.ndarray:
         h = np.empty((self.m,) + V.shape[1:])
-        s_term = V[self.terminals.bus] * np.conj(current)
-        t = self.terminal_of
-        for mask, values in (
-            (self._is_p, lambda sel: s_term[t[sel]].real),
-            (self._is_q, lambda sel: s_term[t[sel]].imag),
-            (self.code == I_MAG,
-             lambda sel: np.sqrt(np.abs(current[t[sel]]) ** 2 + CURRENT_EPS ** 2)),
-            (self.code == V_MAG, lambda sel: vm[self.element[sel]]),
-        ):
-            if mask.any():
-                h[mask] = values(mask)
+        rows_p, term_p, rows_q, term_q, rows_i, term_i, rows_v, bus_v = self._rows
+        if rows_p.size or rows_q.size:
+            s_term = V[self.terminals.bus] * np.conj(current)
+            h[rows_p] = s_term[term_p].real
+            h[rows_q] = s_term[term_q].imag
+        if rows_i.size:
+            h[rows_i] = np.sqrt(np.abs(current[term_i]) ** 2 + CURRENT_EPS ** 2)
+        h[rows_v] = vm[bus_v]
         return h
+
+    def evaluate_with_gradient(self, vm: np.ndarray, va: np.ndarray, in_service, state,
+                               weights) -> tuple[np.ndarray, np.ndarray]:
+        """h(x) and Hᵀ·w in one pass (the terminal currents are computed once).
+
+        ``weights`` is either an (m, k) array w, or a pair (z, ω) for the weighted residual
+        w = ω ∘ (z − h(x)), which needs h first.
+        """
+        _, T, TH = self._admittance_operator(in_service)
+        Vn = np.exp(1j * va)
+        V = vm * Vn
+        current = T @ V
+        h = self._from_currents(V, current, vm)
+        if isinstance(weights, tuple):
+            z, omega = weights
+            weighted = (z - h) * omega
+        else:
+            weighted = weights
+        return h, self._gradient(vm, V, Vn, current, weighted, state, TH)
 
     def jacobian(
         self, vm: np.ndarray, va: np.ndarray, state: StateLayout, in_service=None
@@ -226,7 +242,7 @@ class MeasurementFunctions:
 
     def jacobian_values(self, vm, va, state: StateLayout, in_service=None) -> np.ndarray:
         """Values of the Jacobian nonzeros, in the order of :meth:`jacobian_pattern`."""
-        y, T = self._admittance_operator(in_service)
+        y, T, _ = self._admittance_operator(in_service)
         V = vm * np.exp(1j * va)
         Vn = np.exp(1j * va)
         tm = self.terminals
@@ -255,46 +271,68 @@ class MeasurementFunctions:
         ])
         return vals[self._pattern_entry(state)[2]]
 
-    def _admittance_operator(self, in_service=None) -> tuple[np.ndarray, sp.csr_matrix]:
-        """Entry admittances and the sparse operator T with terminal currents I = T·V."""
+    def _admittance_operator(self, in_service=None):
+        """Entry admittances, the sparse operator T with terminal currents I = T·V, and Tᴴ."""
         y = self.entry_admittances(in_service)
         key = id(y)
         cached = self._operator_cache.get(key)
         if cached is not None and cached[0] is y:
-            return y, cached[1]
+            return cached
         tm = self.terminals
         T = sp.csr_matrix((y, (tm.entry_row, tm.entry_col)),
                           shape=(len(tm.kind), self.network.n_bus))
+        TH = T.conj().T.tocsr()
         if len(self._operator_cache) > 64:
             self._operator_cache.clear()
-        self._operator_cache[key] = (y, T)
-        return y, T
+        self._operator_cache[key] = (y, T, TH)
+        return y, T, TH
 
     def gradient(self, vm: np.ndarray, va: np.ndarray, weighted: np.ndarray,
                  state: StateLayout, in_service=None) -> np.ndarray:
-        """Hᵀ·w for states (n, k) and row weights ``weighted`` (m, k), without forming H.
+        """Hᵀ·w for states (n, k) and row weights ``weighted`` (m, k), without forming H."""
+        _, T, TH = self._admittance_operator(in_service)
+        Vn = np.exp(1j * va)
+        V = vm * Vn
+        return self._gradient(vm, V, Vn, T @ V, weighted, state, TH)
+
+    def _gradient(self, vm, V, Vn, current, weighted, state: StateLayout, TH) -> np.ndarray:
+        """Hᵀ·w from the terminal currents.
 
         With ωₜ = ρᴾₜ − jρᵠₜ the weights of a terminal's P and Q rows, aₜ = V_bus(t)·ωₜ and
         κₜ = ρᴵₜ·conj(Iₜ)/|Iₜ| for current rows (B: terminal→bus incidence, T: terminal
-        admittance rows)::
+        admittance rows), u = Bᵀ(conj(I)∘ω) + Tᵀκ and t = Tᴴa::
 
-            ∂/∂θ   = Re( jV ∘ Bᵀ(conj(I)∘ω) − j conj(V) ∘ Tᴴa + jV ∘ Tᵀκ )
-            ∂/∂|V| = Re( Vn ∘ Bᵀ(conj(I)∘ω) + conj(Vn) ∘ Tᴴa + Vn ∘ Tᵀκ ) + ρⱽ
+            ∂/∂θ   = Re( jV ∘ u − j conj(V) ∘ t ) = −|V| ∘ Im( Vn ∘ u − conj(Vn) ∘ t )
+            ∂/∂|V| = Re( Vn ∘ u + conj(Vn) ∘ t ) + ρⱽ
         """
-        _, T = self._admittance_operator(in_service)
-        agg_p, agg_q, agg_i, agg_v, inc = self._aggregators
-        V = vm * np.exp(1j * va)
-        Vn = np.exp(1j * va)
-        current = T @ V
-        omega = agg_p @ weighted - 1j * (agg_q @ weighted)
+        rows_p, term_p, rows_q, term_q, rows_i, term_i, rows_v, bus_v = self._rows
+        shape = (len(self.terminals.kind),) + weighted.shape[1:]
+        shared = self._shared_terminals
+        if shared is None:
+            omega = np.zeros(shape, complex)
+            omega[term_p] = weighted[rows_p]
+            omega[term_q] -= 1j * weighted[rows_q]
+        else:
+            omega = shared[0] @ weighted[rows_p] - 1j * (shared[1] @ weighted[rows_q])
         a = V[self.terminals.bus] * omega
-        b_part = inc.T @ (np.conj(current) * omega)
-        t_part = T.conj().T @ a
-        mag = np.sqrt(np.abs(current) ** 2 + CURRENT_EPS ** 2)
-        kappa = (agg_i @ weighted) * np.conj(current) / mag
-        i_part = T.T @ kappa
-        g_th = (1j * V * b_part - 1j * np.conj(V) * t_part + 1j * V * i_part).real
-        g_vm = (Vn * b_part + np.conj(Vn) * t_part + Vn * i_part).real + agg_v @ weighted
+        u = self._incidence_t @ (np.conj(current) * omega)
+        t_part = TH @ a
+        if rows_i.size:
+            ci = np.conj(current[term_i])
+            k_rows = weighted[rows_i] * ci / np.sqrt(np.abs(ci) ** 2 + CURRENT_EPS ** 2)
+            if shared is None:
+                kappa = np.zeros(shape, complex)
+                kappa[term_i] = k_rows
+            else:
+                kappa = shared[2] @ k_rows
+            # Tᵀκ = conj(Tᴴ conj(κ))
+            u += np.conj(TH @ np.conj(kappa))
+        A = Vn * u
+        B = np.conj(Vn) * t_part
+        g_th = -vm * (A.imag - B.imag)
+        g_vm = A.real + B.real
+        if rows_v.size:
+            np.add.at(g_vm, bus_v, weighted[rows_v])
         out = np.zeros((state.n_state,) + np.shape(vm)[1:])
         ang = state.angle_column >= 0
         out[state.angle_column[ang]] = g_th[ang]
@@ -303,21 +341,25 @@ class MeasurementFunctions:
         return out
 
     def _build_aggregators(self) -> None:
-        """Sparse maps from measurement rows to their terminals (by part) and buses."""
+        """Index arrays from measurement rows to their terminals (by part) and buses, and the
+        terminal→bus incidence (transposed)."""
         nt = len(self.terminals.kind)
         n = self.network.n_bus
-        rows = np.arange(self.m)
-
-        def agg(mask, target, size):
-            sel = rows[mask]
-            return sp.csr_matrix((np.ones(sel.size), (target[sel], sel)), shape=(size, self.m))
-
-        t = np.maximum(self.terminal_of, 0)
-        inc = sp.csr_matrix((np.ones(nt), (np.arange(nt), self.terminals.bus)), shape=(nt, n))
-        self._aggregators = (
-            agg(self._is_p, t, nt), agg(self._is_q, t, nt), agg(self.code == I_MAG, t, nt),
-            agg(self.code == V_MAG, self.element, n), inc,
-        )
+        t = self.terminal_of
+        p = np.flatnonzero(self._is_p)
+        q = np.flatnonzero(self._is_q)
+        i = np.flatnonzero(self.code == I_MAG)
+        v = np.flatnonzero(self.code == V_MAG)
+        self._rows = (p, t[p], q, t[q], i, t[i], v, self.element[v])
+        # Two points may measure the same quantity (e.g. one terminal seen by two RTUs): their
+        # weights then add up, through a sparse map instead of a plain assignment.
+        self._shared_terminals = None
+        if any(np.unique(t[r]).size < r.size for r in (p, q, i)):
+            self._shared_terminals = tuple(
+                sp.csr_matrix((np.ones(r.size), (t[r], np.arange(r.size))), shape=(nt, r.size))
+                for r in (p, q, i))
+        self._incidence_t = sp.csr_matrix(
+            (np.ones(nt), (self.terminals.bus, np.arange(nt))), shape=(n, nt))
 
     def _build_gather(self) -> None:
         """Index arrays mapping pattern entries to Jacobian rows, by kind of derivative."""

@@ -34,6 +34,7 @@ import scipy.sparse.linalg as spla
 
 from calibra.estimation.measurements import StateLayout
 from calibra.estimation.residuals import CRITICAL_S, analyse_residuals
+from calibra.estimation.runtime import tune_allocator, worker_setup
 from calibra.estimation.wls import Estimator, rows_touching
 
 #: Largest number of missing measurements handled by the Woodbury update of Ω.
@@ -280,13 +281,13 @@ class BlockSolver:
                 if active.size == 0:
                     break
                 vma, vaa = vm[:, active], va[:, active]
-                r = (Zt[:, active] - funcs.evaluate(vma, vaa, status)) * W[:, active]
-                rhs = funcs.gradient(vma, vaa, r, layout, status)
+                _, rhs = funcs.evaluate_with_gradient(vma, vaa, status, layout,
+                                                      (Zt[:, active], W[:, active]))
                 if nc:
                     lam_rows = np.zeros((cons.m, active.size))
                     lam_rows[cidx] = lam[:, active]
-                    rhs = np.vstack([rhs - cons.gradient(vma, vaa, lam_rows, layout, status),
-                                     -cons.evaluate(vma, vaa, status)[cidx]])
+                    c, c_grad = cons.evaluate_with_gradient(vma, vaa, status, layout, lam_rows)
+                    rhs = np.vstack([rhs - c_grad, -c[cidx]])
                 sol = self._solve_k0(rhs)
                 self._woodbury(sol, active, group_of, groups)
                 step = np.abs(sol[:nx]).max(axis=0)
@@ -469,7 +470,7 @@ def _pool(workers: int):
         ctx = multiprocessing.get_context("fork")
     except ValueError:
         return None
-    return ctx.Pool(workers)
+    return ctx.Pool(workers, initializer=worker_setup)
 
 
 def estimate_period(
@@ -493,6 +494,7 @@ def estimate_period(
     """
     from scipy.stats import chi2
 
+    tune_allocator()
     k, m = z.shape
     n = estimator.model.network.n_bus
     vm = np.full((k, n), np.nan, np.float32)

@@ -126,3 +126,48 @@ def test_out_of_service_branch_carries_nothing(case14_solved):
     v = _values_by_tag(model, model.functions.evaluate(case14_solved.vm, case14_solved.va, status))
     bid = net.branches.index[3]
     assert v[f"{bid}:from:p_flow"] == 0.0 and v[f"{bid}:to:q_flow"] == 0.0
+
+
+def _gradient_reference(model, vm, va, layout, weights):
+    """The gradient of Σ wᵢ hᵢ(x), which is Hᵀw, by scipy's finite differences."""
+    from scipy.optimize import approx_fprime
+
+    x0 = layout.to_state(vm, va)
+    zero = np.zeros_like(vm)
+
+    def weighted_sum(x):
+        dvm, dva = layout.apply_step(zero, zero, x - x0)
+        return float(weights @ model.functions.evaluate(vm + dvm, va + dva))
+
+    return approx_fprime(x0, weighted_sum, 1e-7)
+
+
+def test_gradient_matches_jacobian_and_finite_differences(case57_solved):
+    """Hᵀw without forming H, for several states at once, with currents and with two points on
+    the same quantity (their weights add): against the analytic Jacobian and against scipy's
+    finite differences of Σ wᵢhᵢ(x) (numerical reference)."""
+    case = case57_solved
+    net = case.network
+    pts = full_point_list(net, currents=True)
+    dup = pts.iloc[[0, 2, 5]].copy()  # a P, an |I| and a Q point seen twice (two RTUs)
+    dup.index = [f"{t}:second" for t in dup.index]
+    model = MeasurementModel.from_points(net, pd.concat([pts, dup]))
+    layout = StateLayout.build(net.n_bus, [net.reference_position])
+    rng = np.random.default_rng(3)
+    k = 4
+    vm = case.vm[:, None] + rng.normal(0, 0.01, (net.n_bus, k))
+    va = case.va[:, None] + rng.normal(0, 0.02, (net.n_bus, k))
+    w = rng.normal(0, 1.0, (model.m, k))
+    h, g = model.functions.evaluate_with_gradient(vm, va, None, layout, w)
+    assert np.allclose(h, model.functions.evaluate(vm, va), rtol=0, atol=1e-12)
+    for j in range(k):
+        H = model.functions.jacobian(vm[:, j], va[:, j], layout)
+        assert np.abs(g[:, j] - H.T @ w[:, j]).max() < 1e-9 * max(1.0, np.abs(g[:, j]).max())
+    fd = _gradient_reference(model, vm[:, 0], va[:, 0], layout, w[:, 0])
+    assert np.abs(g[:, 0] - fd).max() < 1e-4 * max(1.0, np.abs(g[:, 0]).max())
+    # The weighted-residual form: w = ω ∘ (z − h(x)).
+    z = h + rng.normal(0, 0.01, h.shape)
+    omega = rng.uniform(1, 10, h.shape)
+    _, g2 = model.functions.evaluate_with_gradient(vm, va, None, layout, (z, omega))
+    _, g3 = model.functions.evaluate_with_gradient(vm, va, None, layout, omega * (z - h))
+    assert np.array_equal(g2, g3)

@@ -76,3 +76,16 @@ def test_unobservable_snapshot_falls_back_and_is_reported():
     assert not row["observable"]
     assert "cannot be estimated" in row["reason"]
     assert (result.outcomes.drop(index=3)["method"] == "block").all()
+
+
+def test_worker_setup_holds_blas_to_one_thread():
+    """Block workers run one BLAS thread each whatever the import order (threadpoolctl is the
+    reference for what the loaded BLAS libraries are set to)."""
+    from threadpoolctl import threadpool_info, threadpool_limits
+
+    from calibra.estimation.runtime import tune_allocator, worker_setup
+
+    with threadpool_limits(2):
+        worker_setup()
+        assert all(info["num_threads"] == 1 for info in threadpool_info())
+    assert tune_allocator() is True or not __import__("sys").platform.startswith("linux")
