@@ -21,6 +21,7 @@ operating point within the block is approximated (see DEVELOPERS.md for the meas
 
 from __future__ import annotations
 
+import mmap
 import multiprocessing
 import os
 import threading
@@ -28,7 +29,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import scipy.linalg as la
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
@@ -39,6 +39,8 @@ from calibra.estimation.wls import Estimator, rows_touching
 
 #: Largest number of missing measurements handled by the Woodbury update of Ω.
 MAX_WOODBURY = 400
+#: Missing sets up to this size are updated together across the block (padded arrays).
+SMALL_MISSING = 6
 
 
 @dataclass
@@ -67,6 +69,37 @@ class _MissingGroup:
     omega_diag: np.ndarray  # Ωᵢᵢ of the snapshot's pattern, over the base list
     h_missing: np.ndarray | None = None  # Hₘ (|M| × nx), dense
     q_missing: np.ndarray | None = None  # K₀⁻¹ [Hₘᵀ; 0] ((nx + nc) × |M|)
+
+
+@dataclass
+class _SmallWoodbury:
+    """Padded Woodbury factors of the groups with at most SMALL_MISSING missing measurements,
+    indexed by ``position`` (per snapshot of the block; −1: not such a group)."""
+
+    position: np.ndarray
+    h: np.ndarray  # (groups, width, nx)
+    f: np.ndarray  # (groups, width, width)
+    q: np.ndarray  # (nx + nc, groups, width)
+
+
+#: Dense inverse of the iteration matrix below this size (a matrix product is cheaper than
+#: sparse triangular solves there: IEEE 118, 255 unknowns × 360 snapshots, 1.1 ms vs 3.7 ms).
+DENSE_INVERSE_MAX = 800
+
+
+def _scaled_solver(lu, d: np.ndarray):
+    """B ↦ K₀⁻¹B from the factorization of D⁻¹K₀D⁻¹ (a dense inverse when small)."""
+    if d.size <= DENSE_INVERSE_MAX:
+        inv = lu.solve(np.diag(1.0 / d)) / d[:, None]
+
+        def solve(B: np.ndarray) -> np.ndarray:
+            return inv @ B
+    else:
+        def solve(B: np.ndarray) -> np.ndarray:
+            if B.ndim == 2:
+                return lu.solve(B / d[:, None]) / d[:, None]
+            return lu.solve(B / d) / d
+    return solve
 
 
 class BlockSolver:
@@ -189,8 +222,7 @@ class BlockSolver:
         K0 = sp.bmat([[G0, C0.T], [C0, None]], format="csc") if nc else G0
         lu = spla.splu((Dinv @ K0 @ Dinv).tocsc(), permc_spec="MMD_AT_PLUS_A",
                        diag_pivot_thresh=0.01)
-        self._solve_k0 = lambda B: lu.solve(B / (d[:, None] if B.ndim == 2 else d)) / (
-            d[:, None] if B.ndim == 2 else d)
+        self._solve_k0 = _scaled_solver(lu, d)
         U = np.zeros((nx + nc, idx.size))
         U[:nx] = (H0.T @ sp.diags(1.0 / var)).toarray()
         Q = self._solve_k0(U)  # K₀⁻¹ U W-scaled: state block is P H₀ᵀ R⁻¹
@@ -205,41 +237,74 @@ class BlockSolver:
         self._layout, self._cidx, self._nx, self._ref = layout, cidx, nx, ref
 
     def _groups(self, avail: np.ndarray) -> list[_MissingGroup]:
-        """Group snapshots by the base measurements they miss; factorize each Ωₘₘ."""
+        """Group snapshots by the base measurements they miss; factorize each Ωₘₘ.
+
+        Groups with the same number of missing measurements are factorized together (stacked
+        small matrices), which matters when most snapshots miss one or two samples.
+        """
         idx = self._idx
         miss = ~avail[:, idx]
-        keys = np.packbits(miss, axis=1)
-        _, first, inverse = np.unique(keys, axis=0, return_index=True, return_inverse=True)
+        keys = np.ascontiguousarray(np.packbits(miss, axis=1))
+        keys = keys.view(np.dtype((np.void, keys.shape[1]))).ravel()
+        _, first, inverse = np.unique(keys, return_index=True, return_inverse=True)
         inverse = inverse.ravel()
-        groups = []
-        for g, f in enumerate(first):
-            members = np.flatnonzero(inverse == g)
-            mset = np.flatnonzero(miss[f])
-            if mset.size == 0:
-                groups.append(_MissingGroup(members, mset, None, self._omega_diag))
-                continue
-            if mset.size > MAX_WOODBURY:
-                groups.append(_MissingGroup(members, mset, None, self._omega_diag))
-                continue
-            om_ma = self._omega_rows(mset)
-            om_mm = om_ma[:, mset]
-            scale = np.sqrt(self._var[mset])
-            try:
-                fac = la.cho_factor(om_mm / scale[:, None] / scale[None, :], lower=True)
-            except la.LinAlgError:
-                fac = None
-            if fac is not None and np.diag(fac[0]).min() ** 2 < CRITICAL_S:
-                fac = None  # removing M leaves the snapshot unobservable
-            if fac is None:
-                groups.append(_MissingGroup(members, mset, None, self._omega_diag))
-                continue
-            inv = la.cho_solve(fac, np.eye(mset.size)) / scale[:, None] / scale[None, :]
-            diag = self._omega_diag - np.sum(om_ma * (inv @ om_ma), axis=0)
-            groups.append(_MissingGroup(
-                members, mset, inv, np.maximum(diag, 0.0),
-                self._H0_rows(mset), self._Qw[:, mset] * self._var[mset][None, :],
-            ))
+        order = np.argsort(inverse, kind="stable")
+        bounds = np.searchsorted(inverse[order], np.arange(first.size + 1))
+        sets = [np.flatnonzero(miss[f]) for f in first]
+        groups = [_MissingGroup(order[bounds[g]:bounds[g + 1]], sets[g], None, self._omega_diag)
+                  for g in range(first.size)]
+        by_size: dict[int, list[int]] = {}
+        for g, mset in enumerate(sets):
+            if 0 < mset.size <= MAX_WOODBURY:
+                by_size.setdefault(mset.size, []).append(g)
+        for size, members in by_size.items():
+            # Batches small enough that the stacked Ω rows stay a few tens of MB.
+            batch = max(1, 4_000_000 // (size * max(idx.size, 1)))
+            for start in range(0, len(members), batch):
+                chunk = members[start:start + batch]
+                self._factorize(np.stack([sets[g] for g in chunk]), [groups[g] for g in chunk])
         return groups
+
+    def _factorize(self, M: np.ndarray, groups: list[_MissingGroup]) -> None:
+        """Ωₘₘ⁻¹ and the updated Ωᵢᵢ for groups with equally many missing measurements
+        (M: one row of base positions per group); a group whose Ωₘₘ is singular (removing M
+        leaves the snapshot unobservable) keeps ``factor`` None."""
+        G, size = M.shape
+        union, pos = np.unique(M, return_inverse=True)
+        om_ma = self._omega_rows(union)[pos.reshape(M.shape)]  # (G, size, base)
+        om_mm = om_ma[np.arange(G)[:, None, None], np.arange(size)[None, :, None],
+                      M[:, None, :]]
+        scale = np.sqrt(self._var[M])
+        S = om_mm / scale[:, :, None] / scale[:, None, :]
+        try:
+            L = np.linalg.cholesky(S)
+            ok = np.ones(G, bool)
+        except np.linalg.LinAlgError:
+            L = np.zeros_like(S)
+            ok = np.zeros(G, bool)
+            for g in range(G):
+                try:
+                    L[g] = np.linalg.cholesky(S[g])
+                    ok[g] = True
+                except np.linalg.LinAlgError:
+                    pass
+        diag_l = np.diagonal(L, axis1=1, axis2=2)
+        ok &= diag_l.min(axis=1) ** 2 >= CRITICAL_S
+        sel = np.flatnonzero(ok)
+        if sel.size == 0:
+            return
+        Linv = np.linalg.inv(L[sel])
+        inv = np.einsum("gqp,gqr->gpr", Linv, Linv)  # (LLᵀ)⁻¹ = L⁻ᵀL⁻¹
+        inv = inv / scale[sel][:, :, None] / scale[sel][:, None, :]
+        diag = self._omega_diag[None, :] - np.einsum(
+            "gpm,gpq,gqm->gm", om_ma[sel], inv, om_ma[sel], optimize=True)
+        for j, g in enumerate(sel):
+            mset = M[g]
+            grp = groups[g]
+            grp.factor = inv[j]
+            grp.omega_diag = np.maximum(diag[j], 0.0)
+            grp.h_missing = self._H0_rows(mset)
+            grp.q_missing = self._Qw[:, mset] * self._var[mset][None, :]
 
     def _H0_rows(self, rows: np.ndarray) -> np.ndarray:
         if self._H0_dense is not None:
@@ -265,8 +330,8 @@ class BlockSolver:
         group_of = np.full(k, -1, np.int64)
         for gi, g in enumerate(groups):
             group_of[g.members] = gi
-        W = np.where(avail, inv_var, 0.0).T
-        Zt = np.where(avail, Z, 0.0).T
+        W = np.ascontiguousarray(np.where(avail, inv_var, 0.0).T)
+        Zt = np.ascontiguousarray(np.where(avail, Z, 0.0).T)
         vm = np.repeat(ref.vm[:, None], k, axis=1)
         va = np.repeat(ref.va[:, None], k, axis=1)
         lost = ~ref.observability.estimated_buses
@@ -275,34 +340,34 @@ class BlockSolver:
         done = np.zeros(k, bool)
         iters = np.zeros(k, np.int64)
 
-        def iterate(active: np.ndarray) -> None:
-            accel = _Anderson(nx + nc, k)
-            for _ in range(self.max_iterations):
-                if active.size == 0:
-                    break
-                vma, vaa = vm[:, active], va[:, active]
-                _, rhs = funcs.evaluate_with_gradient(vma, vaa, status, layout,
-                                                      (Zt[:, active], W[:, active]))
-                if nc:
-                    lam_rows = np.zeros((cons.m, active.size))
-                    lam_rows[cidx] = lam[:, active]
-                    c, c_grad = cons.evaluate_with_gradient(vma, vaa, status, layout, lam_rows)
-                    rhs = np.vstack([rhs - c_grad, -c[cidx]])
-                sol = self._solve_k0(rhs)
-                self._woodbury(sol, active, group_of, groups)
-                step = np.abs(sol[:nx]).max(axis=0)
-                sol = accel.step(sol, active, nx)
-                dx = sol[:nx]
-                if nc:
-                    lam[:, active] += sol[nx:]
-                vm[:, active], va[:, active] = layout.apply_step(vma, vaa, dx)
-                iters[active] += 1
-                finished = step < self.tolerance
-                bad = ~np.isfinite(step) | (step > 10.0)
-                done[active[finished]] = True
-                active = active[~finished & ~bad]
+        self._pad_small_groups(k, groups)
+        active = np.flatnonzero(group_of >= 0)
+        accel = _Anderson(nx + nc, k)
+        for _ in range(self.max_iterations):
+            if active.size == 0:
+                break
+            vma, vaa = vm[:, active], va[:, active]
+            _, rhs = funcs.evaluate_with_gradient(vma, vaa, status, layout,
+                                                  (Zt[:, active], W[:, active]))
+            if nc:
+                lam_rows = np.zeros((cons.m, active.size))
+                lam_rows[cidx] = lam[:, active]
+                c, c_grad = cons.evaluate_with_gradient(vma, vaa, status, layout, lam_rows)
+                rhs = np.vstack([rhs - c_grad, -c[cidx]])
+            sol = self._solve_k0(rhs)
+            self._woodbury(sol, active, group_of, groups)
+            step = np.abs(sol[:nx]).max(axis=0)
+            sol = accel.step(sol, active, nx)
+            dx = sol[:nx]
+            if nc:
+                lam[:, active] += sol[nx:]
+            vm[:, active], va[:, active] = layout.apply_step(vma, vaa, dx)
+            iters[active] += 1
+            finished = step < self.tolerance
+            bad = ~np.isfinite(step) | (step > 10.0)
+            done[active[finished]] = True
+            active = active[~finished & ~bad]
 
-        iterate(np.flatnonzero(group_of >= 0))
         vm[lost], va[lost] = np.nan, np.nan
         ok = np.flatnonzero(done)
         out.vm[ok], out.va[ok] = vm[:, ok].T, va[:, ok].T
@@ -313,16 +378,46 @@ class BlockSolver:
                   groups: list[_MissingGroup]) -> None:
         """Turn K₀⁻¹b into K_s⁻¹b for snapshots missing measurements M (in place).
 
-        K_s = K₀ − Uₘ Wₘ Uₘᵀ; the Woodbury capacitance Rₘ − Hₘ P Hₘᵀ is Ωₘₘ.
+        K_s = K₀ − Uₘ Wₘ Uₘᵀ; the Woodbury capacitance Rₘ − Hₘ P Hₘᵀ is Ωₘₘ. Snapshots that
+        miss only a few measurements (the usual case: a dropped sample) are updated together
+        from padded per-snapshot arrays; larger sets group by group.
         """
         nx = self._nx
+        small = self._small_woodbury
+        if small is not None:
+            pos = small.position[active]
+            cols = np.flatnonzero(pos >= 0)
+            if cols.size:
+                p = pos[cols]
+                t = np.einsum("kpn,nk->kp", small.h[p], sol[:nx, cols])
+                t = np.einsum("kpq,kq->kp", small.f[p], t)
+                sol[:, cols] += np.einsum("dkp,kp->dk", small.q[:, p], t)
         gids = group_of[active]
         for gi in np.unique(gids):
             g = groups[gi]
-            if g.factor is None:
+            if g.factor is None or g.missing.size <= SMALL_MISSING:
                 continue
             cols = np.flatnonzero(gids == gi)
             sol[:, cols] += g.q_missing @ (g.factor @ (g.h_missing @ sol[:nx, cols]))
+
+    def _pad_small_groups(self, k: int, groups: list[_MissingGroup]) -> None:
+        """Per-snapshot padded Hₘ, Ωₘₘ⁻¹ and K₀⁻¹Uₘ for the groups with few missing
+        measurements (zero padding leaves the update unchanged)."""
+        small = [g for g in groups if g.factor is not None and g.missing.size <= SMALL_MISSING]
+        if not small:
+            self._small_woodbury = None
+            return
+        width = max(g.missing.size for g in small)
+        dim = self._nx + self._cidx.size
+        h = np.zeros((len(small), width, self._nx))
+        f = np.zeros((len(small), width, width))
+        q = np.zeros((dim, len(small), width))
+        position = np.full(k, -1, np.int64)
+        for j, g in enumerate(small):
+            w = g.missing.size
+            h[j, :w], f[j, :w, :w], q[:, j, :w] = g.h_missing, g.factor, g.q_missing
+            position[g.members] = j
+        self._small_woodbury = _SmallWoodbury(position, h, f, q)
 
     # ------------------------------------------------------------------ residual statistics
     def _residuals(self, Z, avail, groups, single, out: BlockResult) -> None:
@@ -365,49 +460,43 @@ class _Anderson:
     converges linearly; mixing the last steps — s = f − (ΔY + ΔF)γ with γ minimising
     ‖f − ΔF γ‖ over the state rows — speeds it up without moving the fixed point, so the
     converged states are the same. A column whose mixed step is far larger than its plain
-    step keeps the plain step.
+    step keeps the plain step. All active columns start together and leave when converged, so
+    they share one history length (kept in ring buffers).
     """
 
     def __init__(self, dim: int, k: int, depth: int = 3):
         self.depth = depth
         self.prev_f = np.zeros((dim, k))
-        self.df: list[np.ndarray] = []
-        self.dy: list[np.ndarray] = []
         self.prev_s = np.zeros((dim, k))
-        self.started = np.zeros(k, bool)
+        self.df = np.zeros((depth, dim, k))  # ring buffers of ΔF and ΔY + ΔF
+        self.dyf = np.zeros((depth, dim, k))
+        self.count = 0  # steps taken
 
     def step(self, f: np.ndarray, active: np.ndarray, rows: int) -> np.ndarray:
         """The step to apply for the active columns (f: their plain steps)."""
-        if self.started[active].all() and self.df:
-            self.df.append(np.zeros_like(self.prev_f))
-            self.dy.append(np.zeros_like(self.prev_f))
-            self.df[-1][:, active] = f - self.prev_f[:, active]
-            self.dy[-1][:, active] = self.prev_s[:, active]
-        elif self.started[active].all():
-            self.df = [np.zeros_like(self.prev_f)]
-            self.dy = [np.zeros_like(self.prev_f)]
-            self.df[0][:, active] = f - self.prev_f[:, active]
-            self.dy[0][:, active] = self.prev_s[:, active]
-        self.df, self.dy = self.df[-self.depth:], self.dy[-self.depth:]
         s = f
-        if self.df and self.started[active].all():
-            D = np.stack([d[:rows, active] for d in self.df])  # (m, rows, ka)
+        if self.count:
+            slot = (self.count - 1) % self.depth
+            df = f - self.prev_f[:, active]
+            self.df[slot][:, active] = df
+            self.dyf[slot][:, active] = self.prev_s[:, active] + df
+            used = min(self.count, self.depth)
+            D = self.df[:used][:, :rows][:, :, active]  # (used, rows, ka)
             G = np.einsum("pdj,qdj->jpq", D, D)
             b = np.einsum("pdj,dj->jp", D, f[:rows])
             reg = 1e-10 * np.maximum(np.trace(G, axis1=1, axis2=2), 1e-300)
-            G = G + reg[:, None, None] * np.eye(len(self.df))[None]
+            G = G + reg[:, None, None] * np.eye(used)[None]
             try:
-                gamma = np.linalg.solve(G, b[..., None])[..., 0]  # (ka, m)
+                gamma = np.linalg.solve(G, b[..., None])[..., 0]  # (ka, used)
             except np.linalg.LinAlgError:
-                gamma = np.zeros((active.size, len(self.df)))
-            mix = sum((self.dy[p][:, active] + self.df[p][:, active]) * gamma[:, p]
-                      for p in range(len(self.df)))
+                gamma = np.zeros((active.size, used))
+            mix = np.einsum("pdj,jp->dj", self.dyf[:used][:, :, active], gamma)
             s = f - mix
             wild = np.abs(s[:rows]).max(axis=0) > 10 * np.abs(f[:rows]).max(axis=0) + 1e-12
             s[:, wild] = f[:, wild]
         self.prev_f[:, active] = f
         self.prev_s[:, active] = s
-        self.started[active] = True
+        self.count += 1
         return s
 
 
@@ -446,14 +535,29 @@ def topology_runs(in_service: np.ndarray, max_block: int,
     return runs
 
 
-_WORK: dict = {}  # inherited by forked block workers: estimator, z, in_service, settings
+_WORK: dict = {}  # inherited by forked block workers: estimator, z, in_service, settings, out
 
 
-def _solve_run(run: tuple[int, int]) -> tuple[int, int, BlockResult]:
+def _solve_run(run: tuple[int, int]) -> tuple[int, int, pd.DataFrame]:
+    """Solve one block and write its arrays into the period's output (shared with the parent
+    process when in a worker), returning only the outcomes table."""
     a, b = run
     w = _WORK
     solver = BlockSolver(w["estimator"], w["in_service"][a], tolerance=w["tolerance"])
-    return a, b, solver.solve(w["z"][a:b], w["confidence"])
+    block = solver.solve(w["z"][a:b], w["confidence"])
+    vm, va, res, om = w["out"]
+    vm[a:b], va[a:b], res[a:b], om[a:b] = block.vm, block.va, block.residual, block.omega
+    return a, b, block.outcomes
+
+
+def _output_array(shape: tuple[int, int], shared: bool) -> np.ndarray:
+    """A float32 array for period results; in memory shared with forked workers (an anonymous
+    shared mapping) when ``shared``, so blocks are written in place instead of sent back."""
+    if not shared:
+        return np.empty(shape, np.float32)
+    size = int(np.prod(shape)) * 4
+    buf = mmap.mmap(-1, max(size, 1), flags=mmap.MAP_SHARED)
+    return np.frombuffer(buf, np.float32, count=int(np.prod(shape))).reshape(shape)
 
 
 def default_workers() -> int:
@@ -461,16 +565,17 @@ def default_workers() -> int:
     return max(1, min(4, os.cpu_count() or 1))
 
 
-def _pool(workers: int):
-    """A fork-based process pool, or None where forking is unsafe or unavailable (not the main
-    thread — the desktop application's worker thread — or no fork on this platform)."""
+def _can_fork(workers: int) -> bool:
+    """Whether blocks may run in forked worker processes: more than one worker, called from the
+    main thread (not the desktop application's worker thread) and fork available."""
     if workers <= 1 or threading.current_thread() is not threading.main_thread():
-        return None
-    try:
-        ctx = multiprocessing.get_context("fork")
-    except ValueError:
-        return None
-    return ctx.Pool(workers, initializer=worker_setup)
+        return False
+    return "fork" in multiprocessing.get_all_start_methods()
+
+
+def _pool(workers: int):
+    """A fork-based process pool (check :func:`_can_fork` first)."""
+    return multiprocessing.get_context("fork").Pool(workers, initializer=worker_setup)
 
 
 def estimate_period(
@@ -497,21 +602,22 @@ def estimate_period(
     tune_allocator()
     k, m = z.shape
     n = estimator.model.network.n_bus
-    vm = np.full((k, n), np.nan, np.float32)
-    va = np.full((k, n), np.nan, np.float32)
-    res = np.full((k, m), np.nan, np.float32)
-    om = np.full((k, m), np.nan, np.float32)
     runs = topology_runs(in_service, max_block, index)
+    workers = default_workers() if workers is None else workers
+    parallel = len(runs) > 1 and _can_fork(workers)
+    # The runs cover every snapshot once, so every row of the outputs is written.
+    vm, va = (_output_array((k, n), parallel) for _ in range(2))
+    res, om = (_output_array((k, m), parallel) for _ in range(2))
     frames: dict[int, pd.DataFrame] = {}
     _WORK.update(estimator=estimator, z=z, in_service=in_service, tolerance=tolerance,
-                 confidence=confidence)
-    pool = _pool(default_workers() if workers is None else workers) if len(runs) > 1 else None
+                 confidence=confidence, out=(vm, va, res, om))
+    pool = None
     done = 0
     try:
+        pool = _pool(workers) if parallel else None  # forked now: inherits _WORK
         results = pool.imap_unordered(_solve_run, runs) if pool else map(_solve_run, runs)
-        for a, b, block in results:
-            vm[a:b], va[a:b], res[a:b], om[a:b] = block.vm, block.va, block.residual, block.omega
-            frames[a] = block.outcomes
+        for a, b, block_outcomes in results:
+            frames[a] = block_outcomes
             done += b - a
             if progress is not None:
                 progress.update(done, k, "estimating snapshots")
