@@ -29,6 +29,7 @@ from calibra.cluster.period import (
     corrections_from_records,
     prepare_period,
 )
+from calibra.estimation.runtime import tune_allocator
 from calibra.estimation.week import estimate_period
 from calibra.io import load_site
 from calibra.io.point_list import POINTS_FILE
@@ -44,7 +45,6 @@ MAX_CACHED = 2
 
 _CACHE: OrderedDict[tuple, PreparedPeriod] = OrderedDict()
 _LOCK = threading.Lock()
-_ALLOCATOR = {"tuned": False}
 
 
 @dataclass(frozen=True)
@@ -97,30 +97,6 @@ def worker_name() -> str:
 def worker_version() -> str:
     """The calibra version installed where this runs (the client compares it with its own)."""
     return calibra.__version__
-
-
-def tune_allocator() -> bool:
-    """Undo the effect of ``MALLOC_TRIM_THRESHOLD_`` on this worker process (glibc only).
-
-    Dask's nanny starts workers with ``MALLOC_TRIM_THRESHOLD_=65536`` so that freed memory goes
-    back to the system at once. Setting it turns off glibc's adaptive thresholds, so every
-    large temporary array of the block iteration is mapped and unmapped again: measured here,
-    one day of IEEE 118 took 2.5-3× longer (800,000 page faults instead of 36,000). The
-    thresholds are set back to where the adaptive rule settles on 64-bit glibc (mmap 32 MiB,
-    trim 64 MiB; mallopt(3)). Returns whether they were changed.
-    """
-    if _ALLOCATOR["tuned"] or "MALLOC_TRIM_THRESHOLD_" not in os.environ:
-        return False
-    _ALLOCATOR["tuned"] = True
-    try:
-        import ctypes
-
-        libc = ctypes.CDLL("libc.so.6")
-        m_trim_threshold, m_mmap_threshold = -1, -3  # from glibc's malloc.h
-        return bool(libc.mallopt(m_mmap_threshold, 32 << 20)
-                    and libc.mallopt(m_trim_threshold, 64 << 20))
-    except (OSError, AttributeError):
-        return False
 
 
 def _url_files(location: str) -> tuple[object, str, list[tuple[str, str, dict]]]:

@@ -177,14 +177,15 @@ class MeasurementFunctions:
         return h
 
     def evaluate_with_gradient(self, vm: np.ndarray, va: np.ndarray, in_service, state,
-                               weights) -> tuple[np.ndarray, np.ndarray]:
+                               weights, phasors: np.ndarray | None = None,
+                               ) -> tuple[np.ndarray, np.ndarray]:
         """h(x) and Hᵀ·w in one pass (the terminal currents are computed once).
 
         ``weights`` is either an (m, k) array w, or a pair (z, ω) for the weighted residual
-        w = ω ∘ (z − h(x)), which needs h first.
+        w = ω ∘ (z − h(x)), which needs h first. ``phasors``: exp(jθ) when already known.
         """
         _, T, TH = self._admittance_operator(in_service)
-        Vn = _unit_phasors(va)
+        Vn = unit_phasors(va) if phasors is None else phasors
         V = vm * Vn
         current = T @ V
         h = self._from_currents(V, current, vm)
@@ -382,8 +383,8 @@ class MeasurementFunctions:
         self._gather = g
 
 
-def _unit_phasors(va: np.ndarray) -> np.ndarray:
-    """exp(jθ), from cos and sin (cheaper than the complex exponential)."""
+def unit_phasors(va: np.ndarray) -> np.ndarray:
+    """exp(jθ) of bus angles, from cos and sin (cheaper than the complex exponential)."""
     out = np.empty(va.shape, complex)
     np.cos(va, out=out.real)
     np.sin(va, out=out.imag)

@@ -32,7 +32,7 @@ import pandas as pd
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from calibra.estimation.measurements import StateLayout
+from calibra.estimation.measurements import StateLayout, unit_phasors
 from calibra.estimation.residuals import CRITICAL_S, analyse_residuals
 from calibra.estimation.runtime import tune_allocator, worker_setup
 from calibra.estimation.wls import Estimator, rows_touching
@@ -152,13 +152,11 @@ class BlockSolver:
             self._solve_partial_groups(Z, rest, confidence, out, rows, single)
         for i in np.flatnonzero(single):
             rows[i] = self._single(i, Z[i], confidence, out)
-        sigma2 = model.sigma_pu ** 2
-        for i in range(k):
-            used = np.isfinite(out.residual[i])
-            rows[i]["n_used"] = int(used.sum())
-            rows[i]["objective"] = float(np.sum(out.residual[i][used].astype(float) ** 2
-                                                / sigma2[used]))
         out.outcomes = pd.DataFrame(rows)
+        res = out.residual.astype(float)
+        used = np.isfinite(res)
+        out.outcomes["n_used"] = used.sum(axis=1)
+        out.outcomes["objective"] = np.where(used, res, 0.0) ** 2 @ (1.0 / model.sigma_pu ** 2)
         return out
 
     def _solve_partial_groups(self, Z, rest, confidence, out: BlockResult, rows, single) -> None:
@@ -347,12 +345,14 @@ class BlockSolver:
             if active.size == 0:
                 break
             vma, vaa = vm[:, active], va[:, active]
+            phasors = unit_phasors(vaa)
             _, rhs = funcs.evaluate_with_gradient(vma, vaa, status, layout,
-                                                  (Zt[:, active], W[:, active]))
+                                                  (Zt[:, active], W[:, active]), phasors)
             if nc:
                 lam_rows = np.zeros((cons.m, active.size))
                 lam_rows[cidx] = lam[:, active]
-                c, c_grad = cons.evaluate_with_gradient(vma, vaa, status, layout, lam_rows)
+                c, c_grad = cons.evaluate_with_gradient(vma, vaa, status, layout, lam_rows,
+                                                        phasors)
                 rhs = np.vstack([rhs - c_grad, -c[cidx]])
             sol = self._solve_k0(rhs)
             self._woodbury(sol, active, group_of, groups)
