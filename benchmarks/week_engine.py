@@ -4,8 +4,9 @@ Cases (built here, side by side in one process): the sample site; IEEE 118 (pypo
 with a full measurement set (P/Q at both branch ends, injections, voltages) and a week of
 one-minute snapshots; IEEE 300 (case300); a ~2,000-bus network of 17 joined IEEE 118 copies with
 2,016 five-minute snapshots. Each case reports the engine's time for estimation with normalized
-residuals (Ω per snapshot), per snapshot and in all, the growth of the main process's peak
-resident memory during the estimate (worker processes not included), and the ratio to
+residuals (Ω per snapshot), per snapshot and in all, the peak memory of the process tree during
+the estimate (proportional set size of the main process and its block workers, which includes
+the case's data; see process_memory.py), and the ratio to
 (a) a plain per-snapshot sparse Gauss-Newton loop and (b) scipy.optimize.least_squares, both
 timed on a sample of the same snapshots and scaled to the period.
 
@@ -21,6 +22,7 @@ import numpy as np
 import pandas as pd
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
+from process_memory import PeakMemory  # benchmarks/ is on the path when run as a script
 from scipy.optimize import least_squares
 
 import calibra  # noqa: F401  (single-threaded BLAS)
@@ -108,38 +110,17 @@ def scipy_lsq(model: MeasurementModel, z: np.ndarray, status: np.ndarray) -> Non
                   tr_solver="lsmr", xtol=1e-10, ftol=1e-10, gtol=1e-10)
 
 
-def _peak_rss_mb() -> float:
-    """This process's peak resident memory (Linux VmHWM), in MB."""
-    for line in open("/proc/self/status", encoding="ascii"):
-        if line.startswith("VmHWM:"):
-            return int(line.split()[1]) / 1024
-    return float("nan")
-
-
-def _reset_peak_rss() -> float:
-    """Reset the peak to the current resident size (Linux clear_refs 5); returns it in MB."""
-    try:
-        with open("/proc/self/clear_refs", "w", encoding="ascii") as f:
-            f.write("5")
-    except OSError:
-        pass
-    for line in open("/proc/self/status", encoding="ascii"):
-        if line.startswith("VmRSS:"):
-            return int(line.split()[1]) / 1024
-    return float("nan")
-
-
 def run_case(case: str, workers: int | None) -> dict:
     site, what = build(case)
     model = MeasurementModel.from_points(site.network, site.points)
     z = model.to_per_unit(site.snapshots.reindex(columns=model.tags).to_numpy(float))
     status = topology_per_snapshot(site)
     k = len(z)
-    base = _reset_peak_rss()
-    t = time.perf_counter()
-    period = estimate_period(Estimator(model), z, status, workers=workers)
-    engine = time.perf_counter() - t
-    peak = _peak_rss_mb() - base
+    with PeakMemory(interval=0.05) as peak:
+        t = time.perf_counter()
+        period = estimate_period(Estimator(model), z, status, index=site.snapshots.index,
+                                 workers=workers)
+        engine = time.perf_counter() - t
     sample = np.linspace(0, k - 1, min(40, k)).astype(int)
     t = time.perf_counter()
     for i in sample:
@@ -148,7 +129,8 @@ def run_case(case: str, workers: int | None) -> dict:
         except RuntimeError:  # singular gain matrix: the plain loop has no observability step
             pass
     plain = (time.perf_counter() - t) / len(sample)
-    few = sample[:: max(1, len(sample) // 4)][:4] if case != "2000" else sample[:1]
+    # least_squares takes about a minute per snapshot on case300: fewer samples there.
+    few = sample[:: max(1, len(sample) // 4)][:4] if case in ("sample", "118") else sample[:1]
     t = time.perf_counter()
     for i in few:
         scipy_lsq(model, z[i], status[i])
@@ -156,7 +138,7 @@ def run_case(case: str, workers: int | None) -> dict:
     per = engine / k
     return {"case": case, "what": what, "measurements": model.m, "snapshots": k,
             "engine_s": round(engine, 1), "engine_ms_per": round(1e3 * per, 3),
-            "peak_rss_growth_MB": round(peak),
+            "peak_MB": round(peak.peak_mb),
             "converged_%": round(100 * float(period.outcomes["converged"].mean()), 2),
             "plain_GN_ms_per": round(1e3 * plain, 2), "vs_plain": round(plain / per, 1),
             "lsq_ms_per": round(1e3 * lsq, 1), "vs_lsq": round(lsq / per)}

@@ -129,15 +129,20 @@ def load_for_command(folder: Path, start: str | None = None,
     except ValueError as exc:  # a --from/--to that is not a time
         raise UsageError(str(exc)) from exc
     except SiteLoadError as exc:
-        for problem in exc.problems:
-            print(problem)
-        print(f"result: not usable ({_tally(exc.problems)}); see 'calibra check {folder}'")
+        report_unusable(folder, exc)
         return None
     for line in format_summary(site):
         print(line)
     if site.problems:
         print(f"load: {_tally(site.problems)} (listed by 'calibra check {folder}')")
     return site
+
+
+def report_unusable(folder: Path, exc: SiteLoadError) -> None:
+    """Print the problems that make a site unusable and the verdict line."""
+    for problem in exc.problems:
+        print(problem)
+    print(f"result: not usable ({_tally(exc.problems)}); see 'calibra check {folder}'")
 
 
 def period_arguments(parser: argparse.ArgumentParser) -> None:

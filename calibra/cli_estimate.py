@@ -1,19 +1,24 @@
-"""``calibra estimate SITE``: estimate every snapshot and summarise the outcome."""
+"""``calibra estimate SITE``: estimate every snapshot, day by day, and summarise the outcome."""
 
 from __future__ import annotations
 
 import argparse
-import time
 from pathlib import Path
 
 import numpy as np
 
-from calibra.cli import EXIT_OK, EXIT_UNUSABLE, load_for_command, parse_period, period_arguments
-from calibra.estimation.model import MeasurementModel
-from calibra.estimation.site_estimate import checked_topology
-from calibra.estimation.week import estimate_period
-from calibra.estimation.wls import Estimator
-from calibra.model.availability import availability_lines
+from calibra.cli import (
+    EXIT_OK,
+    EXIT_UNUSABLE,
+    UsageError,
+    _site_folder,
+    _tally,
+    format_summary,
+    period_arguments,
+    report_unusable,
+)
+from calibra.estimation.daywise import RN_SCREEN, estimate_by_day
+from calibra.model.site import SiteLoadError
 from calibra.progress import terminal_progress
 
 
@@ -24,49 +29,53 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="confidence level of the chi-square test (default 0.99)")
     parser.add_argument("--worst", type=int, default=10,
                         help="how many points with the largest normalized residuals to list")
+    parser.add_argument("--out", type=Path, default=None, metavar="DIR",
+                        help="write each day's normalized residuals (Parquet) and snapshot "
+                             "outcomes (CSV) to this folder")
 
 
 def run(args: argparse.Namespace) -> int:
-    site = load_for_command(args.site, args.start, args.end)
-    if site is None:
+    folder = _site_folder(args.site)
+    try:
+        summary = estimate_by_day(folder, args.start, args.end, out_dir=args.out,
+                                  confidence=args.confidence, progress=terminal_progress())
+    except ValueError as exc:  # a --from/--to that is not a time
+        raise UsageError(str(exc)) from exc
+    except SiteLoadError as exc:
+        report_unusable(folder, exc)
         return EXIT_UNUSABLE
-    start, end = parse_period(site, args)
-    snaps = site.snapshots.loc[start:end]
-    if snaps.empty:
+    for line in format_summary(summary.site)[:3]:
+        print(line)
+    if summary.problems:
+        print(f"load: {_tally(summary.problems)} (listed by 'calibra check {folder}')")
+    for line in summary.availability:
+        print(line)
+    for conflict in summary.conflicts:
+        print(f"status point contradicted: {conflict}")
+    k = summary.snapshots
+    if k == 0:
         print("result: no snapshots in the period")
         return EXIT_UNUSABLE
-    for line in availability_lines(site):
-        print(line)
-    model = MeasurementModel.from_points(site.network, site.points)
-    z = model.to_per_unit(snaps.reindex(columns=model.tags).to_numpy(float))
-    t0 = time.perf_counter()
-    status, conflicts = checked_topology(site, snaps)
-    for conflict in conflicts:
-        print(f"status point contradicted: {conflict.describe(site.timezone)}")
-    period = estimate_period(Estimator(model), z, status, snaps.index,
-                             confidence=args.confidence, progress=terminal_progress())
-    elapsed = time.perf_counter() - t0
-    out = period.outcomes
-    conv = out["converged"].astype(bool)
-    k = len(out)
-    print(f"estimated {k} snapshots in {elapsed:.1f} s ({1e3 * elapsed / k:.2f} ms each)")
-    print(f"converged: {int(conv.sum())} ({100 * conv.mean():.1f}%); "
-          f"in blocks {int((out['method'] == 'block').sum())}, "
-          f"alone {int((out['method'] == 'single').sum())}")
-    failed = (~out.loc[conv, "chi2_passed"].astype(bool)).sum()
-    print(f"chi-square test at {100 * args.confidence:g}%: failed in {int(failed)} of "
-          f"{int(conv.sum())} converged snapshots ({100 * failed / max(conv.sum(), 1):.1f}%)")
-    partial = (~out["observable"].astype(bool)).sum()
-    if partial:
-        print(f"not fully observable: {int(partial)} snapshots")
-    for reason, count in out.loc[~conv, "reason"].value_counts().items():
+    conv = summary.converged
+    days = f"{summary.days} UTC day" + "s" * (summary.days != 1)
+    print(f"estimated {k} snapshots ({days}, one at a time) in "
+          f"{summary.seconds:.1f} s ({1e3 * summary.seconds / k:.2f} ms each, reading included)")
+    print(f"converged: {conv} ({100 * conv / k:.1f}%); in blocks {summary.in_blocks}, "
+          f"alone {summary.alone}")
+    print(f"chi-square test at {100 * args.confidence:g}%: failed in {summary.chi2_failed} of "
+          f"{conv} converged snapshots ({100 * summary.chi2_failed / max(conv, 1):.1f}%)")
+    if summary.not_observable:
+        print(f"not fully observable: {summary.not_observable} snapshots")
+    for reason, count in summary.reasons.most_common():
         print(f"  not converged ({count}): {reason}")
-    with np.errstate(divide="ignore", invalid="ignore"):
-        rn = np.abs(period.residual) / np.sqrt(period.omega)
-    med = np.nanmedian(np.where(np.isfinite(rn), rn, np.nan), axis=0) if k else np.array([])
-    order = [i for i in np.argsort(-np.nan_to_num(med, nan=-1.0)) if np.isfinite(med[i])]
-    if order and args.worst > 0:
-        print("largest median normalized residuals (a first hint; 'calibra review' diagnoses):")
-        for i in order[: args.worst]:
-            print(f"  {model.tags[i]:<28} {med[i]:8.1f}")
+    table = summary.points.frame()
+    table = table[np.isfinite(table["median_abs_rn"])]
+    table = table.sort_values(["median_abs_rn", "share_beyond"], ascending=False)
+    if len(table) and args.worst > 0:
+        print("largest median |normalized residual| (a first hint; 'calibra review' diagnoses):")
+        print(f"  {'point':<28} {'median':>8} {f'> {RN_SCREEN:g}':>8}")
+        for tag, row in table.head(args.worst).iterrows():
+            print(f"  {tag:<28} {row['median_abs_rn']:8.1f} {100 * row['share_beyond']:7.0f}%")
+    if args.out is not None:
+        print(f"results: {len(summary.files)} files in {args.out}")
     return EXIT_OK

@@ -69,7 +69,7 @@ def load_site(
     network, buses, branches = _read_network(folder, config, log)
     points, point_rows = read_points(folder, buses, branches, log)
     timezone = config.timezone if config is not None else "UTC"
-    period = _period(start, end, timezone)
+    period = resolve_period(start, end, timezone)
     snapshots = read_snapshots(folder, points, timezone, log, required=require_snapshots,
                                period=period, limit=limit or None)
     if points is not None and snapshots is not None and len(snapshots.index):
@@ -80,7 +80,7 @@ def load_site(
     return Site(folder, config.name, config.timezone, network, points, snapshots, log.items)
 
 
-def _period(start, end, timezone: str) -> tuple[pd.Timestamp | None, ...] | None:
+def resolve_period(start, end, timezone: str) -> tuple[pd.Timestamp | None, ...] | None:
     """The period as UTC times (naive ones in the site's timezone); None when open."""
     if start is None and end is None:
         return None

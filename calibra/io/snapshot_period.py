@@ -189,12 +189,18 @@ def plan_parquet(path: Path, rel: str, timezone: str, period: Period,
 def read_parquet_rows(plan: FilePlan) -> pd.DataFrame:
     """Second pass: the kept rows of a Parquet file, timestamp column first."""
     parquet = pq.ParquetFile(plan.path)
-    kept, start = [], 0
-    for batch in parquet.iter_batches(batch_size=CHUNK_ROWS):
-        wanted = plan.keep[start:start + batch.num_rows]
-        if wanted.any():
-            kept.append(batch.filter(pa.array(wanted)))
-        start += batch.num_rows
+    sizes = [parquet.metadata.row_group(g).num_rows for g in range(parquet.num_row_groups)]
+    starts = np.r_[0, np.cumsum(sizes)].astype(np.int64)
+    # Only the row groups that hold a kept row are read (a day out of a month-long file).
+    groups = [g for g in range(len(sizes)) if plan.keep[starts[g]:starts[g + 1]].any()]
+    kept = []
+    for g in groups:
+        start = int(starts[g])
+        for batch in parquet.iter_batches(batch_size=CHUNK_ROWS, row_groups=[g]):
+            wanted = plan.keep[start:start + batch.num_rows]
+            if wanted.any():
+                kept.append(batch.filter(pa.array(wanted)))
+            start += batch.num_rows
     table = pa.Table.from_batches(kept, schema=parquet.schema_arrow).to_pandas(
         ignore_metadata=True)
     order = [plan.index_column, *(k for k in range(table.shape[1]) if k != plan.index_column)]

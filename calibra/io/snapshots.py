@@ -127,6 +127,23 @@ def read_snapshots(
     return merged
 
 
+def snapshot_times(folder: Path, timezone: str) -> pd.DatetimeIndex:
+    """Every snapshot time of the site's files (UTC, sorted, without repeats), reading only the
+    timestamp columns: the days a long history covers, before any value is read. Problems are
+    left to the loader (times that cannot be parsed are skipped here)."""
+    log = ProblemLog()
+    times = []
+    for path in snapshot_files(folder, log):
+        planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
+        plan = planner(path, _rel(path), timezone, (None, None), log)
+        if plan is not None:
+            times.append(plan.times[plan.times.notna()])
+    if not times:
+        return pd.DatetimeIndex([], tz="UTC", name="timestamp")
+    out = times[0].append(times[1:]) if len(times) > 1 else times[0]
+    return out.unique().sort_values().rename("timestamp")
+
+
 def _rel(path: Path) -> str:
     return f"{SNAPSHOT_DIR}/{path.name}"
 

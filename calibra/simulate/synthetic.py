@@ -21,7 +21,10 @@ TIE_R, TIE_X, TIE_B = 0.005, 0.04, 0.01
 
 def joined_copies(ppc: dict, copies: int, ties_per_join: int = 2, seed: int = 0,
                   name: str | None = None) -> GridCase:
-    """``copies`` copies of the case, each joined to the next by ``ties_per_join`` tie lines."""
+    """``copies`` copies of the case (at most 100), each joined to the next by
+    ``ties_per_join`` tie lines."""
+    if not 1 <= copies <= 100:
+        raise ValueError("between 1 and 100 copies")
     base = grid_case_from_matpower(ppc)
     net = base.network
     rng = np.random.default_rng(seed)
@@ -34,7 +37,8 @@ def joined_copies(ppc: dict, copies: int, ties_per_join: int = 2, seed: int = 0,
 
         b = net.buses.copy()
         b.index = [rid(x) for x in b.index]
-        b["substation"] = [f"C{c}-{s}" for s in net.buses["substation"]]
+        # A fixed-width copy number keeps tag prefixes apart ("C01-11" vs "C11-1").
+        b["substation"] = [f"C{c:02d}-{s}" for s in net.buses["substation"]]
         b["name"] = b.index
         buses.append(b)
         br = net.branches.copy()
