@@ -164,6 +164,9 @@ def _read_period(
         return None
     read = []
     for plan in plans:
+        if not plan.keep.any():  # nothing of this file lies in the period
+            read.append((plan.rel, None))
+            continue
         if plan.path.name.lower().endswith(".parquet"):
             table = read_parquet_rows(plan)
         else:
