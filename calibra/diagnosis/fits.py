@@ -112,13 +112,13 @@ def find_stuck_runs(z: np.ndarray, y: np.ndarray, resolution: float, min_length:
     if z.size < min_length:
         return []
     same = np.abs(np.diff(z)) <= resolution
+    # A run ends wherever z changes; runs are [starts[r], stops[r]).
+    breaks = np.flatnonzero(~same) + 1
+    starts = np.r_[0, breaks]
+    stops = np.r_[breaks, z.size]
+    long = stops - starts >= min_length
     runs = []
-    start = 0
-    for i in range(1, z.size + 1):
-        if i == z.size or not same[i - 1]:
-            if i - start >= min_length:
-                seg = y[start:i]
-                if np.ptp(seg) > min_implied_spread:
-                    runs.append(StuckRun(start, i, float(np.median(z[start:i]))))
-            start = i
+    for a, b in zip(starts[long], stops[long], strict=True):
+        if np.ptp(y[a:b]) > min_implied_spread:
+            runs.append(StuckRun(int(a), int(b), float(np.median(z[a:b]))))
     return runs

@@ -20,6 +20,7 @@ from calibra.diagnosis.mismap import (
     unit_family,
 )
 from calibra.diagnosis.redundancy import suggest_meter
+from calibra.estimation.runtime import fork_map
 from calibra.model.points import analog_points
 from calibra.model.site import Site
 from calibra.progress import Progress
@@ -68,8 +69,10 @@ def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSe
 
 def _classify_all(site: Site, ev: WeekEvidence, settings: ClassifySettings) -> dict:
     t_days = ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
-    return {str(ev.model.tags[i]): classify_point(_series(site, ev, t_days, i), settings)
-            for i in range(ev.model.m)}
+    # Points are independent: classified on the worker processes where possible.
+    found = fork_map(lambda i: classify_point(_series(site, ev, t_days, i), settings),
+                     range(ev.model.m))
+    return {str(ev.model.tags[i]): d for i, d in enumerate(found)}
 
 
 def _chunk_t(d: np.ndarray, chunks: int = 24) -> float:

@@ -15,12 +15,17 @@ from __future__ import annotations
 import numpy as np
 
 from calibra.estimation.residuals import residual_correlation
+from calibra.estimation.runtime import fork_map
 from calibra.estimation.wls import Estimator
 
 #: Candidates of one cluster tried by elimination (strongest first).
 CLUSTER_SIZE = 4
 #: Residual correlation above which a candidate belongs to the strongest suspect's cluster.
 CLUSTER_CORRELATION = 0.02
+#: Convergence tolerance of probe estimates (pu / rad). Near the optimum the objective's error
+#: is second order in the state's: 1e-6 leaves J(x̂) exact to far below the differences of
+#: about one per snapshot that decide between units.
+PROBE_TOLERANCE = 1e-6
 
 
 def probe_objective(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
@@ -31,7 +36,7 @@ def probe_objective(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
     for j, (zi, status) in enumerate(zip(z, in_service, strict=True)):
         start = starts[j] if starts is not None else None
         est = estimator.estimate(np.where(removed, np.nan, zi), None, status, start=start,
-                                 keep_jacobian=False)
+                                 keep_jacobian=False, tolerance=PROBE_TOLERANCE)
         if est.converged:
             total += est.objective
         else:
@@ -103,7 +108,7 @@ def _units(cluster: list[int], device_of: np.ndarray, available: np.ndarray) -> 
 def _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base, status0,
                starts):
     """The unit whose removal lowers the probe objective most (smaller units win near-ties)."""
-    scored = []
+    trials = []
     for u in units:
         removed = set_aside.copy()
         removed[picked] = True
@@ -112,10 +117,14 @@ def _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base,
             continue
         if len(units) == 1:
             return u
-        scored.append((probe_objective(estimator, probe_z, probe_status, removed, starts),
-                       len(u), u))
-    if not scored:
+        trials.append((u, removed))
+    if not trials:
         return None
+    # Each unit's probe estimates are independent: on the worker processes where possible.
+    objectives = fork_map(
+        lambda trial: probe_objective(estimator, probe_z, probe_status, trial[1], starts),
+        trials)
+    scored = [(obj, len(u), u) for obj, (u, _) in zip(objectives, trials, strict=True)]
     best = min(scored, key=lambda s: s[0])
     # Removing a healthy point lowers J by about one per snapshot: a smaller unit within that
     # allowance of the best one is preferred.

@@ -17,7 +17,11 @@ from __future__ import annotations
 
 import ctypes
 import ctypes.util
+import multiprocessing
+import os
 import sys
+import threading
+from collections.abc import Callable, Iterable
 
 # glibc mallopt parameters (malloc.h).
 _M_TRIM_THRESHOLD = -1
@@ -62,3 +66,48 @@ def worker_setup() -> None:
     """Initializer of block worker processes."""
     tune_allocator()
     single_threaded_blas()
+
+
+def default_workers() -> int:
+    """Worker processes for parallel work: the machine's cores, at most 4."""
+    return max(1, min(4, os.cpu_count() or 1))
+
+
+def can_fork(workers: int) -> bool:
+    """Whether work may go to forked worker processes: more than one worker, called from the
+    main thread (not the desktop application's worker thread), not from inside a worker, and
+    fork available on this platform."""
+    if workers <= 1 or threading.current_thread() is not threading.main_thread():
+        return False
+    if multiprocessing.current_process().daemon:
+        return False
+    return "fork" in multiprocessing.get_all_start_methods()
+
+
+def fork_pool(workers: int):
+    """A fork-based process pool (check :func:`can_fork` first); the workers inherit the
+    parent's memory as it is now, and are set up by :func:`worker_setup`."""
+    return multiprocessing.get_context("fork").Pool(workers, initializer=worker_setup)
+
+
+_TASK: dict = {}  # inherited by forked workers of fork_map: the function and the items
+
+
+def _call(i: int):
+    return _TASK["fn"](_TASK["items"][i])
+
+
+def fork_map(fn: Callable, items: Iterable, workers: int | None = None) -> list:
+    """``[fn(x) for x in items]``, on forked worker processes where that is possible (see
+    :func:`can_fork`), else in this process. ``fn`` and the items are inherited by the workers,
+    not sent; only the results travel back (they must pickle). Same results either way."""
+    items = list(items)
+    workers = min(default_workers() if workers is None else workers, len(items))
+    if not can_fork(workers):
+        return [fn(x) for x in items]
+    _TASK.update(fn=fn, items=items)
+    try:
+        with fork_pool(workers) as pool:
+            return pool.map(_call, range(len(items)), chunksize=max(1, len(items) // (4 * workers)))
+    finally:
+        _TASK.clear()

@@ -22,9 +22,6 @@ operating point within the block is approximated (see DEVELOPERS.md for the meas
 from __future__ import annotations
 
 import mmap
-import multiprocessing
-import os
-import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -33,8 +30,8 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
 from calibra.estimation.measurements import StateLayout, unit_phasors
-from calibra.estimation.residuals import CRITICAL_S, analyse_residuals
-from calibra.estimation.runtime import tune_allocator, worker_setup
+from calibra.estimation.residuals import CRITICAL_S, analyse_residuals, chi_square_threshold
+from calibra.estimation.runtime import can_fork, default_workers, fork_pool, tune_allocator
 from calibra.estimation.wls import Estimator, rows_touching
 
 #: Largest number of missing measurements handled by the Woodbury update of Ω.
@@ -197,7 +194,9 @@ class BlockSolver:
         middle = np.abs(np.arange(len(count)) - (len(count) - 1) / 2)
         order = np.lexsort((middle, -count))
         for cand in order[:5]:
-            est = self.estimator.estimate(Z[cand], None, self.status)
+            # The reference only sets the iteration matrix: the block's tolerance is enough.
+            est = self.estimator.estimate(Z[cand], None, self.status,
+                                          tolerance=max(self.tolerance, 1e-8))
             if est.converged and (self.partial or est.observability.observable):
                 return est
         return None
@@ -560,24 +559,6 @@ def _output_array(shape: tuple[int, int], shared: bool) -> np.ndarray:
     return np.frombuffer(buf, np.float32, count=int(np.prod(shape))).reshape(shape)
 
 
-def default_workers() -> int:
-    """Worker processes for block estimation: the machine's cores, at most 4."""
-    return max(1, min(4, os.cpu_count() or 1))
-
-
-def _can_fork(workers: int) -> bool:
-    """Whether blocks may run in forked worker processes: more than one worker, called from the
-    main thread (not the desktop application's worker thread) and fork available."""
-    if workers <= 1 or threading.current_thread() is not threading.main_thread():
-        return False
-    return "fork" in multiprocessing.get_all_start_methods()
-
-
-def _pool(workers: int):
-    """A fork-based process pool (check :func:`_can_fork` first)."""
-    return multiprocessing.get_context("fork").Pool(workers, initializer=worker_setup)
-
-
 def estimate_period(
     estimator: Estimator,
     z: np.ndarray,
@@ -597,14 +578,12 @@ def estimate_period(
     solved the same way wherever it runs, so the results do not depend on the number of
     workers. ``tolerance`` is the largest state update accepted as converged.
     """
-    from scipy.stats import chi2
-
     tune_allocator()
     k, m = z.shape
     n = estimator.model.network.n_bus
     runs = topology_runs(in_service, max_block, index)
     workers = default_workers() if workers is None else workers
-    parallel = len(runs) > 1 and _can_fork(workers)
+    parallel = len(runs) > 1 and can_fork(workers)
     # The runs cover every snapshot once, so every row of the outputs is written.
     vm, va = (_output_array((k, n), parallel) for _ in range(2))
     res, om = (_output_array((k, m), parallel) for _ in range(2))
@@ -614,7 +593,7 @@ def estimate_period(
     pool = None
     done = 0
     try:
-        pool = _pool(workers) if parallel else None  # forked now: inherits _WORK
+        pool = fork_pool(workers) if parallel else None  # forked now: inherits _WORK
         results = pool.imap_unordered(_solve_run, runs) if pool else map(_solve_run, runs)
         for a, b, block_outcomes in results:
             frames[a] = block_outcomes
@@ -630,7 +609,7 @@ def estimate_period(
         if frames else pd.DataFrame()
     if len(outcomes):
         dof = outcomes["dof"].clip(lower=1)
-        outcomes["chi2_threshold"] = chi2.ppf(confidence, dof)
+        outcomes["chi2_threshold"] = chi_square_threshold(confidence, dof.to_numpy(float))
         outcomes["chi2_passed"] = outcomes["objective"] <= outcomes["chi2_threshold"]
         outcomes.loc[~outcomes["converged"].astype(bool), "chi2_passed"] = False
     idx = index if index is not None else pd.RangeIndex(k, name="snapshot")

@@ -125,9 +125,12 @@ class Estimator:
         in_service: np.ndarray | None = None,
         start: tuple[np.ndarray, np.ndarray] | None = None,
         keep_jacobian: bool = True,
+        tolerance: float | None = None,
     ) -> SnapshotEstimate:
-        """Estimate the state from measurements ``z`` in per unit (NaN = missing)."""
+        """Estimate the state from measurements ``z`` in per unit (NaN = missing);
+        ``tolerance`` overrides the options' largest state update accepted as converged."""
         model, opt = self.model, self.options
+        tol = opt.tolerance if tolerance is None else tolerance
         net = model.network
         n = net.n_bus
         z = np.asarray(z, float)
@@ -191,8 +194,8 @@ class Estimator:
                     break
                 # Converged, or stalled at round-off level (gross errors can leave the last
                 # steps hovering just above the tolerance).
-                stalled = it >= 10 and step < 100 * opt.tolerance and step >= 0.5 * last_step
-                if (step < opt.tolerance or stalled) and (not opt.robust or it > 2):
+                stalled = it >= 10 and step < 100 * tol and step >= 0.5 * last_step
+                if (step < tol or stalled) and (not opt.robust or it > 2):
                     converged = True
                     break
                 last_step = step

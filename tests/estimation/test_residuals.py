@@ -119,3 +119,13 @@ def test_minimal_redundancy_cannot_single_out_a_meter(case57_solved):
     first = out.removed[0]
     assert first.index in (i_from, i_to)
     assert {first.index, *first.indistinguishable_from} >= {i_from, i_to}
+
+
+def test_chi_square_threshold_matches_published_table():
+    """Upper critical values of the chi-square distribution, NIST/SEMATECH e-Handbook of
+    Statistical Methods, section 1.3.6.7.4 (table values to 3 decimals)."""
+    from calibra.estimation.residuals import chi_square_threshold
+
+    for confidence, dof, published in ((0.95, 10, 18.307), (0.99, 1, 6.635),
+                                       (0.99, 30, 50.892), (0.95, 100, 124.342)):
+        assert abs(chi_square_threshold(confidence, dof) - published) < 5e-4

@@ -81,3 +81,31 @@ def test_tuned_process_stops_faulting_freed_memory_back_in():
     # 50 rounds of ~10 MB: without tuning thousands of faults (pages come back each round);
     # tuned, the heap keeps them (measured here: about 2,200 vs 0).
     assert int(tuned) * 10 < int(untuned)
+
+
+def test_fork_map_gives_the_serial_results_and_falls_back_off_the_main_thread():
+    """Work spread over forked workers returns what a plain loop returns, in order; from a
+    thread other than the main one (the desktop application's worker) it runs in place."""
+    import threading
+
+    import numpy as np
+
+    from calibra.estimation.runtime import can_fork, fork_map
+
+    data = np.random.default_rng(1).normal(size=(7, 50))
+
+    def work(i):
+        return float(np.linalg.norm(data[i])), i
+
+    serial = [work(i) for i in range(7)]
+    assert fork_map(work, range(7), workers=2) == serial
+    from_thread = {}
+
+    def in_thread():
+        from_thread["forkable"] = can_fork(2)
+        from_thread["result"] = fork_map(work, range(7), workers=2)
+
+    t = threading.Thread(target=in_thread)
+    t.start()
+    t.join()
+    assert from_thread == {"forkable": False, "result": serial}
