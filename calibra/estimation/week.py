@@ -38,6 +38,11 @@ from calibra.estimation.wls import Estimator, rows_touching
 MAX_WOODBURY = 400
 #: Missing sets up to this size are updated together across the block (padded arrays).
 SMALL_MISSING = 6
+#: Entries per chunk when Hᵢ P Hᵢᵀ is summed over rows of H (bounds a temporary array).
+OMEGA_CHUNK = 4_000_000
+#: Bytes of one complex (m × columns) array above which a block iterates its snapshots in
+#: column chunks (large networks: keeps temporaries in reused memory and caches).
+COLUMN_CHUNK_BYTES = 16 * 2**20
 
 
 @dataclass
@@ -97,6 +102,25 @@ def _scaled_solver(lu, d: np.ndarray):
                 return lu.solve(B / d[:, None]) / d[:, None]
             return lu.solve(B / d) / d
     return solve
+
+
+def _quadratic_diagonal(H: sp.csr_matrix, P: np.ndarray) -> np.ndarray:
+    """diag(H P Hᵀ) for a sparse H with few nonzeros per row: Σⱼₗ Hᵢⱼ Pⱼₗ Hᵢₗ over each row's
+    own columns (O(m·r²) for r nonzeros per row, instead of the O(nnz·n) of H @ P)."""
+    H = H.tocsr()
+    H.sum_duplicates()
+    counts = np.diff(H.indptr)
+    out = np.zeros(H.shape[0])
+    for r in np.unique(counts[counts > 0]):
+        rows = np.flatnonzero(counts == r)
+        step = max(1, OMEGA_CHUNK // int(r * r))
+        for a in range(0, rows.size, step):
+            sel = rows[a:a + step]
+            pos = H.indptr[sel][:, None] + np.arange(r)[None, :]
+            cols, vals = H.indices[pos], H.data[pos]
+            block = P[cols[:, :, None], cols[:, None, :]]  # (rows, r, r)
+            out[sel] = np.einsum("ij,ijl,il->i", vals, block, vals)
+    return out
 
 
 class BlockSolver:
@@ -220,17 +244,20 @@ class BlockSolver:
         lu = spla.splu((Dinv @ K0 @ Dinv).tocsc(), permc_spec="MMD_AT_PLUS_A",
                        diag_pivot_thresh=0.01)
         self._solve_k0 = _scaled_solver(lu, d)
-        U = np.zeros((nx + nc, idx.size))
-        U[:nx] = (H0.T @ sp.diags(1.0 / var)).toarray()
-        Q = self._solve_k0(U)  # K₀⁻¹ U W-scaled: state block is P H₀ᵀ R⁻¹
-        self._Qw = Q  # columns: K₀⁻¹ [H₀ᵀ R⁻¹]ᵢ
-        self._HP = (Q[:nx] * var[None, :]).T  # rows H₀ᵢ P (idx × nx)
+        # K₀⁻¹'s state columns: its top block is the state covariance P of the constrained
+        # problem. Everything the block needs follows from it and H₀: Ωᵢᵢ = Rᵢᵢ − H₀ᵢ P H₀ᵢᵀ,
+        # rows of Ω on demand, and K₀⁻¹[H₀ₘᵀ; 0] for the Woodbury updates — an (nx + nc) × nx
+        # array rather than (nx + nc) × m (on a 2,000-bus network, 0.13 GB instead of 0.6 GB).
+        E = np.zeros((nx + nc, nx))
+        E[np.arange(nx), np.arange(nx)] = 1.0
+        self._K0_state = self._solve_k0(E)
+        P = self._K0_state[:nx]
         self._H0 = H0
         # A dense copy makes row access cheap; only when it stays small.
         self._H0_dense = H0.toarray() if idx.size * nx <= 5_000_000 else None
         self._var = var
         self._idx = idx
-        self._omega_diag = var - np.asarray((H0.multiply(self._HP)).sum(axis=1)).ravel()
+        self._omega_diag = var - _quadratic_diagonal(H0, P)
         self._layout, self._cidx, self._nx, self._ref = layout, cidx, nx, ref
 
     def _groups(self, avail: np.ndarray) -> list[_MissingGroup]:
@@ -301,7 +328,8 @@ class BlockSolver:
             grp.factor = inv[j]
             grp.omega_diag = np.maximum(diag[j], 0.0)
             grp.h_missing = self._H0_rows(mset)
-            grp.q_missing = self._Qw[:, mset] * self._var[mset][None, :]
+            # K₀⁻¹ [H₀ₘᵀ; 0] from the sparse rows (a few nonzeros each).
+            grp.q_missing = (self._H0[mset] @ self._K0_state.T).T
 
     def _H0_rows(self, rows: np.ndarray) -> np.ndarray:
         if self._H0_dense is not None:
@@ -310,17 +338,16 @@ class BlockSolver:
 
     def _omega_rows(self, rows: np.ndarray) -> np.ndarray:
         """Rows of Ω = R − H P Hᵀ over the base list."""
-        om = -(self._H0 @ self._HP[rows].T).T
+        hp = self._H0_rows(rows) @ self._K0_state[:self._nx]  # rows H₀ᵢ P
+        om = -(self._H0 @ hp.T).T
         om[np.arange(rows.size), rows] += self._var[rows]
         return om
 
     # ------------------------------------------------------------------ block iteration
     def _iterate(self, Z: np.ndarray, avail: np.ndarray, groups: list[_MissingGroup],
                  out: BlockResult):
-        model, status, layout = self.model, self.status, self._layout
-        funcs, cons = model.functions, model.constraints
-        nx, cidx = self._nx, self._cidx
-        nc = cidx.size
+        model = self.model
+        nc = self._cidx.size
         ref = self._ref
         k = Z.shape[0]
         inv_var = 1.0 / model.sigma_pu ** 2
@@ -338,8 +365,25 @@ class BlockSolver:
         iters = np.zeros(k, np.int64)
 
         self._pad_small_groups(k, groups)
-        active = np.flatnonzero(group_of >= 0)
-        accel = _Anderson(nx + nc, k)
+        members = np.flatnonzero(group_of >= 0)
+        # Snapshots are independent: on a large network they go through in column chunks.
+        width = max(8, COLUMN_CHUNK_BYTES // (16 * max(model.m, len(model.network.buses))))
+        for c0 in range(0, members.size, width):
+            self._iterate_columns(members[c0:c0 + width], group_of, groups, Zt, W, vm, va, lam,
+                                  done, iters)
+        vm[lost], va[lost] = np.nan, np.nan
+        ok = np.flatnonzero(done)
+        out.vm[ok], out.va[ok] = vm[:, ok].T, va[:, ok].T
+        self._states = (vm, va)  # float64, for residuals
+        return done, iters
+
+    def _iterate_columns(self, active, group_of, groups, Zt, W, vm, va, lam, done, iters):
+        """The fixed-matrix iteration for the snapshots ``active`` (updated in place)."""
+        model, status, layout = self.model, self.status, self._layout
+        funcs, cons = model.functions, model.constraints
+        nx, cidx = self._nx, self._cidx
+        nc = cidx.size
+        accel = _Anderson(nx + nc, vm.shape[1])
         for _ in range(self.max_iterations):
             if active.size == 0:
                 break
@@ -366,12 +410,6 @@ class BlockSolver:
             bad = ~np.isfinite(step) | (step > 10.0)
             done[active[finished]] = True
             active = active[~finished & ~bad]
-
-        vm[lost], va[lost] = np.nan, np.nan
-        ok = np.flatnonzero(done)
-        out.vm[ok], out.va[ok] = vm[:, ok].T, va[:, ok].T
-        self._states = (vm, va)  # float64, for residuals
-        return done, iters
 
     def _woodbury(self, sol: np.ndarray, active: np.ndarray, group_of: np.ndarray,
                   groups: list[_MissingGroup]) -> None:
