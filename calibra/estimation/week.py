@@ -266,7 +266,8 @@ class BlockSolver:
         return None
 
     def _prepare(self, ref, base: np.ndarray) -> None:
-        """Iteration matrix K₀ at the reference state, K₀⁻¹'s state columns and Ωᵢᵢ for the base set."""
+        """Iteration matrix K₀ at the reference state, K₀⁻¹'s state columns and Ωᵢᵢ of the
+        base set."""
         model, status = self.model, self.status
         funcs, cons = model.functions, model.constraints
         layout: StateLayout = ref.layout
