@@ -244,8 +244,8 @@ class MeasurementFunctions:
     def jacobian_values(self, vm, va, state: StateLayout, in_service=None) -> np.ndarray:
         """Values of the Jacobian nonzeros, in the order of :meth:`jacobian_pattern`."""
         y, T, _ = self._admittance_operator(in_service)
-        V = vm * np.exp(1j * va)
         Vn = np.exp(1j * va)
+        V = vm * Vn
         tm = self.terminals
         current = T @ V
         col = tm.entry_col
@@ -287,14 +287,6 @@ class MeasurementFunctions:
             self._operator_cache.clear()
         self._operator_cache[key] = (y, T, TH)
         return y, T, TH
-
-    def gradient(self, vm: np.ndarray, va: np.ndarray, weighted: np.ndarray,
-                 state: StateLayout, in_service=None) -> np.ndarray:
-        """Hᵀ·w for states (n, k) and row weights ``weighted`` (m, k), without forming H."""
-        _, T, TH = self._admittance_operator(in_service)
-        Vn = np.exp(1j * va)
-        V = vm * Vn
-        return self._gradient(vm, V, Vn, T @ V, weighted, state, TH)
 
     def _gradient(self, vm, V, Vn, current, weighted, state: StateLayout, TH) -> np.ndarray:
         """Hᵀ·w from the terminal currents.

@@ -89,14 +89,18 @@ class PointActions:
         tag = self.w.current_tag
         return self._do("marked reversed", lambda: self.w.ledger.mark_reversed(tag))
 
+    def _ask_fitted(self, column: str, default: float, title: str, prompt: str) -> float | None:
+        """Ask for a number, offering the finding's fitted ``column`` (else ``default``)."""
+        row = self._finding()
+        fitted = row.get(column) if row is not None else None
+        start = float(fitted) if fitted is not None and pd.notna(fitted) else default
+        return self.w.prompts.number(title, prompt, start)
+
     def apply_scale(self, factor: float | None = None) -> bool:
         tag = self.w.current_tag
         if factor is None and tag is not None:
-            row = self._finding()
-            fitted = row.get("factor") if row is not None else None
-            start = float(fitted) if fitted is not None and pd.notna(fitted) else 1.0
-            factor = self.w.prompts.number("Apply scale factor",
-                                           f"{tag} reads factor × the true value; factor:", start)
+            factor = self._ask_fitted("factor", 1.0, "Apply scale factor",
+                                      f"{tag} reads factor × the true value; factor:")
             if factor is None:
                 return False
         return self._do(f"scale factor {factor:g} applied",
@@ -105,11 +109,8 @@ class PointActions:
     def apply_offset(self, offset: float | None = None) -> bool:
         tag = self.w.current_tag
         if offset is None and tag is not None:
-            row = self._finding()
-            fitted = row.get("offset") if row is not None else None
-            start = float(fitted) if fitted is not None and pd.notna(fitted) else 0.0
-            offset = self.w.prompts.number("Apply offset",
-                                           f"{tag} reads the true value plus; offset:", start)
+            offset = self._ask_fitted("offset", 0.0, "Apply offset",
+                                      f"{tag} reads the true value plus; offset:")
             if offset is None:
                 return False
         return self._do(f"offset {offset:+g} applied",
