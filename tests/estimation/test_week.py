@@ -114,6 +114,9 @@ def test_state_columns_from_dense_cholesky_equal_a_sparse_solve(case118_solved):
     E = np.zeros((nx + nc, nx))
     E[np.arange(nx), np.arange(nx)] = 1.0
     reference = spla.spsolve(K, E)
-    ours = _state_columns(G, C)
-    assert ours is not None
+    blocks = _state_columns(G, C)
+    assert blocks is not None
+    P, M = blocks
+    assert P.flags.c_contiguous and np.abs(P - P.T).max() <= 1e-12 * np.abs(P).max()
+    ours = np.vstack([P, M])
     assert np.abs(ours - reference).max() <= 1e-8 * np.abs(reference).max()
