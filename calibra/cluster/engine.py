@@ -148,6 +148,10 @@ class ClusterEngine:
                         progress.update(done, total, "estimating on the cluster")
         except BaseException:
             client.cancel([f for f in futures if f.status != "finished"])
+            # Finished days not yet collected too: the traceback keeps this frame (and the
+            # futures) alive until a garbage collection, and with them the days' results.
+            for f in futures:
+                f.release()
             raise
         return results
 
