@@ -25,9 +25,7 @@ from calibra.estimation.model import MeasurementModel
 from calibra.estimation.site_estimate import checked_topology
 from calibra.estimation.week import PeriodResult, estimate_period
 from calibra.estimation.wls import Estimator
-from calibra.io import load_site
-from calibra.io.site_folder import resolve_period
-from calibra.io.snapshots import snapshot_times
+from calibra.io.site_folder import open_history, resolve_period
 from calibra.model.availability import availability_lines
 from calibra.model.site import LoadProblem, Site
 
@@ -175,23 +173,23 @@ def estimate_by_day(
     Raises :class:`calibra.model.site.SiteLoadError` when the site or a day cannot be loaded,
     ValueError when ``start``/``end`` is not a time.
     """
-    folder = Path(folder)
-    # The network and point list first (no snapshots: an instant before any history).
-    epoch = pd.Timestamp(0, tz="UTC")
-    base = load_site(folder, require_snapshots=False, start=epoch, end=epoch)
+    # The network, the point list and every file's times once; then one day's rows at a time.
+    history = open_history(folder)
+    base = history.base
     start, end = resolve_period(start, end, base.timezone) or (None, None)
     model = MeasurementModel.from_points(base.network, base.points)
     estimator = Estimator(model)
-    days = utc_days(snapshot_times(folder, base.timezone), start, end)
+    days = utc_days(history.times(), start, end)
     summary = DaywiseSummary(site=base, points=PointTally(pd.Index(model.tags)))
-    seen: set[str] = set()
+    summary.problems += base.problems
+    seen: set[str] = {str(p) for p in base.problems}
     out = Path(out_dir) if out_dir is not None else None
     if out is not None:
         (out / "normalized_residuals").mkdir(parents=True, exist_ok=True)
         (out / "snapshots").mkdir(parents=True, exist_ok=True)
     t0 = time.perf_counter()
     for i, (a, b) in enumerate(days):
-        site = load_site(folder, start=a, end=b)
+        site = history.load(a, b)
         for problem in site.problems:
             if str(problem) not in seen:
                 seen.add(str(problem))

@@ -10,6 +10,7 @@ count) stay in ``Site.problems``.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -20,9 +21,10 @@ from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE, read_branches, 
 from calibra.io.point_list import POINTS_FILE, read_points
 from calibra.io.problems import ProblemLog
 from calibra.io.site_config import SITE_FILE, SiteConfig, read_site_config
+from calibra.io.snapshot_period import FilePlan
 from calibra.io.snapshot_size import MEMORY_LIMIT_ENV
 from calibra.io.snapshot_size import memory_limit as default_memory_limit
-from calibra.io.snapshots import read_snapshots
+from calibra.io.snapshots import empty_snapshots, plan_files, read_snapshots, snapshot_times
 from calibra.io.text_files import read_text
 from calibra.model.network import Network
 from calibra.model.points import QUANTITIES
@@ -57,6 +59,16 @@ def load_site(
     """
     folder = Path(path)
     log = ProblemLog()
+    config, network, points, point_rows, limit = _read_base(folder, memory_limit, log)
+    timezone = config.timezone if config is not None else "UTC"
+    period = resolve_period(start, end, timezone)
+    snapshots = read_snapshots(folder, points, timezone, log, required=require_snapshots,
+                               period=period, limit=limit or None)
+    return _site(folder, config, network, points, point_rows, snapshots, log, strict)
+
+
+def _read_base(folder: Path, memory_limit: int | None, log: ProblemLog):
+    """Configuration, network, point list (with their rows) and the snapshot memory limit."""
     if not folder.is_dir():
         log.error(".", None, None, f"site folder '{folder}' not found")
         raise SiteLoadError(log.items)
@@ -68,16 +80,65 @@ def load_site(
     config = read_site_config(folder, log)
     network, buses, branches = _read_network(folder, config, log)
     points, point_rows = read_points(folder, buses, branches, log)
-    timezone = config.timezone if config is not None else "UTC"
-    period = resolve_period(start, end, timezone)
-    snapshots = read_snapshots(folder, points, timezone, log, required=require_snapshots,
-                               period=period, limit=limit or None)
+    return config, network, points, point_rows, limit
+
+
+def _site(folder: Path, config, network, points, point_rows, snapshots, log: ProblemLog,
+          strict: bool = False) -> Site:
+    """The Site, or SiteLoadError when anything needed is missing or any problem is an error
+    (with ``strict``, any problem at all)."""
     if points is not None and snapshots is not None and len(snapshots.index):
         _report_points_without_data(points, point_rows, snapshots, log)
     unusable = log.has_errors or (strict and log.items)
     if unusable or config is None or network is None or points is None or snapshots is None:
         raise SiteLoadError(log.items)
     return Site(folder, config.name, config.timezone, network, points, snapshots, log.items)
+
+
+@dataclass
+class SiteHistory:
+    """A site folder opened once to be read period after period (a long history, day by
+    day): the configuration, network and point list are read once and every snapshot file's
+    times once; :meth:`load` then reads only the rows of a period. ``base`` is the site
+    without snapshots, with the problems found while opening."""
+
+    base: Site
+    config: SiteConfig
+    point_rows: pd.Series
+    plans: list[FilePlan]
+    limit: int | None
+
+    def times(self) -> pd.DatetimeIndex:
+        """Every snapshot time of the files (UTC, sorted, without repeats)."""
+        return snapshot_times(self.base.path, self.base.timezone, self.plans)
+
+    def load(self, start: pd.Timestamp | str | None,
+             end: pd.Timestamp | str | None) -> Site:
+        """The site with the snapshots from ``start`` to ``end`` (both included; naive times
+        in the site's timezone), as :func:`load_site` would read them; problems found while
+        opening are in ``base`` only. Raises SiteLoadError, or ValueError for a bad time."""
+        base = self.base
+        period = resolve_period(start, end, base.timezone)
+        if period is None:
+            raise ValueError("a period is needed: a start, an end or both")
+        log = ProblemLog()
+        snapshots = read_snapshots(base.path, base.points, base.timezone, log, required=False,
+                                   period=period, limit=self.limit or None, plans=self.plans)
+        return _site(base.path, self.config, base.network, base.points, self.point_rows,
+                     snapshots, log)
+
+
+def open_history(path: str | Path, *, memory_limit: int | None = None) -> SiteHistory:
+    """Open a site folder for reading its snapshots period by period (see SiteHistory).
+    Raises SiteLoadError when the configuration, network, point list or a snapshot file's
+    times have errors."""
+    folder = Path(path)
+    log = ProblemLog()
+    config, network, points, point_rows, limit = _read_base(folder, memory_limit, log)
+    plans = plan_files(folder, config.timezone if config is not None else "UTC", log)
+    empty = empty_snapshots(points.index) if points is not None else None
+    base = _site(folder, config, network, points, point_rows, empty, log)
+    return SiteHistory(base, config, point_rows, plans, limit)
 
 
 def resolve_period(start, end, timezone: str) -> tuple[pd.Timestamp | None, ...] | None:

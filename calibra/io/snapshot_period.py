@@ -14,7 +14,7 @@ import csv
 import gzip
 import io
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -51,6 +51,13 @@ class FilePlan:
     encoding: str = "utf-8-sig"
     dialect: Dialect = Dialect()
     index_column: int = 0  # Parquet: position of the timestamp column in the file
+    untimed: np.ndarray | None = None  # rows whose time cell is empty (kept in every period)
+
+    def within(self, period: Period) -> FilePlan:
+        """The same file planned for another period (the times are not read again)."""
+        inside = in_period(self.times, period)
+        untimed = self.untimed if self.untimed is not None else np.zeros(inside.size, bool)
+        return replace(self, keep=inside | untimed, in_period=int(inside.sum()))
 
 
 def in_period(times: pd.DatetimeIndex, period: Period) -> np.ndarray:
@@ -76,8 +83,9 @@ def _plan(path: Path, rel: str, names: list[str], stamps: pd.Series, timezone: s
     rows = np.arange(2, len(stamps) + 2)
     times = parse_times(stamps.reset_index(drop=True), rows, timezone, file=rel, log=log)
     inside = in_period(times, period)
-    keep = inside | (np.asarray(times.isna()) & _stamp_empty(stamps))
-    return FilePlan(path, rel, names, times, keep, int(inside.sum()), **extra)
+    untimed = np.asarray(times.isna()) & _stamp_empty(stamps)
+    return FilePlan(path, rel, names, times, inside | untimed, int(inside.sum()),
+                    untimed=untimed, **extra)
 
 
 # ----------------------------------------------------------------------------- CSV

@@ -70,6 +70,7 @@ def read_snapshots(
     required: bool = True,
     period: Period | None = None,
     limit: int | None = None,
+    plans: list[FilePlan] | None = None,
 ) -> pd.DataFrame | None:
     """All snapshot files as one frame: tz-aware UTC index ``timestamp``, one float64 column
     per point of ``points`` (all NaN when a point has no column), rows in time order.
@@ -81,8 +82,10 @@ def read_snapshots(
     than ``limit`` bytes is refused before any value is read (see
     :mod:`calibra.io.snapshot_size`). Returns None when nothing usable was found and
     snapshots are ``required``, or when the table is refused (an error is logged).
+    ``plans``: the files' first passes made before (:func:`plan_files`; with a ``period``),
+    so that reading period after period does not read the times again.
     """
-    files = snapshot_files(folder, log)
+    files = snapshot_files(folder, log) if plans is None else [p.path for p in plans]
     tags = points.index if points is not None else pd.Index([])
     if not files:
         if required:
@@ -102,7 +105,7 @@ def read_snapshots(
         read = [(_rel(path), _read_file(path, _rel(path), quantities, timezone, log))
                 for path in files]
     else:
-        read = _read_period(files, quantities, len(tags), timezone, period, limit, log)
+        read = _read_period(files, quantities, len(tags), timezone, period, limit, log, plans)
         if read is None:
             return None
     frames = [(rel, frame) for rel, frame in read if frame is not None and len(frame)]
@@ -127,17 +130,28 @@ def read_snapshots(
     return merged
 
 
-def snapshot_times(folder: Path, timezone: str) -> pd.DatetimeIndex:
-    """Every snapshot time of the site's files (UTC, sorted, without repeats), reading only the
-    timestamp columns: the days a long history covers, before any value is read. Problems are
-    left to the loader (times that cannot be parsed are skipped here)."""
-    log = ProblemLog()
-    times = []
+def plan_files(folder: Path, timezone: str, log: ProblemLog,
+               period: Period = (None, None)) -> list[FilePlan]:
+    """The first pass over every snapshot file (its header and times; problems logged);
+    files that cannot be read are left out."""
+    plans = []
     for path in snapshot_files(folder, log):
         planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
-        plan = planner(path, _rel(path), timezone, (None, None), log)
+        plan = planner(path, _rel(path), timezone, period, log)
         if plan is not None:
-            times.append(plan.times[plan.times.notna()])
+            plans.append(plan)
+    return plans
+
+
+def snapshot_times(folder: Path, timezone: str,
+                   plans: list[FilePlan] | None = None) -> pd.DatetimeIndex:
+    """Every snapshot time of the site's files (UTC, sorted, without repeats), reading only the
+    timestamp columns (or taken from ``plans``): the days a long history covers, before any
+    value is read. Problems are left to the loader (times that cannot be parsed are skipped
+    here)."""
+    if plans is None:
+        plans = plan_files(folder, timezone, ProblemLog())
+    times = [plan.times[plan.times.notna()] for plan in plans]
     if not times:
         return pd.DatetimeIndex([], tz="UTC", name="timestamp")
     out = times[0].append(times[1:]) if len(times) > 1 else times[0]
@@ -151,14 +165,19 @@ def _rel(path: Path) -> str:
 def _read_period(
     files: list[Path], quantities: pd.Series | None, points: int, timezone: str,
     period: Period, limit: int | None, log: ProblemLog,
+    planned: list[FilePlan] | None = None,
 ) -> list[tuple[str, pd.DataFrame | None]] | None:
-    """The files' rows in ``period``: times first, the size check, then the kept rows."""
-    plans: list[FilePlan] = []
-    for path in files:
-        planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
-        plan = planner(path, _rel(path), timezone, period, log)
-        if plan is not None:
-            plans.append(plan)
+    """The files' rows in ``period``: times first (or the ``planned`` ones), the size check,
+    then the kept rows."""
+    if planned is not None:
+        plans = [plan.within(period) for plan in planned]
+    else:
+        plans = []
+        for path in files:
+            planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
+            plan = planner(path, _rel(path), timezone, period, log)
+            if plan is not None:
+                plans.append(plan)
     kept = [FileRows(p.rel, p.in_period, True) for p in plans]
     if refuse_if_too_large(kept, points, limit, log, period=_describe(period)):
         return None

@@ -104,3 +104,21 @@ def test_estimate_command_summarises_and_writes_results(tmp_path, capsys):
 def test_estimate_command_refuses_a_bad_time(capsys):
     assert main(["estimate", str(SAMPLE), "--from", "not a time"]) == 2
     assert "not a time" in capsys.readouterr().err
+
+
+def test_history_opened_once_reads_each_period_as_a_load_would():
+    """The reader behind ``estimate_by_day`` plans the files once; each period it reads must
+    equal ``load_site(start=, end=)`` of that period (common practice, no source)."""
+    from calibra.io.site_folder import open_history
+
+    history = open_history(SAMPLE)
+    whole = load_site(SAMPLE)
+    assert history.times().equals(whole.snapshots.index.rename("timestamp"))
+    assert history.base.snapshots.empty
+    for a, b in utc_days(history.times(), pd.Timestamp(START, tz=whole.timezone),
+                         pd.Timestamp(END, tz=whole.timezone)):
+        part = history.load(a, b)
+        reference = load_site(SAMPLE, start=a, end=b)
+        pd.testing.assert_frame_equal(part.snapshots, reference.snapshots)
+    with pytest.raises(ValueError):
+        history.load(None, None)

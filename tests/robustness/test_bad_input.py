@@ -24,6 +24,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from calibra.cli import main
+from calibra.io.site_folder import open_history
 from calibra.model.site import Site, SiteLoadError
 from tests.robustness.damage import one_mutation, stacked
 from tests.robustness.file_mutations import assert_same
@@ -132,6 +133,14 @@ def test_a_period_loads_the_rows_a_whole_load_has_in_it(data):
         first, last = (None if t is None else (t.tz_localize(whole.timezone)
                        if t.tzinfo is None else t).tz_convert("UTC") for t in (first, last))
         assert_same(part.snapshots, whole.snapshots.loc[first:last])
+    if part is not None and (start is not None or end is not None):
+        # Opened once and read by period (a long history day by day): the same rows, and
+        # the same problems between what opening found and what the period's read found.
+        history = open_history(root)
+        again = history.load(start, end)
+        assert_same(again.snapshots, part.snapshots)
+        assert sorted(map(str, history.base.problems + again.problems)) == \
+            sorted(map(str, part.problems))
 
 
 def _run(argv: list[str]) -> tuple[int, str]:
