@@ -151,12 +151,17 @@ class _Stage:
             self.progress.cancel()
 
 
-def _device_index(site: Site, model: MeasurementModel) -> np.ndarray:
-    """Device number of each power-flow/injection point (-1 for other quantities)."""
+POWER_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection")
+
+
+def _device_index(site: Site, model: MeasurementModel) -> tuple[np.ndarray, np.ndarray]:
+    """Device number of each point fed by a CT with others — power flows and injections and
+    current magnitudes (−1 for other quantities) — and which points are power channels."""
     pts = site.points.loc[model.tags]
-    power = pts["quantity"].isin(("p_flow", "q_flow", "p_injection", "q_injection")).to_numpy()
+    power = pts["quantity"].isin(POWER_QUANTITIES).to_numpy()
+    fed = power | (pts["quantity"] == "i_magnitude").to_numpy()
     codes, _ = pd.factorize(pts["device"].astype(str))
-    return np.where(power, codes, -1)
+    return np.where(fed, codes, -1), power
 
 
 def gather_evidence(
@@ -191,7 +196,7 @@ def gather_evidence(
     z_sub, ins_sub = z[sub], in_service[sub]
     engine = engine or LocalEngine(estimator, z, in_service, snaps.index)
     probe = np.unique(np.linspace(0, len(sub) - 1, min(st.probe_snapshots, len(sub))).astype(int))
-    device_of = _device_index(site, model)
+    device_of, power = _device_index(site, model)
     for rnd in range(st.max_rounds if screen else 0):
         if progress is not None:
             progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
@@ -213,7 +218,7 @@ def gather_evidence(
                    np.nan_to_num(period.va[j].astype(float))) for j in probe]
         picked = pick_suspects(estimator, rep, cand, stat, base, set_aside, z_sub[probe],
                                ins_sub[probe], device_of, st.normalized_threshold,
-                               probe_starts=starts)
+                               probe_starts=starts, power=power)
         if not picked:
             break
         set_aside[picked] = True

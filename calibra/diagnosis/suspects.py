@@ -48,8 +48,10 @@ def probe_objective(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
 def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.ndarray,
                   base: np.ndarray, set_aside: np.ndarray, probe_z: np.ndarray,
                   probe_status: np.ndarray, device_of: np.ndarray, threshold: float,
-                  max_points: int = 32, probe_starts: list | None = None) -> list[int]:
-    """Points to set aside this round (see the module docstring)."""
+                  max_points: int = 32, probe_starts: list | None = None,
+                  power: np.ndarray | None = None) -> list[int]:
+    """Points to set aside this round (see the module docstring). ``device_of``: each point's
+    device number (−1: none); ``power``: which points are power channels."""
     stat = np.nan_to_num(np.asarray(stat, float), nan=0.0, posinf=1e12)
     analysis = rep.analysis if rep is not None else None
     corr: dict[int, np.ndarray] = {}
@@ -72,7 +74,7 @@ def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.nd
             rho = np.nan_to_num(row, nan=0.0, posinf=0.0, neginf=0.0)
             cluster += [j for j in remaining[1:]
                         if abs(rho[j]) > CLUSTER_CORRELATION][:CLUSTER_SIZE - 1]
-        units = _units(cluster, device_of, base & ~set_aside)
+        units = _units(cluster, device_of, base & ~set_aside, power)
         best = _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base,
                           status0, probe_starts)
         if best is None:
@@ -87,15 +89,21 @@ def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.nd
     return picked
 
 
-def _units(cluster: list[int], device_of: np.ndarray, available: np.ndarray) -> list[list[int]]:
-    """The cluster's points alone and, where a device has several power channels, together."""
+def _units(cluster: list[int], device_of: np.ndarray, available: np.ndarray,
+           power: np.ndarray | None = None) -> list[list[int]]:
+    """The cluster's points alone and, where a device has several channels, its power channels
+    together (a reversed CT turns P and Q, not |I|) and all its channels together (a wrong CT
+    ratio scales P, Q and |I| alike). ``power``: which points are power channels (default:
+    all)."""
     units: list[list[int]] = []
     for i in cluster:
         units.append([i])
         if device_of[i] >= 0:
             group = [int(j) for j in np.flatnonzero((device_of == device_of[i]) & available)]
-            if len(group) > 1:
-                units.append(group)
+            channels = [j for j in group if power is None or power[j]]
+            for unit in (channels, group):
+                if len(unit) > 1:
+                    units.append(unit)
     seen, out = set(), []
     for u in units:
         key = tuple(sorted(u))

@@ -1,4 +1,4 @@
-"""The review on scenarios the simulator generates on published networks (IEEE 57 and IEEE 118
+"""The review on scenarios the simulator generates on published networks (IEEE 39, 57 and 118
 from pypower's case files), with other seeds and random fault mixes: the diagnosis must not be
 tuned to the sample site. A week of five-minute snapshots keeps the tests short."""
 
@@ -13,8 +13,11 @@ from tests.diagnosis.scenarios import detectable_faults, generated_scenario
 from tests.diagnosis.scoring import score
 
 
-@pytest.mark.parametrize("case_name, seed", [("case57", 2), ("case118", 5)])
+@pytest.mark.parametrize("case_name, seed", [("case57", 2), ("case118", 5), ("case39", 12)])
 def test_random_fault_mix(case_name, seed):
+    """IEEE 39 (New England) seed 12 holds a CT-ratio error (P, Q and |I| × 0.8) on one of the
+    two lines of a bus: it is found only when the elimination tries the device's current
+    channel with its power channels (before, its neighbours were blamed: 3 missed, 11 false)."""
     sim = generated_scenario(case_name, seed)
     result = review_site(sim.site)
     s = score(findings_table(result.findings), sim.truth, detectable_faults(sim))
