@@ -5,12 +5,12 @@ The decision rules (all documented in DEVELOPERS.md):
 1. Too few snapshots with both a measured and an implied value → "insufficient data".
 2. Runs of frozen values while the implied value moves → stuck (those snapshots are then left
    out of the other fits).
-3. Fit gain (z = k·y), offset (z = y + c) and drift (z = y + a·(t − t₀)⁺). A model is a
-   candidate when it explains the data clearly better than "healthy" where the two differ
-   (median error at most half the healthy one there) and its systematic error is beyond the
-   accuracy class limit at the point's typical reading and statistically significant. The
-   candidate with the lowest mean error wins; simpler models win near-ties (scale, offset,
-   then drift).
+3. Fit gain (z = k·y; only where the implied values vary beyond their own noise), offset
+   (z = y + c) and drift (z = y + a·(t − t₀)⁺). A model is a candidate when it explains the
+   data clearly better than "healthy" where the two differ (median error at most half the
+   healthy one there) and its systematic error is beyond the accuracy class limit at the
+   point's typical reading and statistically significant. The candidate with the lowest mean
+   error wins; simpler models win near-ties (scale, offset, then drift).
 4. Otherwise, a scatter well beyond the expected noise (meter class and the implied value's
    own uncertainty) → noisy.
 
@@ -38,6 +38,10 @@ class ClassifySettings:
     noisy_factor: float = 3.0  #: scatter / expected scatter above this → noisy
     stuck_minutes: int = 60  #: shortest frozen run counted as stuck (snapshots)
     class_margin: float = 1.0  #: systematic error must exceed class limit × this
+    #: a gain is fitted only when the implied values' RMS beyond their own noise is at least
+    #: this many σ_implied (errors in variables: below it the fitted gain mostly measures the
+    #: implied value's noise; at 3 the fit is shrunk by at most 10 %; common practice, no source)
+    gain_signal: float = 3.0
 
 
 @dataclass
@@ -131,12 +135,17 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
         # In units of the model's own noise: a gain k also scales the implied value's noise.
         return float(np.mean(np.abs(e_m))) / float(np.hypot(ps.sigma, gain * ps.sigma_implied))
 
-    k = fit_gain(z, y, noise)
-    e_k = z - k * y
-    se_k = noise / max(np.sqrt(np.sum(y * y)), 1e-300)
-    if abs(k - 1) * typical > limit and abs(k - 1) > st.significance * se_k and better(e_k):
-        kind = "reversed" if k < 0 else "scale"
-        candidates.append((mean_loss(e_k, k), 0, kind, {"factor": k}, e_k))
+    # With implied values y = y_true + ε, the fitted gain shrinks toward 0 by Σy_true²/Σy²: a
+    # metered bus without load reads 0 while its implied value scatters by σ_implied, and
+    # "scale 0.001" would fit that scatter. A gain is only sought where y carries a signal.
+    signal = np.sqrt(max(float(np.mean(y * y)) - ps.sigma_implied ** 2, 0.0))
+    if signal >= st.gain_signal * ps.sigma_implied:
+        k = fit_gain(z, y, noise)
+        e_k = z - k * y
+        se_k = noise / max(np.sqrt(np.sum(y * y)), 1e-300)
+        if abs(k - 1) * typical > limit and abs(k - 1) > st.significance * se_k and better(e_k):
+            kind = "reversed" if k < 0 else "scale"
+            candidates.append((mean_loss(e_k, k), 0, kind, {"factor": k}, e_k))
 
     c = float(np.median(e0))
     e_c = e0 - c
