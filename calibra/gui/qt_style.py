@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import sys
 from pathlib import Path
 
 from PySide6.QtCore import Qt
@@ -53,17 +54,25 @@ QToolBar { spacing: 4px; }
 QTreeView::item { padding: 1px 0px; }
 """
 
-ASSETS = Path(__file__).resolve().parents[2] / "assets"
-ICON_FILE = "calibra.svg"
+#: Where the images are: the source tree's assets/ (a clone, an editable install), then where
+#: an installed copy puts them (pyproject.toml, [tool.setuptools.data-files]).
+ASSET_DIRS = (Path(__file__).resolve().parents[2] / "assets",
+              Path(sys.prefix) / "share" / "calibra" / "assets")
+ICON_FILES = ("calibra.svg", "calibra-256.png")
+
+
+def asset_dir() -> Path | None:
+    """The first folder that holds the application icon, or None."""
+    return next((d for d in ASSET_DIRS if (d / ICON_FILES[0]).exists()), None)
 
 
 def app_icon() -> QIcon:
-    """The application icon from ``assets/`` (an empty icon when the assets are not there)."""
+    """The application icon (an empty icon when the assets are not there)."""
     icon = QIcon()
-    for name in (ICON_FILE, "calibra-256.png"):
-        path = ASSETS / name
-        if path.exists():
-            icon.addFile(str(path))
+    folder = asset_dir()
+    for name in ICON_FILES if folder is not None else ():
+        if (folder / name).exists():
+            icon.addFile(str(folder / name))
     return icon
 
 
