@@ -9,7 +9,7 @@ from __future__ import annotations
 import itertools
 import math
 
-from calibra.model.points import parse_ratio
+from calibra.model.points import VT_QUANTITIES, parse_ratio
 
 #: IEEE C57.13 multi-ratio CT taps (primary amperes, 5 A secondary) [R].
 MULTI_RATIO_TAPS = {
@@ -43,12 +43,11 @@ def scale_cause(factor: float, quantity: str, ct_ratio: str | None = None) -> tu
     k = abs(factor)
     if k == 0 or not math.isfinite(k):
         return "", False
-    power = ("p_flow", "q_flow", "p_injection", "q_injection")
     for value, text in ((math.sqrt(3), "VT connection: line-to-neutral voltage taken as "
                          "line-to-line (or the reverse) — a factor of √3"),
                         (1 / math.sqrt(3), "VT connection: line-to-line voltage taken as "
                          "line-to-neutral (or the reverse) — a factor of 1/√3")):
-        if quantity in ("v_magnitude", *power) and abs(k / value - 1) < _TOLERANCE:
+        if quantity in VT_QUANTITIES and abs(k / value - 1) < _TOLERANCE:
             return text, True
     for value, text in ((1000.0, "units: kilo- read as base unit (×1000)"),
                         (1e-3, "units: base unit read as kilo- (÷1000)")):

@@ -8,9 +8,8 @@ import pandas as pd
 from calibra.diagnosis.causes import likely_scale_cause
 from calibra.diagnosis.classify import PointDiagnosis
 from calibra.diagnosis.findings import Finding
+from calibra.model.points import POWER_QUANTITIES
 from calibra.model.site import Site
-
-_POWER = ("p_flow", "q_flow", "p_injection", "q_injection")
 
 
 def _fmt(x: float, unit: str, signed: bool = True) -> str:
@@ -150,10 +149,10 @@ def _merge_devices(findings: list[Finding], pts: pd.DataFrame) -> None:
         by_device.setdefault(f.device, []).append(f)
     for device, group in by_device.items():
         channels = pts.index[(pts["device"].astype(str) == device)
-                             & pts["quantity"].isin(_POWER)]
+                             & pts["quantity"].isin(POWER_QUANTITIES)]
         if len(channels) < 2:
             continue
-        found = {f.tag: f for f in group if f.quantity in _POWER}
+        found = {f.tag: f for f in group if f.quantity in POWER_QUANTITIES}
         if set(found) != set(channels):
             continue
         kinds = {f.finding for f in found.values()}

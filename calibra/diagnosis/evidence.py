@@ -30,6 +30,7 @@ from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_r
 from calibra.estimation.site_estimate import StatusConflict, checked_topology
 from calibra.estimation.week import PeriodResult
 from calibra.estimation.wls import Estimator, SnapshotEstimate
+from calibra.model.points import CT_QUANTITIES, POWER_QUANTITIES
 from calibra.model.site import Site
 from calibra.progress import Progress
 
@@ -151,15 +152,12 @@ class _Stage:
             self.progress.cancel()
 
 
-POWER_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection")
-
-
 def _device_index(site: Site, model: MeasurementModel) -> tuple[np.ndarray, np.ndarray]:
     """Device number of each point fed by a CT with others — power flows and injections and
     current magnitudes (−1 for other quantities) — and which points are power channels."""
     pts = site.points.loc[model.tags]
     power = pts["quantity"].isin(POWER_QUANTITIES).to_numpy()
-    fed = power | (pts["quantity"] == "i_magnitude").to_numpy()
+    fed = pts["quantity"].isin(CT_QUANTITIES).to_numpy()
     codes, _ = pd.factorize(pts["device"].astype(str))
     return np.where(fed, codes, -1), power
 

@@ -134,8 +134,13 @@ def plan_files(folder: Path, timezone: str, log: ProblemLog,
                period: Period = (None, None)) -> list[FilePlan]:
     """The first pass over every snapshot file (its header and times; problems logged);
     files that cannot be read are left out."""
+    return _plan_paths(snapshot_files(folder, log), timezone, period, log)
+
+
+def _plan_paths(files: list[Path], timezone: str, period: Period,
+                log: ProblemLog) -> list[FilePlan]:
     plans = []
-    for path in snapshot_files(folder, log):
+    for path in files:
         planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
         plan = planner(path, _rel(path), timezone, period, log)
         if plan is not None:
@@ -169,15 +174,8 @@ def _read_period(
 ) -> list[tuple[str, pd.DataFrame | None]] | None:
     """The files' rows in ``period``: times first (or the ``planned`` ones), the size check,
     then the kept rows."""
-    if planned is not None:
-        plans = [plan.within(period) for plan in planned]
-    else:
-        plans = []
-        for path in files:
-            planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
-            plan = planner(path, _rel(path), timezone, period, log)
-            if plan is not None:
-                plans.append(plan)
+    plans = [plan.within(period) for plan in planned] if planned is not None \
+        else _plan_paths(files, timezone, period, log)
     kept = [FileRows(p.rel, p.in_period, True) for p in plans]
     if refuse_if_too_large(kept, points, limit, log, period=_describe(period)):
         return None

@@ -19,6 +19,10 @@ QUANTITIES: dict[str, dict] = {
     "v_magnitude": {"element": "bus", "end": False, "units": ("kV",)},
 }
 ANALOG_QUANTITIES = tuple(q for q in QUANTITIES if q != "branch_status")
+#: Quantities measured from a CT and a VT together (power), and those a CT (VT) feeds.
+POWER_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection")
+CT_QUANTITIES = (*POWER_QUANTITIES, "i_magnitude")
+VT_QUANTITIES = (*POWER_QUANTITIES, "v_magnitude")
 ENDS = ("from", "to")
 
 REQUIRED_POINT_COLUMNS = [

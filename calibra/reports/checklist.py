@@ -12,6 +12,7 @@ import re
 from collections.abc import Callable, Mapping
 
 from calibra.diagnosis.findings import FINDING_KINDS
+from calibra.model.points import CT_QUANTITIES, VT_QUANTITIES
 from calibra.reports._values import fmt, number, text, timestamp
 
 #: How each kind of finding is named on the checklist.
@@ -26,8 +27,6 @@ FINDING_LABELS = {
     "unverifiable": "Cannot be checked remotely",
 }
 
-_CT_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection", "i_magnitude")
-_VT_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection", "v_magnitude")
 _SQRT3 = math.sqrt(3.0)
 
 
@@ -78,12 +77,12 @@ def _scale(row: Mapping) -> list[str]:
     if factor is not None:
         items.append(f"Readings are about {fmt(factor)} × the expected values: look for "
                      "the cause of exactly that ratio in the checks below.")
-    if quantity in _CT_QUANTITIES or not quantity:
+    if quantity in CT_QUANTITIES or not quantity:
         ct = text(row, "ct_ratio") or "none given"
         items.append(f"CT: read the ratio and the tap in use on the nameplate and compare "
                      f"them with the point list (CT ratio {ct}). A factor equal to the ratio "
                      "of two taps (e.g. 1200/800 = 1.5) means the wrong tap is set or wired.")
-    if quantity in _VT_QUANTITIES or not quantity:
+    if quantity in VT_QUANTITIES or not quantity:
         vt = text(row, "vt_ratio") or "none given"
         items.append(f"VT: read the ratio on the nameplate and compare it with the point list "
                      f"(VT ratio {vt}); check whether the input is connected and configured "
