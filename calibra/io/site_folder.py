@@ -26,6 +26,7 @@ from calibra.io.snapshot_size import MEMORY_LIMIT_ENV
 from calibra.io.snapshot_size import memory_limit as default_memory_limit
 from calibra.io.snapshots import empty_snapshots, plan_files, read_snapshots, snapshot_times
 from calibra.io.text_files import read_text
+from calibra.io.timestamps import LOCAL_TIME_ERRORS
 from calibra.model.network import Network
 from calibra.model.points import QUANTITIES
 from calibra.model.site import Site, SiteLoadError
@@ -159,7 +160,7 @@ def resolve_period(start, end, timezone: str) -> tuple[pd.Timestamp | None, ...]
         if ts.tzinfo is None:
             try:
                 ts = ts.tz_localize(timezone, ambiguous="raise", nonexistent="raise")
-            except ValueError as exc:
+            except LOCAL_TIME_ERRORS as exc:
                 raise ValueError(f"{value!r} is not a single moment in {timezone} (daylight "
                                  "saving time skips or repeats it); give a UTC offset") from exc
         out.append(ts.tz_convert("UTC"))

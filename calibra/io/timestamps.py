@@ -13,6 +13,13 @@ import pandas as pd
 
 from calibra.io.problems import ProblemLog
 
+try:  # pandas 2 raises pytz's errors for a local time that is not one moment, pandas 3 ValueError
+    from pytz.exceptions import InvalidTimeError as _PytzInvalidTime
+except ImportError:  # pragma: no cover - pandas 3 without pytz
+    _PytzInvalidTime = ValueError
+#: What localizing an ambiguous or non-existent local time raises.
+LOCAL_TIME_ERRORS = (ValueError, _PytzInvalidTime)
+
 _OFFSET = r"\d:\d\d(?::\d\d(?:[.,]\d+)?)?\s*(?:Z|z|[+-]\d\d(?::?\d\d)?)$"
 #: Years that a nanosecond time (what the snapshot index holds) can represent in full.
 FIRST_YEAR, LAST_YEAR = 1678, 2261
@@ -20,10 +27,13 @@ OUT_OF_RANGE = (f"time outside the years {FIRST_YEAR}-{LAST_YEAR} that calibra h
                 "row skipped")
 
 
+def _in_range_years(years: np.ndarray) -> np.ndarray:
+    return np.isnan(years) | ((years >= FIRST_YEAR) & (years <= LAST_YEAR))
+
+
 def _in_range(times: pd.DatetimeIndex) -> np.ndarray:
     """True where a time is missing or within the representable years (any unit)."""
-    years = np.asarray(times.year, dtype=float)
-    return np.isnan(years) | ((years >= FIRST_YEAR) & (years <= LAST_YEAR))
+    return _in_range_years(np.asarray(times.year, dtype=float))
 
 
 def _nanoseconds(
@@ -54,8 +64,18 @@ def parse_times(
     empty = text.eq("").to_numpy()
     # ISO 8601 starts with the year; pandas would also read the words 'now' and 'today'
     unparsed = ~empty & ~text.str.match(r"[+-]?\d").to_numpy(dtype=bool)
-    aware = text.str.contains(_OFFSET, regex=True).to_numpy() & ~empty & ~unparsed
-    naive = ~aware & ~empty & ~unparsed
+    # Years a nanosecond index cannot hold are caught from the text: pandas 2 turns them into
+    # NaT while parsing, pandas 3 parses them in another unit.
+    year = pd.to_numeric(text.str.extract(r"^([+-]?\d+)(?:-|$)", expand=False), errors="coerce")
+    far = (~empty & ~unparsed & year.notna().to_numpy()
+           & ~_in_range_years(year.to_numpy(float)))
+    if far.any():
+        log.per_row(file, rows[far], "timestamp", OUT_OF_RANGE)
+        unparsed_or_far = unparsed | far
+    else:
+        unparsed_or_far = unparsed
+    aware = text.str.contains(_OFFSET, regex=True).to_numpy() & ~empty & ~unparsed_or_far
+    naive = ~aware & ~empty & ~unparsed_or_far
     result = np.full(len(text), np.datetime64("NaT", "ns"))
     if aware.any():
         parsed = pd.DatetimeIndex(
@@ -102,7 +122,7 @@ def _localize(
     if repeated.any():
         try:
             placed = local.tz_localize(timezone, ambiguous="infer", nonexistent="NaT")
-        except ValueError:
+        except LOCAL_TIME_ERRORS:
             placed = strict
         if placed[repeated].notna().all():
             log.warning(
