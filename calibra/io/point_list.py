@@ -22,6 +22,7 @@ from calibra.model.points import (
     POINT_COLUMNS,
     QUANTITIES,
     REQUIRED_POINT_COLUMNS,
+    STATUS_QUANTITY,
     parse_ratio,
 )
 
@@ -41,7 +42,8 @@ def read_points(
     ``buses`` and ``branches`` are for checking elements and substations (None when a table
     could not be read: its references are then not checked).
     Empty optional cells are "" (text) or NaN (``sigma``); ``end`` is "" for quantities
-    without an end; ``full_scale``/``accuracy_pct`` may be empty for ``branch_status``.
+    without an end. A ``branch_status`` point may leave ``device`` empty (stored as "") and
+    leave ``full_scale``/``accuracy_pct`` empty or give 0 (stored as NaN: not applicable).
     """
     t = read_small_table(
         folder / POINTS_FILE, POINTS_FILE, log, ["tag"] + REQUIRED_POINT_COLUMNS,
@@ -53,27 +55,19 @@ def read_points(
     quantity = choice_cells(
         t, "quantity", {q: q for q in QUANTITIES}, log, required=True, what="quantity"
     )
-    analog = (quantity != "branch_status") & (quantity != "")
+    status = quantity == STATUS_QUANTITY
     columns = {
         "quantity": quantity,
         "element": text_cells(t, "element", log, required=True),
         "end": choice_cells(t, "end", {e: e for e in ENDS}, log, required=False,
                             what="branch end"),
         "unit": choice_cells(t, "unit", _UNITS, log, required=True, what="unit"),
-        "full_scale": number_cells(t, "full_scale", log, required=False, positive=True),
-        "accuracy_pct": number_cells(t, "accuracy_pct", log, required=False, positive=True),
+        "full_scale": _scale_cells(t, "full_scale", quantity, log),
+        "accuracy_pct": _scale_cells(t, "accuracy_pct", quantity, log),
     }
-    for column in ("full_scale", "accuracy_pct"):
-        if not t.has(column):
-            continue
-        for i in np.flatnonzero(analog & (t.cells(column) == "")):
-            log.error(
-                t.file, int(t.rows[i]), column,
-                f"empty; a positive number is required for {quantity[i]}",
-            )
     columns.update({
         "substation": text_cells(t, "substation", log, required=True),
-        "device": text_cells(t, "device", log, required=True),
+        "device": _device_cells(t, status, log),
         "rtu": text_cells(t, "rtu", log, required=False),
         "channel": text_cells(t, "channel", log, required=False),
         "ct_ratio": _ratio_cells(t, "ct_ratio", log),
@@ -87,6 +81,40 @@ def read_points(
     points = pd.DataFrame({c: columns[c][keep] for c in POINT_COLUMNS},
                           index=pd.Index(tags[keep], name="tag", dtype=str))
     return points, pd.Series(t.rows[keep], index=points.index)
+
+
+def _scale_cells(t: RawTable, column: str, quantity: np.ndarray, log: ProblemLog) -> np.ndarray:
+    """``full_scale`` or ``accuracy_pct``: a positive number for analog points; for
+    ``branch_status`` points empty or 0 (NaN: a breaker status has no scale) or positive.
+    Rows whose quantity is unreadable get the analog rule's sign check only."""
+    values = number_cells(t, column, log, required=False)
+    if not t.has(column):
+        return values
+    cells = t.cells(column)
+    status = quantity == STATUS_QUANTITY
+    analog = ~status & (quantity != "")
+    for i in np.flatnonzero(analog & (cells == "")):
+        log.error(t.file, int(t.rows[i]), column,
+                  f"empty; a positive number is required for {quantity[i]}")
+    for i in np.flatnonzero(~status & (values <= 0)):
+        log.error(t.file, int(t.rows[i]), column, f"must be greater than zero, not {cells[i]}")
+    for i in np.flatnonzero(status & (values < 0)):
+        log.error(t.file, int(t.rows[i]), column,
+                  f"must not be negative, not {cells[i]} (a {STATUS_QUANTITY} point may leave "
+                  "it empty or give 0)")
+    return np.where(status & (values == 0), np.nan, values)
+
+
+def _device_cells(t: RawTable, status: np.ndarray, log: ProblemLog) -> np.ndarray:
+    """The device of each point: required except for ``branch_status`` points (a breaker's
+    status contact belongs to no transducer)."""
+    cells = text_cells(t, "device", log, required=False)
+    if t.has("device"):
+        for i in np.flatnonzero(~status & (cells == "")):
+            log.error(t.file, int(t.rows[i]), "device",
+                      f"empty; a value is required (only {STATUS_QUANTITY} points may leave "
+                      "it empty)")
+    return cells
 
 
 def _ratio_cells(t: RawTable, column: str, log: ProblemLog) -> np.ndarray:

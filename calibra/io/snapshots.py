@@ -31,6 +31,7 @@ from calibra.io.snapshot_period import (
 from calibra.io.snapshot_size import FileRows, estimate_rows, refuse_if_too_large
 from calibra.io.text_files import csv_records, read_csv_text
 from calibra.io.timestamps import parse_times
+from calibra.model.points import STATUS_QUANTITY
 
 SNAPSHOT_DIR = "snapshots"
 SNAPSHOT_SUFFIXES = (".csv", ".csv.gz", ".parquet")
@@ -261,7 +262,7 @@ def _frame(
     tags = [names[p] for p in keep]
     values = _values(table, keep, tags, rows, valid, rel, log)
     if quantities is not None:
-        status = [j for j, t in enumerate(tags) if quantities.get(t) == "branch_status"]
+        status = [j for j, t in enumerate(tags) if quantities.get(t) == STATUS_QUANTITY]
         _check_status(values, status, tags, rows, valid, rel, log)
     frame = pd.DataFrame(values[valid], index=times[valid], columns=pd.Index(tags, dtype=str))
     return _order(frame, rows[valid], rel, log)

@@ -18,7 +18,10 @@ QUANTITIES: dict[str, dict] = {
     "q_injection": {"element": "bus", "end": False, "units": ("Mvar",)},
     "v_magnitude": {"element": "bus", "end": False, "units": ("kV",)},
 }
-ANALOG_QUANTITIES = tuple(q for q in QUANTITIES if q != "branch_status")
+#: The status quantity: a breaker's open/closed state, not an analog measurement. Its points
+#: may leave ``device`` empty and ``full_scale``/``accuracy_pct`` empty (NaN).
+STATUS_QUANTITY = "branch_status"
+ANALOG_QUANTITIES = tuple(q for q in QUANTITIES if q != STATUS_QUANTITY)
 #: Quantities measured from a CT and a VT together (power), and those a CT (VT) feeds.
 POWER_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection")
 CT_QUANTITIES = (*POWER_QUANTITIES, "i_magnitude")
@@ -51,7 +54,8 @@ def analog_points(points: pd.DataFrame) -> pd.DataFrame:
 
 
 def status_points(points: pd.DataFrame) -> pd.DataFrame:
-    return points[points["quantity"] == "branch_status"]
+    """The branch status points (they set the topology per snapshot)."""
+    return points[points["quantity"] == STATUS_QUANTITY]
 
 
 def parse_ratio(text) -> float | None:

@@ -69,7 +69,12 @@ ONE_BAD_CELL = [
                  id="full-scale-missing"),
     pytest.param(6, "sigma", "0", "must be greater than zero, not 0", id="sigma"),
     pytest.param(3, "substation", "", "empty; a value is required", id="substation"),
-    pytest.param(4, "device", "", "empty; a value is required", id="device"),
+    pytest.param(4, "device", "", "empty; a value is required (only branch_status points may "
+                 "leave it empty)", id="device"),
+    pytest.param(8, "full_scale", "-1", "must not be negative, not -1 (a branch_status point "
+                 "may leave it empty or give 0)", id="status-full-scale-negative"),
+    pytest.param(5, "accuracy_pct", "0", "must be greater than zero, not 0",
+                 id="analog-accuracy-zero"),
 ] + [
     pytest.param(2, column, value,
                  f"'{value}' is not a ratio of two positive numbers such as 1200:5",
@@ -87,6 +92,51 @@ def test_one_bad_cell(files, tmp_path, row, column, value, message):
 def test_status_point_needs_no_full_scale(files, tmp_path):
     site = load_site(files.write(tmp_path))
     assert np.isnan(site.points.at["TLR.PLM1.CB", "accuracy_pct"])
+
+
+# Point lists exported from control systems leave device, full scale and accuracy class blank
+# (or 0) for breaker status: a status contact has neither (common practice, no source).
+@pytest.mark.parametrize("device,full_scale,accuracy", [
+    pytest.param("", "", "", id="all-empty"),
+    pytest.param("", "0", "0", id="zeros"),
+    pytest.param("", "0.0", "", id="zero-and-empty"),
+    pytest.param("TLR-CB3", "1", "0", id="device-and-scale-given"),
+])
+def test_status_point_may_leave_device_and_scale_empty(files, tmp_path, device, full_scale,
+                                                       accuracy):
+    files.points.set(8, "device", device).set(8, "full_scale", full_scale)
+    files.points.set(8, "accuracy_pct", accuracy)
+    site = load_site(files.write(tmp_path))
+    assert site.problems == []
+    point = site.points.loc["TLR.PLM1.CB"]
+    assert point["device"] == device
+    if full_scale == "1":
+        assert point["full_scale"] == 1.0  # a positive value given is kept
+    else:
+        assert np.isnan(point["full_scale"])
+    assert np.isnan(point["accuracy_pct"])
+    # 0 means "not applicable": stored as NaN, so no class limit of 0 reaches anything
+    assert not (site.points[["full_scale", "accuracy_pct"]] == 0).any().any()
+
+
+@pytest.mark.parametrize("column,value,message", [
+    ("device", "", "empty; a value is required (only branch_status points may leave it empty)"),
+    ("full_scale", "0", "must be greater than zero, not 0"),
+    ("accuracy_pct", "", "empty; a positive number is required for p_flow"),
+    ("accuracy_pct", "0", "must be greater than zero, not 0"),
+])
+def test_analog_points_keep_their_rules(files, tmp_path, column, value, message):
+    assert problem_for_cell(files, tmp_path, "points", 2, column, value).message == message
+
+
+def test_a_status_row_turned_analog_needs_its_scale(files, tmp_path):
+    # the same blank cells are errors once the row is an analog point
+    files.points.set(8, "quantity", "p_flow").set(8, "end", "from").set(8, "unit", "MW")
+    files.points.set(8, "device", "")
+    problems = problems_of(files.write(tmp_path))
+    find(problems, POINTS, 8, "device")
+    assert find(problems, POINTS, 8, "full_scale").message == (
+        "empty; a positive number is required for p_flow")
 
 
 def test_point_in_another_substation_than_its_branch_end_is_a_warning(files, tmp_path):
@@ -107,6 +157,6 @@ def test_points_checked_even_when_the_network_has_errors(files, tmp_path):
 def test_rows_count_records_like_a_spreadsheet(files, tmp_path):
     # a quoted note with a line break is one cell; the next record is still row 8
     files.points.set(7, "note", "feeder total\nincludes embedded generation")
-    files.points.set(8, "device", "")
-    p = find(problems_of(files.write(tmp_path)), POINTS, 8, "device")
+    files.points.set(8, "substation", "")
+    p = find(problems_of(files.write(tmp_path)), POINTS, 8, "substation")
     assert p.message == "empty; a value is required"

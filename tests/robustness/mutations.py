@@ -44,6 +44,10 @@ COLUMN_KINDS: dict[str, dict[str, str]] = {
              "substation": "text", "device": "text", "rtu": "text?", "channel": "text?",
              "ct_ratio": "text?", "vt_ratio": "text?", "sigma": "positive?", "note": "text?"},
 }
+#: Columns whose rule differs on a branch_status row: device may be empty, and full scale and
+#: accuracy class empty or 0, both meaning "not applicable" (NaN) — the folder format's rule.
+STATUS_ROW_KINDS = {"device": "text?", "full_scale": "status_scale",
+                    "accuracy_pct": "status_scale"}
 TRUE_WORDS, FALSE_WORDS = {"true", "yes", "1"}, {"false", "no", "0"}
 #: What an empty cell of an optional number column means.
 EMPTY_MEANS = {"number0": 0.0, "tap": 1.0, "positive?": math.nan}
@@ -121,6 +125,11 @@ def faithful(kind: str, raw: str, loaded, row_id: str) -> bool:
         if value is None or (kind in ("positive", "positive?", "tap") and value <= 0):
             return False
         return _same(loaded, value)
+    if kind == "status_scale":
+        value = math.nan if text == "" else reference_float(text)
+        if value is None or value < 0:
+            return False
+        return _same(loaded, math.nan if value == 0 else value)
     if kind in ("text", "text?", "ref"):
         return (text != "" or kind == "text?") and loaded == text
     if kind == "name":
@@ -153,6 +162,8 @@ def small_table_cell(draw, files: dict[str, bytes]) -> Mutation:
     kind = COLUMN_KINDS[rel][column]
     id_column = t.header[0]
     t.set(row, column, raw)
+    if rel == POINTS and t.get(row, "quantity").strip().lower() == "branch_status":
+        kind = STATUS_ROW_KINDS.get(column, kind)
     row_id = raw.strip() if column == id_column else t.get(row, id_column)
 
     def loaded_as_written(site: Site) -> bool:

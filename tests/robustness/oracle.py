@@ -95,8 +95,11 @@ def check_site(site: Site) -> None:
         spec = QUANTITIES[q]
         assert element in (branch_ids if spec["element"] == "branch" else bus_ids)
         assert unit in spec["units"] and (end != "") == bool(spec["end"])
-    scales = points[["full_scale", "accuracy_pct"]].to_numpy(float)[quantity != "branch_status"]
-    assert (scales > 0).all()
+    scales = points[["full_scale", "accuracy_pct"]].to_numpy(float)
+    assert (scales[quantity != "branch_status"] > 0).all()
+    status_scales = scales[quantity == "branch_status"]  # empty or 0 in the file: NaN
+    assert (np.isnan(status_scales) | (status_scales > 0)).all()
+    assert (points["device"][quantity != "branch_status"] != "").all()
     sigma = points["sigma"].to_numpy(float)
     assert (np.isnan(sigma) | (sigma > 0)).all()
 
