@@ -6,7 +6,9 @@ a bus card is read as number (columns 1–4) and name (5–17) by position, and 
 on whitespace; branch cards are split on whitespace. Sections end with a line of ``-9…``.
 
 Bus ids are the bus numbers as text; branch ids are ``"<tap bus>-<Z bus>-<circuit>"``.
-A final turns ratio of 0 means 1 (a line). Shunt G and B are per unit on the system base.
+A final turns ratio of 0 means 1 (a line); a negative one is an error. Negative X (series
+capacitors), phase shifts and taps load; :mod:`calibra.io.branch_checks` says which values
+earn a warning. Shunt G and B are per unit on the system base.
 A bus is zero-injection when it is a load bus (type 0 or 1) with no load, no generation and
 no shunt — the same rule :func:`calibra.model.network.network_from_matpower` applies.
 """
@@ -20,6 +22,13 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from calibra.io.branch_checks import (
+    LINE,
+    TRANSFORMER,
+    BranchColumns,
+    check_branch_parameters,
+    no_impedance_message,
+)
 from calibra.io.problems import ProblemLog
 from calibra.io.text_files import read_text
 from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS, Network
@@ -33,6 +42,7 @@ BRANCH_FIELDS = [
     "tap bus", "Z bus", "area", "zone", "circuit", "type", "R", "X", "B", "rating 1",
     "rating 2", "rating 3", "control bus", "side", "final turns ratio", "final angle",
 ]
+_CDF_COLUMNS = BranchColumns(x="X", b="B", tap="final turns ratio", kind="type")
 _END = re.compile(r"^\s*-9+\s*$")
 _ITEMS = re.compile(r"(\d+)\s+ITEMS", re.IGNORECASE)
 
@@ -239,7 +249,12 @@ def _read_branch_cards(section, bus_ids: pd.Index, file: str, log: ProblemLog) -
             log.error(file, row, "Z bus", f"the branch connects bus {f} to itself")
             bad = True
         if values["R"] == 0 and values["X"] == 0:
-            log.error(file, row, "X", "R and X are both zero: the branch has no impedance")
+            log.error(file, row, "X", no_impedance_message("R", "X"))
+            bad = True
+        if values["final turns ratio"] < 0:
+            log.error(file, row, "final turns ratio",
+                      f"{values['final turns ratio']:g} is negative; a turns ratio is positive "
+                      "(0 means 1, a line)")
             bad = True
         if bad:
             continue
@@ -265,7 +280,7 @@ def _read_branch_cards(section, bus_ids: pd.Index, file: str, log: ProblemLog) -
             "b": values["B"],
             "tap": 1.0 if ratio == 0 else ratio,
             "shift_deg": angle,
-            "kind": "transformer" if ratio != 0 or angle != 0 else "line",
+            "kind": TRANSFORMER if ratio != 0 or angle != 0 else LINE,
             "in_service": True,
             "name": branch_id,
             "row": row,
@@ -277,6 +292,9 @@ def _read_branch_cards(section, bus_ids: pd.Index, file: str, log: ProblemLog) -
         )
     table = pd.DataFrame.from_dict(records, orient="index", columns=BRANCH_COLUMNS)
     table.index = pd.Index(list(records), name="branch", dtype=str)
+    rows = np.array([r["row"] for r in records.values()], dtype=int)
+    check_branch_parameters(file, rows, {c: table[c].to_numpy() for c in table}, log,
+                            _CDF_COLUMNS)
     return table
 
 

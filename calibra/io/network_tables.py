@@ -7,6 +7,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from calibra.io.branch_checks import (
+    BRANCH_KINDS,
+    check_branch_parameters,
+    no_impedance_message,
+)
 from calibra.io.cells import (
     bool_cells,
     choice_cells,
@@ -26,7 +31,6 @@ BUS_REQUIRED = ["bus", "substation", "kv", "zero_injection", "g_shunt_mw", "b_sh
 BUS_OPTIONAL = ["name"]
 BRANCH_REQUIRED = ["branch", "from_bus", "to_bus", "r", "x", "b", "tap", "shift_deg", "kind"]
 BRANCH_OPTIONAL = ["in_service", "name"]
-BRANCH_KINDS = {"line": "line", "transformer": "transformer"}
 
 
 def read_buses(folder: Path, log: ProblemLog) -> pd.DataFrame | None:
@@ -86,10 +90,7 @@ def read_branches(
     r = number_cells(t, "r", log)
     x = number_cells(t, "x", log)
     for i in np.flatnonzero((r == 0) & (x == 0)):
-        log.error(
-            t.file, int(t.rows[i]), "x",
-            "r and x are both zero: the branch has no impedance (merge its buses instead)",
-        )
+        log.error(t.file, int(t.rows[i]), "x", no_impedance_message())
     name = text_cells(t, "name", log, required=False)
     branches = pd.DataFrame(
         {
@@ -108,4 +109,5 @@ def read_branches(
         },
         index=pd.Index(ids, name="branch", dtype=str),
     )
+    check_branch_parameters(t.file, t.rows, {c: branches[c].to_numpy() for c in branches}, log)
     return branches[first_occurrences(ids)][BRANCH_COLUMNS]

@@ -179,3 +179,49 @@ def find(
     ]
     assert hits, "no such problem; found:\n" + "\n".join(str(p) for p in problems)
     return hits[0]
+
+
+# ----------------------------------------------------------------------------- real models
+#: Rows that give the invented site what real network models have (values typical of such
+#: models, no source): a 220 kV bus with a 150 Mvar shunt reactor, a three-winding transformer
+#: as a star of three branches around a zero-injection star point (one star branch with a
+#: negative reactance, as star equivalents can have), a 21 kV generator terminal, a 0.4 kV
+#: station-service bus, a second 132 kV bar behind a bus coupler of x = 1e-5 pu, a series
+#: capacitor in front of a second Fenwick–Orrin circuit, a parallel Fenwick–Tallis circuit, a
+#: phase-shifting transformer and off-nominal taps from 0.85 to 1.15.
+REAL_MODEL_BUSES = """\
+ORB220,Orrin Bay,220,false,0,-150,Orrin Bay 220 kV
+ORBSTAR,Orrin Bay,220,true,0,0,Orrin Bay T3 star point
+ORBG21,Orrin Bay,21,false,0,0,Orrin Bay unit 1 terminal
+TLR132B,Tallis Reach,132,false,0,0,Tallis Reach 132 kV bar B
+TLRAUX,Tallis Reach,0.4,false,0,0,Tallis Reach station service
+FNHSC,Fenwick Hollow,132,true,0,0,Fenwick Hollow series capacitor terminal
+"""
+
+REAL_MODEL_BRANCHES = """\
+FNH-TLR-2,FNH132,TLR132,0.012,0.061,0.021,1,0,line,true,Fenwick–Tallis circuit 2
+FNH-SC2,FNH132,FNHSC,0,-0.018,0,1,0,series_capacitor,true,Fenwick Hollow series capacitor
+FNHSC-ORB,FNHSC,ORB132,0.010,0.050,0.017,1,0,line,true,Fenwick–Orrin circuit 2
+TLR-CPL,TLR132,TLR132B,0,0.00001,0,1,0,line,true,Tallis Reach bus coupler
+TLR-T2,TLR132B,TLR33,0.004,0.125,0,0.85,0,transformer,true,Tallis Reach T2
+ORB-PST,ORB132,TLR132B,0.001,0.080,0,1,-12.5,transformer,true,Orrin Bay phase shifter
+ORB-T3H,ORB220,ORBSTAR,0.0008,0.095,0,1,0,transformer,true,Orrin Bay T3 220 kV winding
+ORB-T3M,ORBSTAR,ORB132,0.0005,-0.006,0,1,0,transformer,true,Orrin Bay T3 132 kV winding
+ORB-T3L,ORBSTAR,ORBG21,0.0009,0.140,0,1.15,0,transformer,true,Orrin Bay T3 21 kV winding
+TLR-AUX,TLR33,TLRAUX,0.9,4.2,0,1.025,0,transformer,true,Tallis Reach station transformer
+"""
+
+
+def real_model_files() -> SiteFiles:
+    """The invented site with the real-model rows added to its network."""
+    files = SiteFiles()
+    for row in csv.reader(io.StringIO(REAL_MODEL_BUSES)):
+        files.buses.add_row(row)
+    for row in csv.reader(io.StringIO(REAL_MODEL_BRANCHES)):
+        files.branches.add_row(row)
+    return files
+
+
+def row_of(table: Table, ident: str) -> int:
+    """The spreadsheet row of the record whose first cell is ``ident``."""
+    return next(i + 2 for i, r in enumerate(table.rows) if r[0] == ident)

@@ -82,7 +82,8 @@ ONE_BAD_CELL = [
                  "the branch connects bus 'FNH132' to itself", id="same-bus"),
     pytest.param("branches", 5, "tap", "0", "must be greater than zero, not 0", id="zero-tap"),
     pytest.param("branches", 2, "kind", "cable",
-                 "'cable' is not a branch kind (one of line, transformer)", id="kind"),
+                 "'cable' is not a branch kind (one of line, transformer, series_capacitor)",
+                 id="kind"),
     pytest.param("branches", 2, "in_service", "off",
                  "'off' is not true/false (also accepted: yes/no, 1/0)", id="in-service"),
 ]

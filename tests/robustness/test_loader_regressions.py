@@ -2,15 +2,19 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
+import pytest
 
-from calibra.io import load_site
+from calibra.io import CdfFormatError, load_site, read_cdf
 from tests.io.site_builder import find
 from tests.io.site_builder import problems_of as load_problems
 
 WEEK = "snapshots/week.csv"
+FIXTURE = Path(__file__).parents[1] / "io" / "fixtures" / "ieee14.cdf"  # IEEE 14-bus case
 
 
 def test_time_outside_the_nanosecond_range_is_skipped_not_a_crash(files, tmp_path):
@@ -110,3 +114,15 @@ def test_a_bus_table_without_any_bus_id(files, tmp_path):
     problems = load_problems(files.write(tmp_path))
     assert find(problems, "network/buses.csv", None, "bus").message == (
         "no row has a bus id; the network has no bus")
+
+
+def test_a_cdf_whose_branches_all_fail_is_refused_not_a_crash():
+    # The bus section without cards: every branch card names an unknown bus, so no branch is
+    # kept; the branch checks then saw empty columns of no numeric type (a TypeError).
+    lines = FIXTURE.read_text().splitlines()
+    start = lines.index(next(ln for ln in lines if ln.startswith("BUS DATA")))
+    end = lines.index("-999", start)
+    text = "\n".join(lines[: start + 1] + lines[end:]) + "\n"
+    with pytest.raises(CdfFormatError) as info:
+        read_cdf(text)
+    assert any(p.column == "tap bus" for p in info.value.problems)
