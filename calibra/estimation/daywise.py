@@ -23,7 +23,7 @@ import pandas as pd
 
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.site_estimate import checked_topology
-from calibra.estimation.week import PeriodResult, estimate_period
+from calibra.estimation.week import PeriodResult, estimate_period, observability_counts
 from calibra.estimation.wls import Estimator
 from calibra.io.site_folder import open_history, resolve_period
 from calibra.model.availability import availability_lines
@@ -110,6 +110,8 @@ class DaywiseSummary:
     alone: int = 0
     chi2_failed: int = 0
     not_observable: int = 0
+    partly_observable: int = 0
+    most_buses_not_estimated: int = 0
     reasons: Counter = field(default_factory=Counter)
     availability: list[str] = field(default_factory=list)
     conflicts: list[str] = field(default_factory=list)
@@ -127,7 +129,11 @@ class DaywiseSummary:
         self.in_blocks += int((out["method"] == "block").sum())
         self.alone += int((out["method"] == "single").sum())
         self.chi2_failed += int((~out.loc[conv, "chi2_passed"].astype(bool)).sum())
-        self.not_observable += int((~out["observable"].astype(bool)).sum())
+        counts = observability_counts(out)
+        self.not_observable += counts["not_observable"]
+        self.partly_observable += counts["partly_observable"]
+        self.most_buses_not_estimated = max(self.most_buses_not_estimated,
+                                            counts["most_buses_not_estimated"])
         self.reasons.update(out.loc[~conv, "reason"].astype(str))
 
 
@@ -213,7 +219,8 @@ def estimate_by_day(
             path = out / "normalized_residuals" / f"{name}.parquet"
             frame.to_parquet(path)
             table = result.outcomes[["converged", "iterations", "method", "objective", "dof",
-                                     "chi2_threshold", "chi2_passed", "observable"]]
+                                     "chi2_threshold", "chi2_passed", "observable",
+                                     "islands", "buses_not_estimated"]]
             table.to_csv(out / "snapshots" / f"{name}.csv", index_label="timestamp")
             summary.files += [path, out / "snapshots" / f"{name}.csv"]
         del result, rn, snaps

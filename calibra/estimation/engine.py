@@ -20,8 +20,11 @@ from calibra.estimation.wls import Estimator
 
 class PeriodEngine(Protocol):
     def estimate(self, rows: np.ndarray, set_aside: np.ndarray, max_block: int,
-                 tolerance: float, confidence: float, progress=None) -> PeriodResult:
-        """Estimate snapshots ``rows`` (positions in the period) without the set-aside points."""
+                 tolerance: float, confidence: float, progress=None,
+                 by_day: bool = True) -> PeriodResult:
+        """Estimate snapshots ``rows`` (positions in the period) without the set-aside points.
+        ``by_day=False``: blocks may cross days (a thin sample such as the screening's, where
+        one block per day would hold a handful of snapshots)."""
         ...
 
 
@@ -37,7 +40,9 @@ class LocalEngine:
         self.workers = workers
 
     def estimate(self, rows: np.ndarray, set_aside: np.ndarray, max_block: int,
-                 tolerance: float, confidence: float, progress=None) -> PeriodResult:
+                 tolerance: float, confidence: float, progress=None,
+                 by_day: bool = True) -> PeriodResult:
         z = np.where(set_aside[None, :], np.nan, self.z[rows])
         return estimate_period(self.estimator, z, self.in_service[rows], self.index[rows],
-                               max_block, confidence, progress, tolerance, self.workers)
+                               max_block, confidence, progress, tolerance, self.workers,
+                               by_day=by_day)

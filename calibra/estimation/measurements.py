@@ -124,6 +124,13 @@ class MeasurementFunctions:
         pat.sort_indices()
         return pat
 
+    def buses_of(self, row: int) -> np.ndarray:
+        """Positions of the buses row ``row``'s value depends on (whatever the topology)."""
+        if self.code[row] == V_MAG:
+            return np.array([self.element[row]], np.int64)
+        tm = self.terminals
+        return tm.entry_col[tm.entry_row == self.terminal_of[row]]
+
     # ------------------------------------------------------------------ admittance values
     def entry_admittances(self, in_service: np.ndarray | None = None) -> np.ndarray:
         """Admittance of every pattern entry for a topology (cached per topology)."""
@@ -282,6 +289,9 @@ class MeasurementFunctions:
         tm = self.terminals
         T = sp.csr_matrix((y, (tm.entry_row, tm.entry_col)),
                           shape=(len(tm.kind), self.network.n_bus))
+        # No stored zeros (branches out of service): a bus left out of an estimate (NaN) then
+        # makes NaN exactly the values that depend on it.
+        T.eliminate_zeros()
         TH = T.conj().T.tocsr()
         if len(self._operator_cache) > 64:
             self._operator_cache.clear()

@@ -14,9 +14,14 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.linalg as la
+import scipy.sparse as sp
 from scipy.special import chdtri
 
+from calibra.estimation.covariance import (
+    quadratic_diagonal,
+    state_covariance,
+    stiff_transform,
+)
 from calibra.estimation.wls import Estimator, SnapshotEstimate
 
 #: Sᵢᵢ below this is treated as zero: the measurement is critical.
@@ -50,30 +55,6 @@ class ResidualAnalysis:
     state_covariance: np.ndarray = field(repr=False)
 
 
-def _state_covariance(H: np.ndarray, C: np.ndarray, inv_var: np.ndarray) -> np.ndarray:
-    """State block of [[G, Cᵀ], [C, 0]]⁻¹ with G = Hᵀ R⁻¹ H (dense)."""
-    nx = H.shape[1]
-    nc = C.shape[0]
-    G = H.T @ (H * inv_var[:, None])
-    # Scale rows/columns to unit diagonal so the dense factorization sees a balanced matrix.
-    # A state seen only through the constraints has a zero diagonal: leave it unscaled.
-    gd = np.diag(G)
-    d = np.where(gd > 1e-12 * max(gd.max(initial=0.0), 1e-300), np.sqrt(np.abs(gd)), 1.0)
-    Gs = G / d[:, None] / d[None, :]
-    Cs = C / d[None, :]
-    if nc:
-        cn = np.maximum(np.linalg.norm(Cs, axis=1), 1e-300)
-        Cs = Cs / cn[:, None]
-    K = np.zeros((nx + nc, nx + nc))
-    K[:nx, :nx] = Gs
-    K[:nx, nx:] = Cs.T
-    K[nx:, :nx] = Cs
-    rhs = np.zeros((nx + nc, nx))
-    rhs[:nx] = np.eye(nx)
-    Ps = la.solve(K, rhs, check_finite=False)[:nx]
-    return Ps / d[:, None] / d[None, :]
-
-
 def analyse_residuals(
     estimator: Estimator, est: SnapshotEstimate, confidence: float = 0.99
 ) -> ResidualAnalysis:
@@ -87,12 +68,13 @@ def analyse_residuals(
         return ResidualAnalysis(nan, nan.copy(), nan.copy(), nan.copy(), np.zeros(m, bool),
                                 est.objective, est.dof, threshold, False, confidence,
                                 np.zeros((0, 0)))
-    H = est.jacobian.toarray()
-    C = est.constraint_jacobian.toarray() if est.constraint_jacobian is not None else \
-        np.zeros((0, H.shape[1]))
+    H = sp.csr_matrix(est.jacobian)
+    C = sp.csr_matrix(est.constraint_jacobian) if est.constraint_jacobian is not None else \
+        sp.csr_matrix((0, H.shape[1]))
     var = model.sigma_pu[idx] ** 2
-    P = _state_covariance(H, C, 1.0 / var)
-    hph = np.sum((H @ P) * H, axis=1)
+    T = stiff_transform(model.network, est.layout, est.in_service)
+    P = state_covariance((H.T @ sp.diags(1.0 / var) @ H).tocsc(), C, T)
+    hph = quadratic_diagonal(H, P)
     omega = np.maximum(var - hph, 0.0)
     s_diag = omega / var
     r = est.residual[idx]
@@ -117,8 +99,8 @@ def residual_correlation(
     model = estimator.model
     idx = np.flatnonzero(est.used)
     pos = int(np.searchsorted(idx, i))
-    H = est.jacobian.toarray()
-    row = -(H[pos] @ analysis.state_covariance) @ H.T
+    H = sp.csr_matrix(est.jacobian)
+    row = -np.asarray(H @ (analysis.state_covariance @ H[pos].toarray().ravel())).ravel()
     row[pos] += model.sigma_pu[i] ** 2
     out = np.full(model.m, np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):

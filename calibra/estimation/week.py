@@ -28,19 +28,27 @@ import numpy as np
 import pandas as pd
 import scipy.linalg as la
 import scipy.sparse as sp
-import scipy.sparse.linalg as spla
 
+from calibra.estimation.covariance import (
+    DENSE_COVARIANCE_MAX,
+    DENSE_INVERSE_MAX,
+    kkt_solver,
+    quadratic_diagonal,
+    state_columns,
+    stiff_transform,
+)
 from calibra.estimation.measurements import StateLayout, unit_phasors
+from calibra.estimation.observability import Observability
 from calibra.estimation.residuals import CRITICAL_S, analyse_residuals, chi_square_threshold
 from calibra.estimation.runtime import can_fork, default_workers, fork_pool, tune_allocator
-from calibra.estimation.wls import Estimator, rows_touching
+from calibra.estimation.wls import Estimator
 
 #: Largest number of missing measurements handled by the Woodbury update of Ω.
 MAX_WOODBURY = 400
+#: Scaled Ωₘₘ pivots² above this are clearly not singular (no observability test needed).
+CLEAR_PIVOT = 1e-3
 #: Missing sets up to this size are updated together across the block (padded arrays).
 SMALL_MISSING = 6
-#: Entries per chunk when Hᵢ P Hᵢᵀ is summed over rows of H (bounds a temporary array).
-OMEGA_CHUNK = 4_000_000
 #: Largest state update (pu, rad) accepted as converged by default: the period's states are
 #: kept as float32, whose resolution near 1 pu is 1.2e-7, so iterating further changes nothing
 #: that is stored (against a 1e-11 run on IEEE 118 and the 2,000-bus network: states within
@@ -75,8 +83,63 @@ class _MissingGroup:
     missing: np.ndarray  # positions in the base measurement list
     factor: np.ndarray | None  # Ωₘₘ⁻¹, None when M is empty or leaves M unobservable
     omega_diag: np.ndarray  # Ωᵢᵢ of the snapshot's pattern, over the base list
-    h_missing: np.ndarray | None = None  # Hₘ (|M| × nx), dense
-    q_missing: np.ndarray | None = None  # K₀⁻¹ [Hₘᵀ; 0] ((nx + nc) × |M|)
+    h_missing: np.ndarray | None = None  # Uᵀ: [Hₘ, 0] (|M| × (nx + nc)), dense
+    q_missing: np.ndarray | None = None  # K₀⁻¹U: K₀⁻¹ [Hₘᵀ; 0] ((nx + nc) × |M|)
+    #: When M leaves part of the block's islands unobservable: the snapshots' own
+    #: observability, the further base rows they cannot use, the zero-injection constraints
+    #: they drop (bool over the block's constraints) and the buses they do not estimate.
+    observability: Observability | None = None
+    unusable: np.ndarray | None = None
+    constraints_off: np.ndarray | None = None
+    lost: np.ndarray | None = None
+    pins: np.ndarray | None = None  #: state columns held (lost buses, new islands' angles)
+
+
+def _downdated(omega_diag: np.ndarray, rows: np.ndarray, factor: np.ndarray) -> np.ndarray:
+    """Ωᵢᵢ − Σ Ωᵢₘ (Ωₘₘ⁻¹)ₘₙ Ωₙᵢ over the base list, given the rows Ωₘ,· (r × base) and
+    Ωₘₘ⁻¹. Correlations fall off with electrical distance: only the columns where some row
+    could change Ωᵢᵢ by more than 1e-7 of itself are summed (on a large network a few per
+    cent of them)."""
+    reach = (rows ** 2 * np.abs(np.diag(factor))[:, None]).max(axis=0)
+    cols = np.flatnonzero(reach > 1e-7 * np.maximum(omega_diag, 1e-300))
+    out = omega_diag.copy()
+    if cols.size:
+        a = rows[:, cols]
+        out[cols] -= ((factor @ a) * a).sum(axis=0)
+    return np.maximum(out, 0.0)
+
+
+class _ColumnCache:
+    """K₀⁻¹[Hᵢᵀ; 0] for base rows i, computed in one batch and kept for the block (up to a
+    memory limit; beyond it, computed on every request)."""
+
+    LIMIT = 16_000_000  #: entries kept at most (128 MB)
+
+    def __init__(self, compute, expected: np.ndarray):
+        self._compute = compute
+        self.where: dict[int, int] = {}
+        self.store: np.ndarray | None = None
+        self.expected = expected
+
+    def get(self, rows: np.ndarray) -> np.ndarray:
+        rows = np.asarray(rows, np.int64)
+        if self.store is None:
+            first = self._compute(rows[:1]) if rows.size else np.zeros((0, 0))
+            dim = first.shape[0]
+            if dim * max(self.expected.size, 1) > self.LIMIT or rows.size == 0:
+                return self._compute(rows) if rows.size else np.zeros((dim, 0))
+            # Everything the block will ask for, in one batch of solves.
+            self.store = self._compute(self.expected)
+            self.where = {int(r): j for j, r in enumerate(self.expected)}
+        cols = [self.where.get(int(r), -1) for r in rows]
+        if min(cols, default=0) < 0:
+            return self._compute(rows)
+        return self.store[:, cols]
+
+
+def _rank(g: _MissingGroup) -> int:
+    """Rank of a group's update of K₀."""
+    return 0 if g.h_missing is None else g.h_missing.shape[0]
 
 
 @dataclass
@@ -85,125 +148,9 @@ class _SmallWoodbury:
     indexed by ``position`` (per snapshot of the block; −1: not such a group)."""
 
     position: np.ndarray
-    h: np.ndarray  # (groups, width, nx)
+    h: np.ndarray  # (groups, width, nx + nc)
     f: np.ndarray  # (groups, width, width)
     q: np.ndarray  # (nx + nc, groups, width)
-
-
-#: Dense inverse of the iteration matrix below this size (a matrix product is cheaper than
-#: sparse triangular solves there: IEEE 118, 255 unknowns × 360 snapshots, 1.1 ms vs 3.7 ms).
-DENSE_INVERSE_MAX = 800
-
-
-def _scaled_solver(lu, d: np.ndarray):
-    """B ↦ K₀⁻¹B from the factorization of D⁻¹K₀D⁻¹ (a dense inverse when small)."""
-    if d.size <= DENSE_INVERSE_MAX:
-        inv = lu.solve(np.diag(1.0 / d)) / d[:, None]
-
-        def solve(B: np.ndarray) -> np.ndarray:
-            return inv @ B
-    else:
-        def solve(B: np.ndarray) -> np.ndarray:
-            if B.ndim == 2:
-                return lu.solve(B / d[:, None]) / d[:, None]
-            return lu.solve(B / d) / d
-    return solve
-
-
-#: Column orderings tried for a large iteration matrix (the first one alone for a small one).
-ORDERINGS = ("COLAMD", "MMD_ATA", "MMD_AT_PLUS_A")
-
-
-def _sparsest_lu(A: sp.csc_matrix):
-    """SuperLU factors of A with the column ordering that fills least: the block's solves cost
-    in proportion to the fill (2,000-bus network: 228-244 thousand nonzeros with COLAMD or
-    minimum degree on AᵀA, 367 thousand on Aᵀ + A; solves 35 % faster), while factorizing
-    takes tens of milliseconds. Small matrices get a dense inverse anyway: one ordering."""
-    error: Exception | None = None
-    best = None
-    for spec in ORDERINGS if A.shape[0] > DENSE_INVERSE_MAX else ORDERINGS[:1]:
-        try:
-            lu = spla.splu(A, permc_spec=spec, diag_pivot_thresh=0.01)
-        except RuntimeError as exc:  # exactly singular with this ordering's pivots
-            error = exc
-            continue
-        if best is None or lu.nnz < best.nnz:
-            best = lu
-    if best is None:
-        raise error
-    return best
-
-
-#: Largest state for which K₀⁻¹'s state columns come from a dense Cholesky inverse of G₀
-#: (LAPACK potrf + potri: 1.9 s for 4,000 states, against 4-5 s of sparse solves).
-DENSE_COVARIANCE_MAX = 6000
-
-
-def _state_columns(G0: sp.spmatrix, C0: sp.spmatrix) -> tuple[np.ndarray, np.ndarray] | None:
-    """K₀⁻¹[:, :nx] for K₀ = [[G₀, C₀ᵀ], [C₀, 0]] as its state block P (nx × nx, symmetric,
-    C-ordered) and multiplier block M (nc × nx), from a dense Cholesky inverse of G₀ (scaled to
-    a unit diagonal): with S = C₀G₀⁻¹C₀ᵀ, P = G₀⁻¹ − G₀⁻¹C₀ᵀS⁻¹C₀G₀⁻¹ and M = S⁻¹C₀G₀⁻¹. None
-    when G₀ alone is not positive definite (the state is then observable only with the
-    zero-injection constraints): the caller solves K₀ instead. Works in G₀'s dense buffer
-    (fresh pages are costly: a 4,000-state copy took longer than the product it held)."""
-    nx, nc = G0.shape[0], C0.shape[0]
-    s = 1.0 / np.sqrt(np.maximum(G0.diagonal(), 1e-300))
-    # Symmetric: the transpose of the C-ordered array is the Fortran-ordered one LAPACK takes.
-    Gs = (sp.diags(s) @ G0 @ sp.diags(s)).toarray().T
-    try:
-        c, _ = la.cho_factor(Gs, lower=True, overwrite_a=True, check_finite=False)
-    except la.LinAlgError:
-        return None
-    if np.diag(c).min() ** 2 < 1e-10:
-        return None  # nearly singular: leave it to the pivoting sparse factorization
-    inv, info = la.lapack.dpotri(c, lower=1, overwrite_c=1)
-    if info != 0:
-        return None
-    _mirror_lower(inv)
-    inv *= s[:, None]
-    inv *= s[None, :]  # G₀⁻¹, symmetric and Fortran-ordered
-    if nc == 0:
-        return inv.T, np.zeros((0, nx))
-    GCt = np.asarray(C0 @ inv.T).T  # G₀⁻¹C₀ᵀ (nx × nc); inv.T: the same, C-ordered
-    S = np.asarray(C0 @ GCt)
-    try:
-        SinvCG = la.solve(S, GCt.T, assume_a="sym")  # M = S⁻¹C₀G₀⁻¹ (nc × nx)
-    except la.LinAlgError:
-        return None
-    # P = G₀⁻¹ − G₀⁻¹C₀ᵀ M in place (BLAS gemm into the Fortran-ordered buffer).
-    P = la.blas.dgemm(-1.0, GCt, SinvCG, beta=1.0, c=inv, overwrite_c=1)
-    return P.T, SinvCG
-
-
-def _mirror_lower(a: np.ndarray, width: int = 256) -> None:
-    """Copy the lower triangle of a square array onto its upper triangle, in place (by column
-    panels, so the copy stays in cache: 40× faster than tril + tril.T on 4,000 × 4,000)."""
-    n = a.shape[0]
-    for j in range(0, n, width):
-        e = min(j + width, n)
-        a[j:e, e:] = a[e:, j:e].T
-        upper = np.triu_indices(e - j, 1)
-        block = a[j:e, j:e]
-        block[upper] = block.T[upper]
-
-
-def _quadratic_diagonal(H: sp.csr_matrix, P: np.ndarray) -> np.ndarray:
-    """diag(H P Hᵀ) for a sparse H with few nonzeros per row: Σⱼₗ Hᵢⱼ Pⱼₗ Hᵢₗ over each row's
-    own columns (O(m·r²) for r nonzeros per row, instead of the O(nnz·n) of H @ P)."""
-    H = H.tocsr()
-    H.sum_duplicates()
-    counts = np.diff(H.indptr)
-    out = np.zeros(H.shape[0])
-    for r in np.unique(counts[counts > 0]):
-        rows = np.flatnonzero(counts == r)
-        step = max(1, OMEGA_CHUNK // int(r * r))
-        for a in range(0, rows.size, step):
-            sel = rows[a:a + step]
-            pos = H.indptr[sel][:, None] + np.arange(r)[None, :]
-            cols, vals = H.indices[pos], H.data[pos]
-            block = P[cols[:, :, None], cols[:, None, :]]  # (rows, r, r)
-            out[sel] = np.einsum("ij,ijl,il->i", vals, block, vals)
-    return out
 
 
 class BlockSolver:
@@ -211,7 +158,7 @@ class BlockSolver:
 
     def __init__(self, estimator: Estimator, status: np.ndarray,
                  tolerance: float = BLOCK_TOLERANCE,
-                 max_iterations: int = 40, partial: bool = False):
+                 max_iterations: int = 40, partial: bool = False, statistics: bool = True):
         self.estimator = estimator
         self.model = estimator.model
         self.status = status
@@ -220,49 +167,106 @@ class BlockSolver:
         #: Accept a reference that is not fully observable (a block inside an RTU outage):
         #: the block then estimates the observable islands of that reference.
         self.partial = partial
+        #: False: states, residuals and objectives only, no residual covariance Ω (no dense
+        #: state covariance: what screening probes need on a large network).
+        self.statistics = statistics
 
     # ------------------------------------------------------------------ public
     def solve(self, Z: np.ndarray, confidence: float = 0.99) -> BlockResult:
-        """Estimate every row of Z (k × m, per unit, NaN = missing)."""
-        model = self.model
-        k, m = Z.shape
-        n = model.network.n_bus
-        avail = np.isfinite(Z)
-        out = BlockResult(
+        """Estimate every row of Z (k × m, per unit, NaN = missing).
+
+        A numerical failure of the block (a singular or badly conditioned iteration matrix)
+        never ends the period: the block is split in halves, down to snapshots estimated one
+        at a time, and each snapshot's outcome says how it was estimated.
+        """
+        try:
+            return self._solve_block(Z, confidence)
+        except NUMERICAL_ERRORS as exc:
+            return self._split(Z, confidence, exc)
+
+    def _split(self, Z: np.ndarray, confidence: float, exc: Exception) -> BlockResult:
+        k = Z.shape[0]
+        why = f"block iteration failed ({_describe(exc)})"
+        if k >= 2 * MIN_SPLIT:
+            half = k // 2
+            parts = [BlockSolver(self.estimator, self.status, self.tolerance,
+                                 self.max_iterations, self.partial, self.statistics
+                                 ).solve(Z[a:b], confidence)
+                     for a, b in ((0, half), (half, k))]
+            out = _stack_blocks(parts)
+            note = out.outcomes["method"] == "block"
+            out.outcomes.loc[note, "reason"] = (out.outcomes.loc[note, "reason"].astype(str)
+                                                + f"; in a half block after the {why}")
+            return out
+        out = self._empty(k, self.model.m, self.model.network.n_bus)
+        rows = [self._single(i, Z[i], confidence, out) for i in range(k)]
+        for r in rows:
+            r["reason"] = f"{r['reason']}; alone after the {why}"
+        return self._finish(out, rows)
+
+    @staticmethod
+    def _empty(k: int, m: int, n: int) -> BlockResult:
+        return BlockResult(
             np.full((k, n), np.nan, np.float32), np.full((k, n), np.nan, np.float32),
             np.full((k, m), np.nan, np.float32), np.full((k, m), np.nan, np.float32),
             pd.DataFrame(),
         )
+
+    def _finish(self, out: BlockResult, rows: list[dict]) -> BlockResult:
+        out.outcomes = pd.DataFrame(rows, columns=OUTCOME_COLUMNS)
+        res = out.residual.astype(float)
+        used = np.isfinite(res)
+        out.outcomes["n_used"] = used.sum(axis=1)
+        out.outcomes["objective"] = np.where(used, res, 0.0) ** 2 @ (1.0 / self.model.sigma_pu ** 2)
+        return out
+
+    def _solve_block(self, Z: np.ndarray, confidence: float) -> BlockResult:
+        model = self.model
+        k, m = Z.shape
+        n = model.network.n_bus
+        avail = np.isfinite(Z)
+        out = self._empty(k, m, n)
         rows: list[dict] = [{} for _ in range(k)]
         single = np.ones(k, bool)
         ref = self._reference(Z, avail)
         if ref is not None:
-            usable = ~rows_touching(model.functions, ~ref.observability.estimated_buses)
-            avail = avail & usable[None, :]
+            obs = ref.observability
+            avail = avail & obs.usable[None, :]
             self._prepare(ref, avail.any(axis=0))
             groups = self._groups(avail)
             blockable = [g for g in groups if g.factor is not None or g.missing.size == 0]
+            for g in blockable:
+                if g.unusable is not None:  # rows its lost part makes unusable
+                    avail[np.ix_(g.members, self._idx[g.unusable])] = False
             if blockable:
-                members = np.concatenate([g.members for g in blockable])
                 done, iters = self._iterate(Z, avail, blockable, out)
-                observable = ref.observability.observable
-                for i in members[done[members]]:
-                    single[i] = False
-                    rows[i] = {"converged": True, "iterations": int(iters[i]), "method": "block",
-                               "reason": ref.reason, "observable": observable,
-                               "dof": int(avail[i].sum()) - (self._nx - self._cidx.size)}
+                for g in blockable:
+                    own = g.observability or obs
+                    off = int(g.constraints_off.sum()) if g.constraints_off is not None else 0
+                    free = int(2 * g.lost.sum()) if g.lost is not None else 0
+                    for i in g.members[done[g.members]]:
+                        single[i] = False
+                        rows[i] = {"converged": True, "iterations": int(iters[i]),
+                                   "method": "block", "reason": _reason(own), **outcome_of(own),
+                                   "dof": int(avail[i].sum()) - (self._nx - free)
+                                   + (self._cidx.size - off)}
+                    # Gauss-Newton on its own matrix did not converge either: the single
+                    # estimator would not do better (the same iteration); say so.
+                    for i in g.members[~done[g.members]]:
+                        if i in self._newton_last:
+                            single[i] = False
+                            rows[i] = {"converged": False, "iterations": int(iters[i]),
+                                       "method": "block", **outcome_of(own), "dof": 0,
+                                       "reason": "no convergence (Gauss-Newton on the "
+                                                 "snapshot's own matrix, last step "
+                                                 f"{self._newton_last[i]:.2e})"}
                 self._residuals(Z, avail, blockable, single, out)
         rest = np.flatnonzero(single)
         if not self.partial and rest.size >= 4:
             self._solve_partial_groups(Z, rest, confidence, out, rows, single)
         for i in np.flatnonzero(single):
             rows[i] = self._single(i, Z[i], confidence, out)
-        out.outcomes = pd.DataFrame(rows)
-        res = out.residual.astype(float)
-        used = np.isfinite(res)
-        out.outcomes["n_used"] = used.sum(axis=1)
-        out.outcomes["objective"] = np.where(used, res, 0.0) ** 2 @ (1.0 / model.sigma_pu ** 2)
-        return out
+        return self._finish(out, rows)
 
     def _solve_partial_groups(self, Z, rest, confidence, out: BlockResult, rows, single) -> None:
         """Snapshots left out of the block, grouped by the measurements they systematically
@@ -277,35 +281,49 @@ class BlockSolver:
             if members.size < 4:
                 continue
             sub = BlockSolver(self.estimator, self.status, self.tolerance, self.max_iterations,
-                              partial=True).solve(Z[members], confidence)
+                              partial=True, statistics=self.statistics
+                              ).solve(Z[members], confidence)
             ok = sub.outcomes["method"].to_numpy() == "block"
             for j in np.flatnonzero(ok):
                 i = members[j]
                 single[i] = False
                 out.vm[i], out.va[i] = sub.vm[j], sub.va[j]
                 out.residual[i], out.omega[i] = sub.residual[j], sub.omega[j]
-                rows[i] = {c: sub.outcomes.iloc[j][c] for c in
-                           ("converged", "iterations", "method", "reason", "observable", "dof")}
+                rows[i] = {c: sub.outcomes.iloc[j][c] for c in OUTCOME_COLUMNS}
 
     # ------------------------------------------------------------------ set-up
     def _reference(self, Z: np.ndarray, avail: np.ndarray):
-        """A converged snapshot of the block (most measurements first): fully observable, or
-        in a partial block the most complete one."""
+        """A converged snapshot of the block (most measurements first) that estimates what
+        the block's measurements together can: every observable island of the block's
+        pattern (parts of a network may be unobservable: that is normal). In a partial block
+        (an RTU outage) the most complete converged snapshot."""
         base = avail.any(axis=0)
         if not base.any():
             return None
-        if not self.partial and not self.estimator.observability(base, self.status).observable:
+        whole = self.estimator.observability(base, self.status)
+        if whole.n_islands == 0:
             return None
-        # The most complete snapshots, the one nearest the middle of the block first: the
-        # block iterates around the reference's operating point.
+        # The block iterates around the reference's operating point: the snapshot nearest the
+        # middle of the block. It only sets the iteration matrix and the islands, so its few
+        # missing values are taken from the nearest snapshots in time: it then estimates
+        # every island of the block's pattern, although with sparse metering nearly every
+        # snapshot misses some meter the islands need. (A partial block, without filling:
+        # the most complete snapshots, nearest the middle first.)
         count = avail.sum(axis=1)
         middle = np.abs(np.arange(len(count)) - (len(count) - 1) / 2)
-        order = np.lexsort((middle, -count))
+        if REFERENCE_BY_LOADING:
+            a = np.abs(Z)
+            seen = np.isfinite(a)
+            level = np.where(seen, a, 0.0).sum(axis=1) / np.maximum(seen.sum(axis=1), 1)
+            middle = np.abs(level - np.median(level))
+        order = np.argsort(middle, kind="stable") if not self.partial else \
+            np.lexsort((middle, -count))
+        filled = _nearest_in_time(Z) if not self.partial else Z
         for cand in order[:5]:
-            # The reference only sets the iteration matrix: the block's tolerance is enough.
-            est = self.estimator.estimate(Z[cand], None, self.status,
+            # The block's tolerance is enough for a reference.
+            est = self.estimator.estimate(filled[cand], None, self.status,
                                           tolerance=max(self.tolerance, 1e-8))
-            if est.converged and (self.partial or est.observability.observable):
+            if est.converged and (self.partial or est.observability.covers(whole)):
                 return est
         return None
 
@@ -323,32 +341,39 @@ class BlockSolver:
         H0 = funcs.jacobian(ref.vm, ref.va, layout, status)[idx].tocsr()
         G0 = (H0.T @ sp.diags(1.0 / var) @ H0).tocsc()
         C0 = cons.jacobian(ref.vm, ref.va, layout, status)[cidx]
-        d = np.r_[np.sqrt(np.maximum(G0.diagonal(), 1e-300)), np.ones(nc)]
-        Dinv = sp.diags(1.0 / d)
-        K0 = sp.bmat([[G0, C0.T], [C0, None]], format="csc") if nc else G0
-        self._solve_k0 = _scaled_solver(_sparsest_lu((Dinv @ K0 @ Dinv).tocsc()), d)
-        # K₀⁻¹'s state columns: its top block is the state covariance P of the constrained
-        # problem. Everything the block needs follows from it and H₀: Ωᵢᵢ = Rᵢᵢ − H₀ᵢ P H₀ᵢᵀ,
-        # rows of Ω on demand, and K₀⁻¹[H₀ₘᵀ; 0] for the Woodbury updates — an (nx + nc) × nx
-        # array rather than (nx + nc) × m (on a 2,000-bus network, 0.13 GB instead of 0.6 GB).
-        cols = _state_columns(G0, C0) if DENSE_INVERSE_MAX < nx <= DENSE_COVARIANCE_MAX \
-            else None
-        if cols is None:
-            E = np.zeros((nx + nc, nx))
-            E[np.arange(nx), np.arange(nx)] = 1.0
-            K0_state = self._solve_k0(E)
-            cols = (np.ascontiguousarray(K0_state[:nx]), K0_state[nx:])
-        P, M = cols
-        self._P = P
-        # Columns of Mᵀ are read by sparse products (Woodbury columns): keep it C-ordered.
-        self._Mt = np.ascontiguousarray(M.T)
+        # Bus couplers make G₀ badly conditioned (near-parallel columns): work in variables
+        # that separate their stiff differences (x = T x'), K₀⁻¹ = T_f K₀'⁻¹ T_fᵀ.
+        T = self._stiff = stiff_transform(model.network, layout, status)
+        Gn, Cn = (G0, sp.csr_matrix(C0)) if T is None else \
+            ((T.T @ G0 @ T).tocsc(), sp.csr_matrix(C0) @ T)
+        self._solve_k0 = kkt_solver(G0, C0, T)
         self._H0 = H0
+        self._C0 = sp.csr_matrix(C0)
+        self._g0_diag = G0.diagonal()
         # A dense copy makes row access cheap; only when it stays small.
         self._H0_dense = H0.toarray() if idx.size * nx <= 5_000_000 else None
         self._var = var
         self._idx = idx
-        self._omega_diag = var - _quadratic_diagonal(H0, P)
         self._layout, self._cidx, self._nx, self._ref = layout, cidx, nx, ref
+        self._omega_diag = self._P = self._Mt = None
+        if not self.statistics:
+            return
+        # Ωᵢᵢ = Rᵢᵢ − H₀ᵢ P H₀ᵢᵀ over the base list from the state covariance P (K₀⁻¹'s state
+        # block, dense, once per block); the Woodbury updates need only solves with K₀.
+        # P and M (K₀⁻¹'s state columns) are kept in the variables of the stiff transform,
+        # x = T x': P = T P' Tᵀ, so H P Hᵀ = (H T) P' (H T)ᵀ.
+        cols = state_columns(Gn, Cn) if DENSE_INVERSE_MAX < nx <= DENSE_COVARIANCE_MAX \
+            else None
+        if cols is None:
+            E = np.zeros((nx + nc, nx))
+            E[np.arange(nx), np.arange(nx)] = 1.0
+            K0_state = kkt_solver(Gn, Cn)(E) if T is not None else self._solve_k0(E)
+            cols = (np.ascontiguousarray(K0_state[:nx]), K0_state[nx:])
+        # K₀⁻¹[Hᵢᵀ; 0] for a missing row i is then a sum of a few columns of P and M: far
+        # cheaper than a solve.
+        self._P, self._Mt = cols[0], np.ascontiguousarray(cols[1].T)
+        self._Hn = H0 if T is None else (H0 @ T).tocsr()
+        self._omega_diag = var - quadratic_diagonal(self._Hn, self._P)
 
     def _groups(self, avail: np.ndarray) -> list[_MissingGroup]:
         """Group snapshots by the base measurements they miss; factorize each Ωₘₘ.
@@ -371,13 +396,103 @@ class BlockSolver:
         for g, mset in enumerate(sets):
             if 0 < mset.size <= MAX_WOODBURY:
                 by_size.setdefault(mset.size, []).append(g)
+        # Consecutive snapshots miss many of the same values (a gap, an outage): K₀⁻¹[Hᵢᵀ; 0]
+        # is solved once per missing row of the block, not once per snapshot.
+        wanted = [sets[g] for ms in by_size.values() for g in ms]
+        self._columns = _ColumnCache(self._k0_columns, np.unique(np.concatenate(wanted))
+                                     if wanted else np.zeros(0, np.int64))
         for size, members in by_size.items():
             # Batches small enough that the stacked Ω rows stay a few tens of MB.
             batch = max(1, 4_000_000 // (size * max(idx.size, 1)))
             for start in range(0, len(members), batch):
                 chunk = members[start:start + batch]
                 self._factorize(np.stack([sets[g] for g in chunk]), [groups[g] for g in chunk])
+        for g in groups:
+            if g.factor is None and 0 < g.missing.size <= MAX_WOODBURY:
+                self._factorize_reduced(g)
         return groups
+
+    def _keeps_islands(self, missing: np.ndarray) -> bool:
+        """Whether the block's pattern without the base rows ``missing`` estimates every bus
+        of the block in as many islands."""
+        avail = np.zeros(self.model.m, bool)
+        avail[self._idx] = True
+        avail[self._idx[missing]] = False
+        return self.estimator.observability(avail, self.status).covers(self._ref.observability)
+
+    def _factorize_reduced(self, g: _MissingGroup) -> None:
+        """A missing set that leaves part of the block's islands unobservable (a meter that
+        alone ties a bus or an island): the snapshots keep what their own pattern observes.
+
+        K₀ becomes K_s by a low-rank update U C Uᵀ: rows removed (M and the rows the lost part
+        makes unusable: [Hᵢᵀ; 0], C = −1/σᵢ²), constraints removed (λⱼ decoupled: columns
+        [Cⱼᵀ; 0] and eⱼ, C = [[0, −1], [−1, 1]]), and every state the pattern leaves free held
+        (lost buses, the angle reference of each new island: eₛ, C = G₀ₛₛ). The free states
+        then appear in no row left, so the held values change nothing else: the iteration
+        converges to the exact estimate of the observable part, and Woodbury gives K_s⁻¹
+        from K₀⁻¹ with the capacitance −(C⁻¹ + UᵀK₀⁻¹U)."""
+        model, idx, ref = self.model, self._idx, self._ref
+        layout, nx, nc = self._layout, self._nx, self._cidx.size
+        avail = np.zeros(model.m, bool)
+        avail[idx] = True
+        avail[idx[g.missing]] = False
+        obs = self.estimator.observability(avail, self.status)
+        if obs.n_islands == 0:
+            return
+        unusable = np.flatnonzero(~obs.usable[idx] & avail[idx])
+        removed = np.union1d(g.missing, unusable)
+        if removed.size > MAX_WOODBURY:
+            return
+        off = ~obs.constraints_usable[self._cidx]
+        lost = ref.observability.estimated_buses & ~obs.estimated_buses
+        pins = [layout.magnitude_column[lost], layout.angle_column[lost]]
+        block_refs = set(ref.observability.references.tolist())
+        for r in obs.references:
+            members = np.flatnonzero(obs.island == obs.island[r])
+            if not block_refs.intersection(members.tolist()):
+                pins.append(layout.angle_column[[r]])
+        pins = np.unique(np.concatenate(pins))
+        pins = pins[pins >= 0]
+        dim = nx + nc
+        h_rows = self._H0_rows(removed)
+        cons_rows = np.flatnonzero(off)
+        C0 = self._C0
+        blocks = [np.hstack([h_rows, np.zeros((removed.size, nc))])]
+        cinv = [np.diag(-self._var[removed])]
+        for j in cons_rows:
+            pair = np.zeros((2, dim))
+            pair[0, :nx] = C0[j].toarray().ravel()
+            pair[1, nx + j] = 1.0
+            blocks.append(pair)
+            cinv.append(np.array([[-1.0, -1.0], [-1.0, 0.0]]))
+        if pins.size:
+            e = np.zeros((pins.size, dim))
+            e[np.arange(pins.size), pins] = 1.0
+            blocks.append(e)
+            cinv.append(np.diag(1.0 / np.maximum(self._g0_diag[pins], 1e-12)))
+        Ut = np.vstack(blocks)  # r × dim
+        Q = np.empty((dim, Ut.shape[0]))  # K₀⁻¹U
+        Q[:, :removed.size] = self._columns.get(removed)
+        if Ut.shape[0] > removed.size:
+            Q[:, removed.size:] = self._solve_k0(np.ascontiguousarray(Ut[removed.size:].T))
+        cap = -(la.block_diag(*cinv) + Ut @ Q)
+        d = 1.0 / np.sqrt(np.maximum(np.abs(np.diag(cap)), 1e-300))
+        scaled = cap * d[:, None] * d[None, :]
+        try:
+            inv = np.linalg.inv(scaled)
+        except np.linalg.LinAlgError:
+            return
+        # A capacitance that is singular after all (the pattern loses more than the test
+        # said) shows in its inverse: refuse it rather than iterate with it.
+        if not np.isfinite(inv).all() or np.abs(inv).max() > 1e10:
+            return
+        factor = inv * d[:, None] * d[None, :]
+        g.factor, g.h_missing, g.q_missing = factor, Ut, Q
+        g.observability, g.unusable, g.constraints_off, g.lost = obs, unusable, off, lost
+        g.pins = pins
+        if self.statistics:
+            g.omega_diag = _downdated(self._omega_diag, -np.asarray(self._H0 @ Q[:nx]).T,
+                                      factor)
 
     def _factorize(self, M: np.ndarray, groups: list[_MissingGroup]) -> None:
         """Ωₘₘ⁻¹ and the updated Ωᵢᵢ for groups with equally many missing measurements
@@ -385,9 +500,18 @@ class BlockSolver:
         leaves the snapshot unobservable) keeps ``factor`` None."""
         G, size = M.shape
         union, pos = np.unique(M, return_inverse=True)
-        om_ma = self._omega_rows(union)[pos.reshape(M.shape)]  # (G, size, base)
-        om_mm = om_ma[np.arange(G)[:, None, None], np.arange(size)[None, :, None],
-                      M[:, None, :]]
+        pos = pos.reshape(M.shape)
+        # K₀⁻¹[Hᵤᵀ; 0] by solves with the missing rows U (a few sparse solves cost far less
+        # than products with the dense covariance on a large network).
+        h_union = self._H0_rows(union)
+        q_union = self._columns.get(union)
+        om_uu = np.diag(self._var[union]) - h_union @ q_union[:self._nx]
+        om_mm = om_uu[pos[:, :, None], pos[:, None, :]]
+        om_ma = None
+        if self.statistics:  # rows of Ω over the base list: Rδ − H₀ K₀⁻¹[Hᵤᵀ; 0]
+            rows_u = -np.asarray(self._H0 @ q_union[:self._nx]).T
+            rows_u[np.arange(union.size), union] += self._var[union]
+            om_ma = rows_u[pos]  # (G, size, base)
         scale = np.sqrt(self._var[M])
         S = om_mm / scale[:, :, None] / scale[:, None, :]
         try:
@@ -404,41 +528,41 @@ class BlockSolver:
                     pass
         diag_l = np.diagonal(L, axis1=1, axis2=2)
         ok &= diag_l.min(axis=1) ** 2 >= CRITICAL_S
+        # A small pivot may be a meter that alone ties part of the block's islands: decided
+        # by the observability test, not by the size of a rounding error.
+        for g in np.flatnonzero(ok & (diag_l.min(axis=1) ** 2 < CLEAR_PIVOT)):
+            ok[g] = self._keeps_islands(M[g])
         sel = np.flatnonzero(ok)
         if sel.size == 0:
             return
         Linv = np.linalg.inv(L[sel])
         inv = np.einsum("gqp,gqr->gpr", Linv, Linv)  # (LLᵀ)⁻¹ = L⁻ᵀL⁻¹
         inv = inv / scale[sel][:, :, None] / scale[sel][:, None, :]
-        om_sel = om_ma[sel]
-        diag = self._omega_diag[None, :] - np.einsum("gpm,gpm->gm", om_sel, inv @ om_sel)
         for j, g in enumerate(sel):
             mset = M[g]
             grp = groups[g]
             grp.factor = inv[j]
-            grp.omega_diag = np.maximum(diag[j], 0.0)
-            grp.h_missing = self._H0_rows(mset)
-            # K₀⁻¹ [H₀ₘᵀ; 0] from the sparse rows (a few nonzeros each).
-            grp.q_missing = self._k0_columns(mset)
+            grp.h_missing = np.hstack([h_union[pos[g]], np.zeros((mset.size, self._cidx.size))])
+            grp.q_missing = q_union[:, pos[g]]
+            if om_ma is not None:
+                grp.omega_diag = _downdated(self._omega_diag, om_ma[g], inv[j])
+
+    def _k0_columns(self, rows: np.ndarray) -> np.ndarray:
+        """K₀⁻¹[H₀ᵣᵀ; 0] ((nx + nc) × |rows|): from the sparse rows and K₀⁻¹'s state columns
+        when the block has them (a few nonzeros per row), else by solves."""
+        if self._P is None:
+            h = self._H0_rows(rows)
+            return self._solve_k0(np.vstack([h.T, np.zeros((self._cidx.size, rows.size))]))
+        h = self._Hn[rows]
+        qx = np.asarray(h @ self._P).T
+        if self._stiff is not None:
+            qx = np.asarray(self._stiff @ qx)
+        return np.vstack([qx, np.asarray(h @ self._Mt).T])
 
     def _H0_rows(self, rows: np.ndarray) -> np.ndarray:
         if self._H0_dense is not None:
             return self._H0_dense[rows]
         return self._H0[rows].toarray()
-
-    def _k0_columns(self, rows: np.ndarray) -> np.ndarray:
-        """K₀⁻¹ [H₀ᵣᵀ; 0] ((nx + nc) × |rows|) from the sparse rows (a few nonzeros each)."""
-        h = self._H0[rows]
-        return np.vstack([(h @ self._P).T, (h @ self._Mt).T])
-
-    def _omega_rows(self, rows: np.ndarray) -> np.ndarray:
-        """Rows of Ω = R − H P Hᵀ over the base list."""
-        P = self._P
-        # Rows H₀ᵢ P: a sparse product unless H₀ is small enough to be kept dense.
-        hp = self._H0_dense[rows] @ P if self._H0_dense is not None else self._H0[rows] @ P
-        om = -(self._H0 @ hp.T).T
-        om[np.arange(rows.size), rows] += self._var[rows]
-        return om
 
     # ------------------------------------------------------------------ block iteration
     def _iterate(self, Z: np.ndarray, avail: np.ndarray, groups: list[_MissingGroup],
@@ -460,15 +584,31 @@ class BlockSolver:
         lam = np.zeros((nc, k))
         done = np.zeros(k, bool)
         iters = np.zeros(k, np.int64)
+        # Constraints a snapshot drops (its pattern leaves their buses unobservable).
+        self._cons_on = np.ones((nc, k), bool)
+        for g in groups:
+            if g.constraints_off is not None:
+                self._cons_on[np.ix_(g.constraints_off, g.members)] = False
 
         self._pad_small_groups(k, groups)
         members = np.flatnonzero(group_of >= 0)
+        self._diverged = np.zeros(k, bool)
+        self._newton_last: dict[int, float] = {}
         # Snapshots are independent: on a large network they go through in column chunks.
         width = max(8, COLUMN_CHUNK_BYTES // (16 * max(model.m, len(model.network.buses))))
         for c0 in range(0, members.size, width):
             self._iterate_columns(members[c0:c0 + width], group_of, groups, Zt, W, vm, va, lam,
                                   done, iters)
+        # What the fixed matrix does not bring to convergence (an operating point far from
+        # the reference's, stiff couplers whose Jacobian turns with it) is finished by
+        # Gauss-Newton on the snapshot's own matrix.
+        for i in members[~done[members]]:
+            self._newton_alone(int(i), groups[group_of[i]], Zt, W, vm, va, lam, done, iters)
         vm[lost], va[lost] = np.nan, np.nan
+        for g in groups:
+            if g.lost is not None:
+                vm[np.ix_(g.lost, g.members)] = np.nan
+                va[np.ix_(g.lost, g.members)] = np.nan
         ok = np.flatnonzero(done)
         out.vm[ok], out.va[ok] = vm[:, ok].T, va[:, ok].T
         self._states = (vm, va)  # float64, for residuals
@@ -485,8 +625,10 @@ class BlockSolver:
         live = np.asarray(cols)  # snapshots still iterating, in the order of the local arrays
         z, w = Zt[:, live], W[:, live]
         x_vm, x_va, x_lam = vm[:, live], va[:, live], lam[:, live]
-        accel = _Anderson(nx + nc, live.size)
-        for _ in range(self.max_iterations):
+        on = self._cons_on[:, live]
+        dropped = not on.all()
+        accel = _Anderson(nx + nc, live.size, ANDERSON_DEPTH)
+        for _ in range(min(self.max_iterations, CHORD_ITERATIONS)):
             if live.size == 0:
                 break
             phasors = unit_phasors(x_va)
@@ -496,13 +638,18 @@ class BlockSolver:
                 lam_rows[cidx] = x_lam
                 c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, status, layout, lam_rows,
                                                         phasors)
-                rhs = np.vstack([rhs - c_grad, -c[cidx]])
+                c = -c[cidx]
+                if dropped:
+                    c[~on] = 0.0
+                rhs = np.vstack([rhs - c_grad, c])
             sol = self._solve_k0(rhs)
             self._woodbury(sol, live, group_of, groups)
             step = np.abs(sol[:nx]).max(axis=0)
             sol = accel.step(sol, nx)
             if nc:
                 x_lam += sol[nx:]
+                if dropped:
+                    x_lam[~on] = 0.0
             x_vm, x_va = layout.apply_step(x_vm, x_va, sol[:nx])
             iters[live] += 1
             finished = step < self.tolerance
@@ -511,13 +658,84 @@ class BlockSolver:
             if not stay.all():
                 leave = ~stay
                 gone = live[leave]
+                self._diverged[live[leave & ~finished]] = True
                 vm[:, gone], va[:, gone], lam[:, gone] = x_vm[:, leave], x_va[:, leave], \
                     x_lam[:, leave]
                 live = live[stay]
-                z, w = z[:, stay], w[:, stay]
+                z, w, on = z[:, stay], w[:, stay], on[:, stay]
                 x_vm, x_va, x_lam = x_vm[:, stay], x_va[:, stay], x_lam[:, stay]
                 accel.keep(stay)
         vm[:, live], va[:, live], lam[:, live] = x_vm, x_va, x_lam
+
+    def _newton_alone(self, i: int, g: _MissingGroup, Zt, W, vm, va, lam, done, iters) -> None:
+        """Gauss-Newton for snapshot i on its own matrix (its weights, the constraints it keeps,
+        the states its pattern leaves free held), from its last iterate or, when the block
+        iteration ran away, from the reference state."""
+        model, status, layout = self.model, self.status, self._layout
+        funcs, cons = model.functions, model.constraints
+        nx, cidx = self._nx, self._cidx
+        nc = cidx.size
+        ref = self._ref
+        z, w = Zt[:, i:i + 1], W[:, i:i + 1]
+        if self._diverged[i]:
+            x_vm, x_va, x_lam = ref.vm[:, None].copy(), ref.va[:, None].copy(), \
+                np.zeros((nc, 1))
+            x_vm[~ref.observability.estimated_buses] = 1.0
+            x_va[~ref.observability.estimated_buses] = 0.0
+        else:
+            x_vm, x_va, x_lam = vm[:, [i]].copy(), va[:, [i]].copy(), lam[:, [i]].copy()
+        on = self._cons_on[:, i]
+        off = np.flatnonzero(~on)
+        pins = g.pins if g.pins is not None else np.zeros(0, np.int64)
+        hold = sp.csr_matrix((self._g0_diag[pins] if pins.size else np.zeros(0),
+                              (pins, pins)), shape=(nx, nx))
+        D = sp.csr_matrix((np.ones(off.size), (off, off)), shape=(nc, nc)) if nc else None
+        keep = sp.diags(on.astype(float)) if nc else None
+        last = best = step = np.inf
+        stuck = 0
+        for it in range(1, self.max_iterations + 1):
+            H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)
+            G = (H.T @ sp.diags(w[:, 0]) @ H + hold).tocsc()
+            phasors = unit_phasors(x_va)
+            _, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w), phasors)
+            if nc:
+                C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)[cidx]
+                lam_rows = np.zeros((cons.m, 1))
+                lam_rows[cidx] = x_lam * on[:, None]
+                c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, status, layout, lam_rows,
+                                                        phasors)
+                c = -c[cidx]
+                c[off] = 0.0
+                rhs = np.vstack([rhs - c_grad, c])
+            else:
+                C = sp.csr_matrix((0, nx))
+            try:
+                sol = kkt_solver(G, C, self._stiff, D, ORDERINGS_ALONE, dense=False)(rhs)
+            except NUMERICAL_ERRORS:
+                break
+            step = float(np.abs(sol[:nx]).max())
+            if not np.isfinite(step):
+                break
+            if step > _MAX_NEWTON_STEP:
+                sol = sol * (_MAX_NEWTON_STEP / step)
+            if nc:
+                x_lam = (x_lam + sol[nx:]) * on[:, None]
+            x_vm, x_va = layout.apply_step(x_vm, x_va, sol[:nx])
+            iters[i] += 1
+            # Converged, or stalled at round-off level (as the single estimator accepts).
+            if step < self.tolerance or (it >= 10 and step < 100 * self.tolerance
+                                         and step >= 0.5 * last):
+                done[i] = True
+                break
+            # No progress for many steps (a gross error the iteration cycles around).
+            stuck = 0 if step < 0.5 * best else stuck + 1
+            best = min(best, step)
+            if stuck >= _NEWTON_PATIENCE:
+                break
+            last = step
+        if not done[i]:
+            self._newton_last[i] = step
+        vm[:, [i]], va[:, [i]], lam[:, [i]] = x_vm, x_va, x_lam
 
     def _woodbury(self, sol: np.ndarray, active: np.ndarray, group_of: np.ndarray,
                   groups: list[_MissingGroup]) -> None:
@@ -527,39 +745,38 @@ class BlockSolver:
         miss only a few measurements (the usual case: a dropped sample) are updated together
         from padded per-snapshot arrays; larger sets group by group.
         """
-        nx = self._nx
         small = self._small_woodbury
         if small is not None:
             pos = small.position[active]
             cols = np.flatnonzero(pos >= 0)
             if cols.size:
                 p = pos[cols]
-                t = np.einsum("kpn,nk->kp", small.h[p], sol[:nx, cols])
+                t = np.einsum("kpn,nk->kp", small.h[p], sol[:, cols])
                 t = np.einsum("kpq,kq->kp", small.f[p], t)
                 sol[:, cols] += np.einsum("dkp,kp->dk", small.q[:, p], t)
         gids = group_of[active]
         for gi in np.unique(gids):
             g = groups[gi]
-            if g.factor is None or g.missing.size <= SMALL_MISSING:
+            if g.factor is None or _rank(g) <= SMALL_MISSING:
                 continue
             cols = np.flatnonzero(gids == gi)
-            sol[:, cols] += g.q_missing @ (g.factor @ (g.h_missing @ sol[:nx, cols]))
+            sol[:, cols] += g.q_missing @ (g.factor @ (g.h_missing @ sol[:, cols]))
 
     def _pad_small_groups(self, k: int, groups: list[_MissingGroup]) -> None:
         """Per-snapshot padded Hₘ, Ωₘₘ⁻¹ and K₀⁻¹Uₘ for the groups with few missing
         measurements (zero padding leaves the update unchanged)."""
-        small = [g for g in groups if g.factor is not None and g.missing.size <= SMALL_MISSING]
+        small = [g for g in groups if g.factor is not None and _rank(g) <= SMALL_MISSING]
         if not small:
             self._small_woodbury = None
             return
-        width = max(g.missing.size for g in small)
+        width = max(_rank(g) for g in small)
         dim = self._nx + self._cidx.size
-        h = np.zeros((len(small), width, self._nx))
+        h = np.zeros((len(small), width, dim))
         f = np.zeros((len(small), width, width))
         q = np.zeros((dim, len(small), width))
         position = np.full(k, -1, np.int64)
         for j, g in enumerate(small):
-            w = g.missing.size
+            w = _rank(g)
             h[j, :w], f[j, :w, :w], q[:, j, :w] = g.h_missing, g.factor, g.q_missing
             position[g.members] = j
         self._small_woodbury = _SmallWoodbury(position, h, f, q)
@@ -576,6 +793,8 @@ class BlockSolver:
         h = model.functions.evaluate(np.nan_to_num(vm, nan=1.0), np.nan_to_num(va),
                                      self.status).T
         out.residual[ok] = np.where(avail[ok], Z[ok] - h, np.nan)
+        if not self.statistics:
+            return
         for g in groups:
             mem = g.members[~single[g.members]]
             if mem.size == 0:
@@ -586,15 +805,91 @@ class BlockSolver:
 
     # ------------------------------------------------------------------ fallback
     def _single(self, i: int, z: np.ndarray, confidence: float, out: BlockResult) -> dict:
-        est = self.estimator.estimate(z, None, self.status)
+        try:
+            est = self.estimator.estimate(z, None, self.status)
+        except NUMERICAL_ERRORS as exc:
+            return {"converged": False, "iterations": 0, "method": "single",
+                    "reason": f"estimate failed: {_describe(exc)}", "observable": False,
+                    "islands": 0, "buses_not_estimated": self.model.network.n_bus, "dof": 0}
         row = {"converged": est.converged, "iterations": est.iterations, "method": "single",
-               "reason": est.reason, "observable": est.observability.observable,
-               "dof": est.dof}
+               "reason": est.reason, **outcome_of(est.observability), "dof": est.dof}
         if est.converged:
+            try:
+                omega = analyse_residuals(self.estimator, est, confidence).omega_diag \
+                    if self.statistics else np.full(self.model.m, np.nan)
+            except NUMERICAL_ERRORS as exc:
+                row.update(converged=False, reason=f"residual analysis failed: {_describe(exc)}")
+                return row
             out.vm[i], out.va[i] = est.vm, est.va
             out.residual[i] = est.residual
-            out.omega[i] = analyse_residuals(self.estimator, est, confidence).omega_diag
+            out.omega[i] = omega
         return row
+
+
+#: Columns of a block's outcome rows (``n_used`` and ``objective`` are added from the arrays).
+OUTCOME_COLUMNS = ("converged", "iterations", "method", "reason", "observable", "islands",
+                   "buses_not_estimated", "dof")
+#: What a failed factorization or a singular dense solve raises (SuperLU: RuntimeError).
+NUMERICAL_ERRORS = (RuntimeError, la.LinAlgError, np.linalg.LinAlgError, FloatingPointError,
+                    ValueError, ZeroDivisionError)
+#: Blocks shorter than twice this are not split further: their snapshots go one at a time.
+MIN_SPLIT = 8
+REFERENCE_BY_LOADING = True
+ANDERSON_DEPTH = 8
+#: Fixed-matrix iterations before a snapshot is finished on its own matrix.
+CHORD_ITERATIONS = 15
+#: Column ordering for a snapshot's own matrix (one factorization, no search).
+ORDERINGS_ALONE = ("MMD_AT_PLUS_A",)
+#: Largest state change (pu, rad) of one Gauss-Newton step on a snapshot's own matrix.
+_MAX_NEWTON_STEP = 0.5
+#: Steps without halving the smallest one before Gauss-Newton on a snapshot's own matrix gives
+#: up (an estimate that cycles around a gross error).
+_NEWTON_PATIENCE = 12
+
+
+
+def _reason(obs: Observability) -> str:
+    return "converged" if obs.observable else "converged on the observable part; " + obs.reason
+
+
+def outcome_of(obs) -> dict:
+    """The observability columns of an outcome row."""
+    return {"observable": bool(obs.observable), "islands": int(obs.n_islands),
+            "buses_not_estimated": int((~obs.estimated_buses).sum())}
+
+
+def _nearest_in_time(Z: np.ndarray) -> np.ndarray:
+    """Z with each missing value taken from the nearest earlier snapshot that has it (the
+    nearest later one at the start)."""
+    return pd.DataFrame(Z).ffill().bfill().to_numpy()
+
+
+def observability_counts(outcomes: pd.DataFrame) -> dict:
+    """Snapshots estimated on part of the network only (``partly_observable``, with the most
+    buses any of them left out), and with nothing estimable (``not_observable``)."""
+    if len(outcomes) == 0:
+        return {"partly_observable": 0, "most_buses_not_estimated": 0, "not_observable": 0}
+    conv = outcomes["converged"].astype(bool).to_numpy()
+    full = outcomes["observable"].astype(bool).to_numpy()
+    islands = outcomes["islands"].to_numpy(float) if "islands" in outcomes else \
+        np.where(full, 1.0, 0.0)
+    lost = outcomes["buses_not_estimated"].to_numpy(float) if "buses_not_estimated" in \
+        outcomes else np.zeros(len(outcomes))
+    partly = conv & ~full & (islands > 0)
+    return {"partly_observable": int(partly.sum()),
+            "most_buses_not_estimated": int(lost[partly].max()) if partly.any() else 0,
+            "not_observable": int(((islands == 0) & (outcomes["method"] != "failed")).sum())}
+
+
+def _describe(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
+def _stack_blocks(parts: list[BlockResult]) -> BlockResult:
+    return BlockResult(*(np.concatenate([getattr(p, f) for p in parts])
+                         for f in ("vm", "va", "residual", "omega")),
+                       pd.concat([p.outcomes for p in parts], ignore_index=True))
 
 
 class _Anderson:
@@ -662,26 +957,42 @@ class PeriodResult:
     outcomes: pd.DataFrame
 
 
+#: Longest time a block of consecutive snapshots spans: its operating points stay near its
+#: reference's (6 h of one-minute data is 360 snapshots; 15-minute data gives blocks of 24
+#: rather than a whole day, whose load cycle a fixed iteration matrix does not follow).
+MAX_SPAN = pd.Timedelta(hours=6)
+
+
 def topology_runs(in_service: np.ndarray, max_block: int,
-                  index: pd.Index | None = None) -> list[tuple[int, int]]:
+                  index: pd.Index | None = None,
+                  max_span: pd.Timedelta | None = MAX_SPAN) -> list[tuple[int, int]]:
     """Split snapshot positions into runs of one topology, each at most ``max_block`` long.
 
     With a DatetimeIndex, runs also break at every UTC day, so that a period cut into days
-    (a cluster works day by day) is solved in exactly the same blocks as the whole period.
+    (a cluster works day by day) is solved in exactly the same blocks as the whole period, and
+    a run spans at most ``max_span``.
     """
     k = in_service.shape[0]
     if k == 0:
         return []
     change = np.r_[True, np.any(in_service[1:] != in_service[:-1], axis=1)]
-    if isinstance(index, pd.DatetimeIndex) and len(index) == k:
+    timed = isinstance(index, pd.DatetimeIndex) and len(index) == k
+    if timed:
         day = index.normalize().asi8
         change |= np.r_[True, day[1:] != day[:-1]]
     starts = np.flatnonzero(change)
     ends = np.r_[starts[1:], k]
     runs = []
     for a, b in zip(starts, ends, strict=True):
-        for s in range(a, b, max_block):
-            runs.append((int(s), int(min(s + max_block, b))))
+        s = a
+        while s < b:
+            e = min(s + max_block, b)
+            if timed and max_span is not None:
+                limit = index[s] + max_span
+                e = min(e, max(s + 1, int(np.searchsorted(index.asi8[s:e], limit.value,
+                                                            side="left")) + s))
+            runs.append((int(s), int(e)))
+            s = e
     return runs
 
 
@@ -690,14 +1001,35 @@ _WORK: dict = {}  # inherited by forked block workers: estimator, z, in_service,
 
 def _solve_run(run: tuple[int, int]) -> tuple[int, int, pd.DataFrame]:
     """Solve one block and write its arrays into the period's output (shared with the parent
-    process when in a worker), returning only the outcomes table."""
+    process when in a worker), returning only the outcomes table. Whatever goes wrong inside
+    the block is an outcome of its snapshots, named with the block, never the period's end."""
     a, b = run
     w = _WORK
-    solver = BlockSolver(w["estimator"], w["in_service"][a], tolerance=w["tolerance"])
-    block = solver.solve(w["z"][a:b], w["confidence"])
     vm, va, res, om = w["out"]
+    try:
+        solver = BlockSolver(w["estimator"], w["in_service"][a], tolerance=w["tolerance"])
+        block = solver.solve(w["z"][a:b], w["confidence"])
+    except Exception as exc:  # noqa: BLE001 - reported per snapshot, with the block
+        vm[a:b], va[a:b], res[a:b], om[a:b] = np.nan, np.nan, np.nan, np.nan
+        return a, b, failed_outcomes(b - a, block_label(w.get("index"), a, b), exc)
     vm[a:b], va[a:b], res[a:b], om[a:b] = block.vm, block.va, block.residual, block.omega
     return a, b, block.outcomes
+
+
+def block_label(index, a: int, b: int) -> str:
+    """'the block of 96 snapshots from 2027-03-02 00:00 UTC' (positions when no times)."""
+    if isinstance(index, pd.DatetimeIndex) and len(index) > a:
+        return f"the block of {b - a} snapshots from {index[a]:%Y-%m-%d %H:%M} UTC"
+    return f"the block of snapshots {a}-{b - 1}"
+
+
+def failed_outcomes(k: int, where: str, exc: BaseException) -> pd.DataFrame:
+    """Outcome rows of snapshots whose estimate failed unexpectedly."""
+    rows = [{"converged": False, "iterations": 0, "method": "failed",
+             "reason": f"estimation failed in {where}: {_describe(exc)}", "observable": False,
+             "islands": 0, "buses_not_estimated": 0, "dof": 0, "n_used": 0,
+             "objective": 0.0}] * k
+    return pd.DataFrame(rows)
 
 
 def _output_array(shape: tuple[int, int], shared: bool) -> np.ndarray:
@@ -720,6 +1052,7 @@ def estimate_period(
     progress=None,
     tolerance: float = BLOCK_TOLERANCE,
     workers: int | None = None,
+    by_day: bool = True,
 ) -> PeriodResult:
     """Estimate every snapshot of a period (k × m per unit) block by block.
 
@@ -727,12 +1060,13 @@ def estimate_period(
     data by default), so the reference state of a block stays close to all its snapshots.
     Blocks run in ``workers`` processes (default: :func:`default_workers`); each block is
     solved the same way wherever it runs, so the results do not depend on the number of
-    workers. ``tolerance`` is the largest state update accepted as converged.
+    workers. ``tolerance`` is the largest state update accepted as converged. Blocks break at
+    every UTC day unless ``by_day`` is False (a thin sample of the period).
     """
     tune_allocator()
     k, m = z.shape
     n = estimator.model.network.n_bus
-    runs = topology_runs(in_service, max_block, index)
+    runs = topology_runs(in_service, max_block, index if by_day else None)
     workers = default_workers() if workers is None else workers
     parallel = len(runs) > 1 and can_fork(workers)
     # The runs cover every snapshot once, so every row of the outputs is written.
@@ -740,7 +1074,7 @@ def estimate_period(
     res, om = (_output_array((k, m), parallel) for _ in range(2))
     frames: dict[int, pd.DataFrame] = {}
     _WORK.update(estimator=estimator, z=z, in_service=in_service, tolerance=tolerance,
-                 confidence=confidence, out=(vm, va, res, om))
+                 confidence=confidence, out=(vm, va, res, om), index=index)
     pool = None
     done = 0
     try:

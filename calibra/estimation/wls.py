@@ -25,8 +25,8 @@ from calibra.estimation.measurements import V_MAG, MeasurementFunctions, StateLa
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.observability import (
     Observability,
-    StructuralModel,
-    analyse_observability,
+    ObservabilityStructure,
+    structure_for,
 )
 
 _VM_RANGE = (0.3, 2.0)
@@ -72,18 +72,6 @@ class SnapshotEstimate:
     constraint_jacobian: sp.csr_matrix | None = field(default=None, repr=False)
 
 
-def rows_touching(funcs: MeasurementFunctions, bad_bus: np.ndarray) -> np.ndarray:
-    """Measurement rows whose function depends on any bus marked in ``bad_bus``."""
-    tm = funcs.terminals
-    bad_term = np.zeros(len(tm.kind), bool)
-    np.logical_or.at(bad_term, tm.entry_row, bad_bus[tm.entry_col])
-    out = np.zeros(funcs.m, bool)
-    has_t = funcs.terminal_of >= 0
-    out[has_t] = bad_term[funcs.terminal_of[has_t]]
-    v = funcs.code == V_MAG
-    out[v] = bad_bus[funcs.element[v]]
-    return out
-
 
 class Estimator:
     """WLS estimator bound to one measurement model; caches per measurement pattern."""
@@ -92,30 +80,34 @@ class Estimator:
         self.model = model
         self.options = options or EstimatorOptions()
         self._obs_cache: dict[bytes, Observability] = {}
-        self._structure_cache: dict[bytes, StructuralModel] = {}
+        self._structure_cache: dict[bytes, ObservabilityStructure] = {}
         self._default_status = model.network.default_in_service()
 
     # ------------------------------------------------------------------ observability
     def observability(self, available: np.ndarray, in_service: np.ndarray) -> Observability:
+        """Observable islands of a measurement pattern (cached per topology and pattern)."""
+        available = np.asarray(available, bool)
+        in_service = np.asarray(in_service, bool)
         key = np.packbits(available).tobytes() + np.packbits(in_service).tobytes()
         obs = self._obs_cache.get(key)
         if obs is None:
-            net = self.model.network
-            skey = np.packbits(in_service).tobytes()
-            structure = self._structure_cache.get(skey)
-            if structure is None:
-                if len(self._structure_cache) > 32:
-                    self._structure_cache.clear()
-                structure = self._structure_cache[skey] = StructuralModel(
-                    self.model.functions, self.model.constraints, in_service)
-            obs = analyse_observability(
-                self.model.functions, available, self.model.constraints, in_service,
-                net.reference_position, structure,
-            )
+            obs = self.observability_structure(in_service).analyse(
+                available, self.model.network.reference_position)
             if len(self._obs_cache) > 4096:
                 self._obs_cache.clear()
             self._obs_cache[key] = obs
         return obs
+
+    def observability_structure(self, in_service: np.ndarray) -> ObservabilityStructure:
+        """The structural rows of the model for one topology (cached)."""
+        skey = np.packbits(in_service).tobytes()
+        structure = self._structure_cache.get(skey)
+        if structure is None:
+            if len(self._structure_cache) > 32:
+                self._structure_cache.clear()
+            structure = self._structure_cache[skey] = structure_for(
+                self.model.functions, self.model.constraints, in_service)
+        return structure
 
     # ------------------------------------------------------------------ one snapshot
     def estimate(
@@ -141,9 +133,9 @@ class Estimator:
         obs = self.observability(avail, status)
         layout = StateLayout.build(n, obs.references, obs.estimated_buses)
         lost = ~obs.estimated_buses
-        used = avail & ~rows_touching(model.functions, lost)
+        used = avail & obs.usable
         cons = model.constraints
-        cons_used = ~rows_touching(cons, lost) if cons.m else np.zeros(0, bool)
+        cons_used = obs.constraints_usable if cons.m else np.zeros(0, bool)
 
         if start is not None:
             vm, va = np.array(start[0], float), np.array(start[1], float)
