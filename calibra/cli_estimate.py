@@ -64,8 +64,13 @@ def run(args: argparse.Namespace) -> int:
           f"alone {summary.alone}")
     print(f"chi-square test at {100 * args.confidence:g}%: failed in {summary.chi2_failed} of "
           f"{conv} converged snapshots ({100 * summary.chi2_failed / max(conv, 1):.1f}%)")
+    if summary.partly_observable:
+        n_bus = summary.site.network.n_bus if summary.site is not None else 0
+        print(f"partly observable: {summary.partly_observable} snapshots (up to "
+              f"{summary.most_buses_not_estimated} of {n_bus} buses not estimated; the rest "
+              "estimated as usual)")
     if summary.not_observable:
-        print(f"not fully observable: {summary.not_observable} snapshots")
+        print(f"not observable at all: {summary.not_observable} snapshots")
     for reason, count in summary.reasons.most_common():
         print(f"  not converged ({count}): {reason}")
     table = summary.points.frame()

@@ -127,6 +127,17 @@ def _json_summary(run: ReviewRun) -> dict:
     return s
 
 
+def observability_text(s: dict, n_bus: int) -> str:
+    """'; partly observable 1,008 (up to 3 of 89 buses not estimated); …' or ''."""
+    parts = []
+    if s.get("partly_observable"):
+        parts.append(f"partly observable {s['partly_observable']:,} (up to "
+                     f"{s['most_buses_not_estimated']:,} of {n_bus:,} buses not estimated)")
+    if s.get("not_observable"):
+        parts.append(f"not observable at all {s['not_observable']:,}")
+    return "".join(f"; {p}" for p in parts)
+
+
 def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     """A short plain-text summary of the review."""
     r = run.result
@@ -135,9 +146,10 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     lines = [
         f"site {site.name}: review of {r.period_start.tz_convert(tz):%Y-%m-%d %H:%M} to "
         f"{r.period_end.tz_convert(tz):%Y-%m-%d %H:%M} ({tz}) in {run.seconds:.1f} s",
-        f"snapshots: {s['snapshots']:,}, estimated {s['converged']:,}; "
-        f"not fully observable {s['not_observable']:,}",
+        f"snapshots: {s['snapshots']:,}, estimated {s['converged']:,}"
+        + observability_text(s, site.network.n_bus),
     ]
+    lines += [f"not estimated: {why}" for why in s.get("estimation_failures", [])]
     lines += availability_lines(site)
     lines += [f"status point contradicted: {c}" for c in s.get("status_conflicts", [])]
     first = s["rounds"][0] if s["rounds"] else None

@@ -21,6 +21,7 @@ import pandas as pd
 
 from calibra.cluster.period import ClusterError, correction_records, day_starts, prepare_period
 from calibra.cluster.worker import DayJob, DayResult, estimate_day
+from calibra.estimation.engine import LocalEngine
 from calibra.estimation.week import PeriodResult
 from calibra.ledger import Correction
 from calibra.model.site import Site
@@ -64,6 +65,7 @@ class ClusterEngine:
         period = prepare_period(site, start, end, self.corrections)
         if len(period.index) == 0:
             raise ValueError("no snapshots in the chosen period")
+        self._period = period
         self.index = period.index
         self._starts = day_starts(period.index)
         bounds = period.day_bounds()
@@ -78,9 +80,19 @@ class ClusterEngine:
 
     # ------------------------------------------------------------------ PeriodEngine
     def estimate(self, rows: np.ndarray, set_aside: np.ndarray, max_block: int,
-                 tolerance: float, confidence: float, progress=None) -> PeriodResult:
-        """Estimate snapshots ``rows`` (positions in the period) without the set-aside points."""
+                 tolerance: float, confidence: float, progress=None,
+                 by_day: bool = True) -> PeriodResult:
+        """Estimate snapshots ``rows`` (positions in the period) without the set-aside points.
+
+        ``by_day=False`` (a thin sample whose blocks cross days, such as the screening's) is
+        estimated here, from the period this client prepared: a handful of snapshots per day
+        would cost the cluster more in transfers than it saves."""
         rows = np.asarray(rows, dtype=np.int64)
+        if not by_day:
+            period = self._period
+            return LocalEngine(period.estimator, period.z, period.in_service, period.index
+                               ).estimate(rows, set_aside, max_block, tolerance, confidence,
+                                          progress or self.progress, by_day=False)
         k = len(self.index)
         if rows.size and (rows.min() < 0 or rows.max() >= k):
             raise IndexError(f"snapshot positions must lie in 0..{k - 1}")

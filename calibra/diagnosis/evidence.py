@@ -23,9 +23,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from calibra.diagnosis.suspects import pick_suspects
+from calibra.diagnosis.suspects import PROBE_TOLERANCE, pick_suspects
 from calibra.estimation.engine import LocalEngine, PeriodEngine
 from calibra.estimation.model import MeasurementModel
+from calibra.estimation.probes import ProbeSet
 from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_residuals
 from calibra.estimation.site_estimate import StatusConflict, checked_topology
 from calibra.estimation.week import PeriodResult
@@ -162,6 +163,20 @@ def _device_index(site: Site, model: MeasurementModel) -> tuple[np.ndarray, np.n
     return np.where(fed, codes, -1), power
 
 
+def screening_sample(z: np.ndarray, in_service: np.ndarray, step: int) -> np.ndarray:
+    """Every ``step``-th snapshot, ordered by topology and then by loading (the mean |value|
+    of the points, per unit): the screening estimates them in blocks that cross days, and
+    a block of similar operating points converges around one reference."""
+    sub = np.arange(0, z.shape[0], max(1, step))
+    if sub.size == 0:
+        return sub
+    a = np.abs(z[sub])
+    seen = np.isfinite(a)
+    level = np.where(seen, a, 0.0).sum(axis=1) / np.maximum(seen.sum(axis=1), 1)
+    _, topology = np.unique(np.packbits(in_service[sub], axis=1), axis=0, return_inverse=True)
+    return sub[np.lexsort((sub, level, topology.ravel()))]
+
+
 def gather_evidence(
     site: Site,
     settings: EvidenceSettings | None = None,
@@ -190,7 +205,7 @@ def gather_evidence(
     set_aside = np.zeros(m, bool) if initial_set_aside is None else initial_set_aside.copy()
     rounds: list[dict] = []
     step = max(1, st.screening_step)
-    sub = np.arange(0, k, step)
+    sub = screening_sample(z, in_service, step)
     z_sub, ins_sub = z[sub], in_service[sub]
     engine = engine or LocalEngine(estimator, z, in_service, snaps.index)
     probe = np.unique(np.linspace(0, len(sub) - 1, min(st.probe_snapshots, len(sub))).astype(int))
@@ -200,7 +215,7 @@ def gather_evidence(
             progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
         period = engine.estimate(sub, set_aside, max(60, st.max_block // step),
                                  st.screening_tolerance, st.confidence,
-                                 _Stage(progress, f"screening round {rnd + 1}"))
+                                 _Stage(progress, f"screening round {rnd + 1}"), by_day=False)
         stat = _quantile_over_snapshots(_normalized(period), st.screening_quantile)
         cand = np.flatnonzero((stat > st.normalized_threshold) & ~set_aside)
         rounds.append({
@@ -211,12 +226,12 @@ def gather_evidence(
         if cand.size == 0:
             break
         rep = _representative(estimator, z_sub, ins_sub, set_aside, st.confidence)
-        starts = [None if not np.isfinite(period.vm[j]).any() else
-                  (np.nan_to_num(period.vm[j].astype(float), nan=1.0),
-                   np.nan_to_num(period.va[j].astype(float))) for j in probe]
-        picked = pick_suspects(estimator, rep, cand, stat, base, set_aside, z_sub[probe],
+        starts = [(period.vm[j].astype(float), period.va[j].astype(float)) for j in probe]
+        probes = ProbeSet(estimator, z_sub[probe], ins_sub[probe], set_aside, starts,
+                          PROBE_TOLERANCE)
+        picked = pick_suspects(estimator, rep, cand, stat, base, set_aside, probes,
                                ins_sub[probe], device_of, st.normalized_threshold,
-                               probe_starts=starts, power=power)
+                               power=power)
         if not picked:
             break
         set_aside[picked] = True
@@ -239,7 +254,8 @@ def gather_evidence(
 def _implied_values(model: MeasurementModel, z: np.ndarray, period: PeriodResult,
                     set_aside: np.ndarray, in_service: np.ndarray,
                     min_sensitivity: float) -> np.ndarray:
-    """z − r/S for points in the estimate; h(x̂) for points set aside (in the points' units)."""
+    """z − r/S for points in the estimate; h(x̂) for points set aside (in the points' units;
+    NaN where the point depends on a bus the snapshot's estimate does not cover)."""
     with np.errstate(divide="ignore", invalid="ignore"):
         s = period.omega / model.sigma_pu[None, :] ** 2
         implied = z - period.residual / s
@@ -253,13 +269,15 @@ def _implied_values(model: MeasurementModel, z: np.ndarray, period: PeriodResult
             b = min(a + chunk, k)
             vm = period.vm[a:b].T.astype(float)
             va = period.va[a:b].T.astype(float)
-            ok = np.isfinite(vm).all(axis=0)
+            ok = np.isfinite(vm).any(axis=0)
             # One topology per call: group the chunk's snapshots by their branch status.
+            # Buses a snapshot's estimate does not cover are NaN, and so is every value that
+            # depends on them.
             stat = in_service[a:b]
             for row in {r.tobytes(): r for r in stat}.values():
                 sel = np.flatnonzero(ok & np.all(stat == row, axis=1))
                 if sel.size == 0:
                     continue
-                h = sub.evaluate(vm[:, sel], va[:, sel], row)
-                implied[a + sel[:, None], cols[None, :]] = h[cols].T
+                h = sub.evaluate(vm[:, sel], va[:, sel], row)[cols]
+                implied[a + sel[:, None], cols[None, :]] = h.T
     return (implied / model.to_pu[None, :]).astype(np.float32)

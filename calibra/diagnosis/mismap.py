@@ -35,17 +35,25 @@ class Quantity:
 
 
 def substation_quantities(network: Network, substation: str) -> list[Quantity]:
-    """Every measurable quantity located at a substation's buses."""
-    buses = network.buses.index[network.buses["substation"].astype(str) == str(substation)]
+    """Every measurable quantity located at a substation's buses (indexed once per network:
+    a review asks for many substations)."""
+    index = network._cache.get("substation_quantities")
+    if index is None:
+        index = {}
+        sub_of = network.buses["substation"].astype(str)
+        br = network.branches
+        for bid, f, t in zip(br.index, br["from_bus"], br["to_bus"], strict=True):
+            for end, bus in (("from", f), ("to", t)):
+                index.setdefault(sub_of[bus], []).append(("branch", str(bid), end))
+        for b, sub in sub_of.items():
+            index.setdefault(sub, []).append(("bus", str(b), ""))
+        network._cache["substation_quantities"] = index
     out: list[Quantity] = []
-    bset = set(buses)
-    br = network.branches
-    for bid, row in br.iterrows():
-        for end, bus in (("from", row["from_bus"]), ("to", row["to_bus"])):
-            if bus in bset:
-                out += [Quantity(q, str(bid), end) for q in ("p_flow", "q_flow", "i_magnitude")]
-    for b in buses:
-        out += [Quantity(q, str(b), "") for q in ("p_injection", "q_injection", "v_magnitude")]
+    entries = index.get(str(substation), [])
+    for kind, element, end in sorted(entries, key=lambda e: e[0] == "bus"):
+        names = ("p_flow", "q_flow", "i_magnitude") if kind == "branch" else \
+            ("p_injection", "q_injection", "v_magnitude")
+        out += [Quantity(q, element, end) for q in names]
     return out
 
 
@@ -78,7 +86,8 @@ class QuantityEvaluator:
         """Values (k × quantities) for states (k × n) with per-snapshot topology (k × branches)."""
         k = vm.shape[0]
         out = np.full((k, len(self.quantities)), np.nan, np.float32)
-        ok = np.isfinite(vm).all(axis=1) & np.isfinite(va).all(axis=1)
+        # Buses left out of an estimate are NaN; so is every value that depends on them.
+        ok = np.isfinite(vm).any(axis=1)
         for row in {r.tobytes(): r for r in in_service}.values():
             sel = np.flatnonzero(ok & np.all(in_service == row, axis=1))
             for a in range(0, sel.size, 2048):

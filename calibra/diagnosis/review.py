@@ -19,8 +19,9 @@ from calibra.diagnosis.mismap import (
     substation_quantities,
     unit_family,
 )
-from calibra.diagnosis.redundancy import suggest_meter
+from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
 from calibra.estimation.runtime import fork_map
+from calibra.estimation.week import observability_counts
 from calibra.model.points import analog_points
 from calibra.model.site import Site
 from calibra.progress import Progress
@@ -161,6 +162,17 @@ def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
     return out
 
 
+def _not_observable(ev: WeekEvidence) -> dict[str, dict]:
+    """Points that depend on buses no meter determines in the representative snapshot (the
+    period's typical pattern), with the meter that would make each observable."""
+    rep = ev.representative
+    est = rep.estimate
+    reporting = np.isfinite(ev.measured).mean(axis=0) >= 0.5
+    found = not_observable_points(ev.model, est.observability, reporting & ~ev.set_aside,
+                                  est.in_service)
+    return {str(ev.model.tags[i]): v for i, v in found.items()}
+
+
 def review_site(
     site: Site,
     settings: ReviewSettings | None = None,
@@ -189,9 +201,9 @@ def review_site(
     unverifiable = {}
     rep = ev.representative
     if rep is not None:
-        for i in np.flatnonzero(rep.critical):
-            tag = str(ev.model.tags[i])
-            unverifiable[tag] = suggest_meter(site, ev, i)
+        unverifiable.update(_not_observable(ev))
+        for i, advice in suggest_meters(site, ev, np.flatnonzero(rep.critical)).items():
+            unverifiable[str(ev.model.tags[i])] = advice
     for tag, d in diagnoses.items():
         if d.kind == "insufficient" and tag not in unverifiable:
             i = ev.model.tags.get_loc(tag)
@@ -209,7 +221,9 @@ def review_site(
         "snapshots": int(len(outcomes)),
         "converged": int(conv.sum()),
         "chi2_failed": int((~outcomes.loc[conv, "chi2_passed"].astype(bool)).sum()),
-        "not_observable": int((~outcomes["observable"].astype(bool)).sum()),
+        **observability_counts(outcomes),
+        "estimation_failures": sorted(set(
+            outcomes.loc[outcomes["method"] == "failed", "reason"].astype(str))),
         "points": int(len(analog_points(site.points))),
         "set_aside": int(ev.set_aside.sum()),
         "findings": len(findings),

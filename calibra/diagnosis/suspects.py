@@ -14,8 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from calibra.estimation.probes import ProbeSet
 from calibra.estimation.residuals import residual_correlation
-from calibra.estimation.runtime import fork_map
 from calibra.estimation.wls import Estimator
 
 #: Candidates of one cluster tried by elimination (strongest first).
@@ -28,30 +28,14 @@ CLUSTER_CORRELATION = 0.02
 PROBE_TOLERANCE = 1e-6
 
 
-def probe_objective(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
-                    removed: np.ndarray, starts: list | None = None) -> float:
-    """Sum of J(x̂) over probe snapshots with the ``removed`` points left out (each estimate
-    warm-started from ``starts`` when given)."""
-    total, failed = 0.0, 0
-    for j, (zi, status) in enumerate(zip(z, in_service, strict=True)):
-        start = starts[j] if starts is not None else None
-        est = estimator.estimate(np.where(removed, np.nan, zi), None, status, start=start,
-                                 keep_jacobian=False, tolerance=PROBE_TOLERANCE)
-        if est.converged:
-            total += est.objective
-        else:
-            failed += 1
-    # A snapshot that no longer converges counts as the worst one seen.
-    return total * (1 + failed / max(len(z) - failed, 1)) if failed < len(z) else np.inf
-
-
 def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.ndarray,
-                  base: np.ndarray, set_aside: np.ndarray, probe_z: np.ndarray,
+                  base: np.ndarray, set_aside: np.ndarray, probes: ProbeSet,
                   probe_status: np.ndarray, device_of: np.ndarray, threshold: float,
-                  max_points: int = 32, probe_starts: list | None = None,
+                  max_points: int = 32,
                   power: np.ndarray | None = None) -> list[int]:
-    """Points to set aside this round (see the module docstring). ``device_of``: each point's
-    device number (−1: none); ``power``: which points are power channels."""
+    """Points to set aside this round (see the module docstring). ``probes``: the probe
+    snapshots with ``set_aside`` left out; ``device_of``: each point's device number (−1:
+    none); ``power``: which points are power channels."""
     stat = np.nan_to_num(np.asarray(stat, float), nan=0.0, posinf=1e12)
     analysis = rep.analysis if rep is not None else None
     corr: dict[int, np.ndarray] = {}
@@ -75,8 +59,7 @@ def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.nd
             cluster += [j for j in remaining[1:]
                         if abs(rho[j]) > CLUSTER_CORRELATION][:CLUSTER_SIZE - 1]
         units = _units(cluster, device_of, base & ~set_aside, power)
-        best = _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base,
-                          status0, probe_starts)
+        best = _eliminate(estimator, units, set_aside, picked, probes, base, status0)
         if best is None:
             remaining = remaining[1:]
             continue
@@ -113,30 +96,30 @@ def _units(cluster: list[int], device_of: np.ndarray, available: np.ndarray,
     return out
 
 
-def _eliminate(estimator, units, set_aside, picked, probe_z, probe_status, base, status0,
-               starts):
+def _eliminate(estimator, units, set_aside, picked, probes: ProbeSet, base, status0):
     """The unit whose removal lowers the probe objective most (smaller units win near-ties)."""
     trials = []
+    before = set_aside.copy()
+    before[picked] = True
+    # A unit may be set aside only if every bus estimated now stays estimated, in no more
+    # islands: partial observability is normal, losing more of it is not.
+    now = estimator.observability(base & ~before, status0) if status0 is not None else None
     for u in units:
-        removed = set_aside.copy()
-        removed[picked] = True
+        removed = before.copy()
         removed[u] = True
-        if status0 is not None and not estimator.observability(base & ~removed, status0).observable:
+        if now is not None and not estimator.observability(base & ~removed, status0).covers(now):
             continue
         if len(units) == 1:
             return u
         trials.append((u, removed))
     if not trials:
         return None
-    # Each unit's probe estimates are independent: on the worker processes where possible.
-    objectives = fork_map(
-        lambda trial: probe_objective(estimator, probe_z, probe_status, trial[1], starts),
-        trials)
+    objectives = probes.objectives([t[1] for t in trials])
     scored = [(obj, len(u), u) for obj, (u, _) in zip(objectives, trials, strict=True)]
     best = min(scored, key=lambda s: s[0])
     # Removing a healthy point lowers J by about one per snapshot: a smaller unit within that
     # allowance of the best one is preferred.
-    allowance = 3.0 * len(probe_z)
+    allowance = 3.0 * len(probes.probes)
     near = [s for s in scored if s[0] <= best[0] + allowance * max(best[1] - s[1], 0)]
     return min(near, key=lambda s: (s[1], s[0]))[2]
 

@@ -33,7 +33,7 @@ class PointTrace:
     band: float  #: accuracy class limit: accuracy_pct % × full_scale
     missing: np.ndarray  #: bool: no measured value
     out_of_service: np.ndarray  #: bool: the point's branch is open
-    not_estimated: np.ndarray  #: bool: the snapshot did not converge or is not observable
+    not_estimated: np.ndarray  #: bool: no estimate of the point's buses in the snapshot
     kind: str = ""  #: diagnosis kind (healthy, reversed, scale, offset, drift, stuck, …)
     slope: float | None = None  #: fitted line in the scatter: measured ≈ slope·implied + intercept
     intercept: float = 0.0
@@ -80,13 +80,17 @@ def point_trace(site: Site, result: ReviewResult, tag: str) -> PointTrace | None
         if element in branches:
             out = ~ev.in_service[:, branches.get_loc(element)].astype(bool)
     outcomes = ev.period.outcomes
-    estimated = (outcomes["converged"].astype(bool) & outcomes["observable"].astype(bool))
+    # Estimated where the snapshot converged and its estimate covers the point's buses (parts
+    # of a network may be unobservable in some or all snapshots).
+    buses = ev.model.functions.buses_of(i)
+    covered = np.isfinite(ev.period.vm[:, buses]).all(axis=1)
+    estimated = outcomes["converged"].astype(bool).to_numpy() & covered
     limit = _class_limit(pt)
     trace = PointTrace(
         tag=str(tag), unit=str(pt["unit"]), x=wall_clock_seconds(ev.index, site.timezone),
         measured=measured, implied=implied, raw=raw, band=limit,
         missing=~np.isfinite(measured) & ~out, out_of_service=out,
-        not_estimated=~estimated.to_numpy(bool),
+        not_estimated=~estimated,
     )
     diagnosis = result.diagnoses.get(str(tag))
     if diagnosis is not None:
