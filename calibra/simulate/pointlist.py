@@ -58,7 +58,11 @@ class MeteringOptions:
     ``n_unmetered`` more are drawn among small substations without generation, to leave
     areas sparsely metered. Points of ``commissioning_substations`` come last in the list,
     noted ``commissioning``. CT primaries are chosen at least ``headroom`` times the base-case
-    current (see :func:`_sizing_flows`).
+    current (see :func:`_sizing_flows`). ``independent_ends``: each branch end is metered with
+    chance ``branch_end_coverage`` on its own, so a branch may have no flow meter at all (sparse
+    field metering, where parts of the network are not observable). ``bare_status_points``:
+    status points leave ``device``, ``full_scale`` and ``accuracy_pct`` empty, as utility point
+    lists often do for breaker status.
     """
 
     branch_end_coverage: float = 0.85
@@ -71,6 +75,8 @@ class MeteringOptions:
     n_unmetered: int = 0
     commissioning_substations: tuple[str, ...] = ()
     headroom: float = 2.0
+    independent_ends: bool = False
+    bare_status_points: bool = False
 
 
 def substation_code(substation: str) -> str:
@@ -234,7 +240,7 @@ def make_point_list(
         eligible = [e for e, b in ends.items() if sub[b] not in unmetered]
         metered = [e for e in eligible
                    if rng.random() < opts.branch_end_coverage or sub[ends[e]] in full]
-        if not metered and eligible:
+        if not metered and eligible and not opts.independent_ends:
             metered = [eligible[int(rng.integers(len(eligible)))]]
         for end, bus in ends.items():
             other = ends["to" if end == "from" else "from"]
@@ -268,7 +274,7 @@ def make_point_list(
                     "tag": f"{code}.{kvl}.{bay}.CB", "quantity": "branch_status",
                     "element": bid, "end": "", "unit": "status", "full_scale": np.nan,
                     "accuracy_pct": np.nan, "substation": sub[bus],
-                    "device": f"{code}.{kvl}.{bay}",
+                    "device": "" if opts.bare_status_points else f"{code}.{kvl}.{bay}",
                 })
                 break
 

@@ -40,12 +40,18 @@ class TelemetryOptions:
     of 2–30 minute gaps per analog point over the period; ``rtu_outage_hours``: length of one
     RTU communication outage (0: none) on ``rtu_outage`` (default: a random RTU); it is placed
     outside planned outages and left out when the period has no room for it.
+    ``resolution_bits``: the transducer's converter resolution (0: none), readings quantized to
+    steps of 2 × full scale / 2**bits; ``deadband_pct``: report by exception, a value is stored
+    only when it moves more than this share (% of full scale) from the last stored one, which is
+    held until then.
     """
 
     missing_rate: float = 0.002
     gaps_per_point: float = 0.5
     rtu_outage_hours: float = 3.0
     rtu_outage: str | None = None
+    resolution_bits: int = 0
+    deadband_pct: float = 0.0
 
 
 @dataclass
@@ -86,6 +92,36 @@ def round_to_historian(values: np.ndarray, step: np.ndarray) -> np.ndarray:
     safe = np.where(step > 0, step, 1.0)
     rounded = np.round(values / safe) * safe
     return np.where(step > 0, rounded, values)
+
+
+def quantize(values: np.ndarray, points: pd.DataFrame, bits: int) -> np.ndarray:
+    """Readings of a ``bits``-bit converter spanning ± full scale (analog points only)."""
+    if bits <= 0:
+        return values
+    fs = pd.to_numeric(points["full_scale"], errors="coerce").to_numpy(float)
+    step = 2.0 * fs / 2.0 ** bits
+    analog = points["quantity"].isin(ANALOG_QUANTITIES).to_numpy() & (step > 0)
+    step = np.where(analog, step, 1.0)
+    return np.where(analog[None, :], np.round(values / step) * step, values)
+
+
+def hold_within_deadband(values: np.ndarray, points: pd.DataFrame, deadband_pct: float
+                         ) -> np.ndarray:
+    """Report by exception: each analog value is replaced by the last stored one until it moves
+    more than ``deadband_pct`` % of full scale away from it (NaN never stored)."""
+    if deadband_pct <= 0:
+        return values
+    fs = pd.to_numeric(points["full_scale"], errors="coerce").to_numpy(float)
+    band = deadband_pct / 100.0 * fs
+    analog = points["quantity"].isin(ANALOG_QUANTITIES).to_numpy() & (band > 0)
+    out = values.copy()
+    held = values[0].copy()
+    for t in range(1, len(values)):
+        v = values[t]
+        move = ~np.isfinite(held) | (np.abs(v - held) > band)
+        held = np.where(move & np.isfinite(v), v, held)
+        out[t] = np.where(analog, held, v)
+    return out
 
 
 def add_noise(values: np.ndarray, points: pd.DataFrame, rng: np.random.Generator) -> np.ndarray:
@@ -199,7 +235,9 @@ def simulate_site(
     else:
         truth = pd.DataFrame(columns=TRUTH_COLUMNS)
     step = historian_resolution(points).to_numpy(float)
-    values = round_to_historian(measured.to_numpy(float), step)
+    values = quantize(measured.to_numpy(float), points, opts.resolution_bits)
+    values = hold_within_deadband(values, points, opts.deadband_pct)
+    values = round_to_historian(values, step)
     mask, rtu_out = missing_mask(index, points, opts, rng_missing, ops.outages)
     values[mask] = np.nan
     snapshots = pd.DataFrame(values, index=index, columns=points.index)
