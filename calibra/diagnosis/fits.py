@@ -66,9 +66,28 @@ def fit_gain(z: np.ndarray, y: np.ndarray, noise: float, iterations: int = 8) ->
     return k
 
 
+def _ramp_fits(t: np.ndarray, e: np.ndarray, onsets: np.ndarray
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """Least-squares slope a and residual sum of squares of e ≈ a·(t − t₀)⁺ for every onset
+    t₀ at once, from suffix sums over the sorted times (O(n + onsets)): with r = (t − t₀)⁺,
+    a = Σre / Σr² and SSE = Σe² − (Σre)² / Σr²."""
+    se = np.r_[np.cumsum(e[::-1])[::-1], 0.0]
+    ste = np.r_[np.cumsum((t * e)[::-1])[::-1], 0.0]
+    st = np.r_[np.cumsum(t[::-1])[::-1], 0.0]
+    stt = np.r_[np.cumsum((t * t)[::-1])[::-1], 0.0]
+    cnt = np.arange(t.size, -1, -1, dtype=float)
+    k = np.searchsorted(t, onsets, side="right")
+    sre = ste[k] - onsets * se[k]
+    srr = stt[k] - 2.0 * onsets * st[k] + onsets ** 2 * cnt[k]
+    ok = srr > 1e-300
+    a = np.where(ok, sre / np.where(ok, srr, 1.0), 0.0)
+    sse = float(np.dot(e, e)) - np.where(ok, sre * a, 0.0)
+    return a, sse
+
+
 def fit_drift(t: np.ndarray, e: np.ndarray,
               grid_step: float = 1.0 / 24) -> tuple[float, float, float]:
-    """Best linear drift from an onset: e ≈ a·(t − t₀)⁺, t in days.
+    """Best linear drift from an onset: e ≈ a·(t − t₀)⁺, t in days (ascending).
 
     Scans onsets on a grid (hourly by default) then refines around the best one; returns
     (t₀, a, loss) with loss the median |residual|.
@@ -78,23 +97,15 @@ def fit_drift(t: np.ndarray, e: np.ndarray,
     t0s = np.arange(t.min(), t.max() - grid_step, grid_step)
     if t0s.size == 0:
         return float("nan"), 0.0, float("inf")
-    # Vectorised least squares for every candidate onset, on at most ~2,000 evenly spread
-    # snapshots (the coarse search only needs the shape); the refinement uses them all.
-    every = max(1, t.size // 2000)
-    tc, ec = t[::every], e[::every]
-    ramp = np.maximum(tc[None, :] - t0s[:, None], 0.0)  # (onsets, snapshots)
-    den = np.sum(ramp * ramp, axis=1)
-    a = np.where(den > 0, (ramp @ ec) / np.maximum(den, 1e-300), 0.0)
-    sse = np.sum((ec[None, :] - a[:, None] * ramp) ** 2, axis=1)
+    t = np.asarray(t, float)
+    e = np.asarray(e, float)
+    _, sse = _ramp_fits(t, e, t0s)
     j = int(np.argmin(sse))
     # Refine on a finer grid around the best coarse onset.
     fine = np.linspace(t0s[max(j - 1, 0)], t0s[min(j + 1, t0s.size - 1)], 25)
-    ramp_f = np.maximum(t[None, :] - fine[:, None], 0.0)
-    den_f = np.sum(ramp_f * ramp_f, axis=1)
-    a_f = np.where(den_f > 0, (ramp_f @ e) / np.maximum(den_f, 1e-300), 0.0)
-    sse_f = np.sum((e[None, :] - a_f[:, None] * ramp_f) ** 2, axis=1)
+    a_f, sse_f = _ramp_fits(t, e, fine)
     jf = int(np.argmin(sse_f))
-    loss = float(np.median(np.abs(e - a_f[jf] * ramp_f[jf])))
+    loss = float(np.median(np.abs(e - a_f[jf] * np.maximum(t - fine[jf], 0.0))))
     return float(fine[jf]), float(a_f[jf]), loss
 
 
