@@ -19,6 +19,7 @@ Trans. PAS-94(2), 1975, applied to statistics over many snapshots):
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import partial
 
 import numpy as np
 import pandas as pd
@@ -225,13 +226,15 @@ def gather_evidence(
         })
         if cand.size == 0:
             break
-        rep = _representative(estimator, z_sub, ins_sub, set_aside, st.confidence)
         starts = [(period.vm[j].astype(float), period.va[j].astype(float)) for j in probe]
         probes = ProbeSet(estimator, z_sub[probe], ins_sub[probe], set_aside, starts,
                           PROBE_TOLERANCE)
-        picked = pick_suspects(estimator, rep, cand, stat, base, set_aside, probes,
-                               ins_sub[probe], device_of, st.normalized_threshold,
-                               power=power)
+        # Residual correlations at the first probe snapshot, normalized by the screening's
+        # residual variances there.
+        omega = period.omega[probe[0]].astype(float)
+        picked = pick_suspects(estimator, partial(probes.correlation, omega=omega), cand,
+                               stat, base, set_aside, probes, ins_sub[probe], device_of,
+                               st.normalized_threshold, power=power)
         if not picked:
             break
         set_aside[picked] = True
@@ -243,8 +246,10 @@ def gather_evidence(
                              _Stage(progress, "estimating the full period"))
     implied = _implied_values(model, z, period, set_aside, in_service, st.min_sensitivity)
     rep = _representative(estimator, z, in_service, set_aside, st.confidence)
+    with np.errstate(over="ignore"):  # readings beyond float32 (bad data) are kept as ±inf
+        measured = values.astype(np.float32)
     return WeekEvidence(
-        index=snaps.index, model=model, measured=values.astype(np.float32),
+        index=snaps.index, model=model, measured=measured,
         implied=implied, normalized=_normalized(period).astype(np.float32),
         set_aside=set_aside, period=period, in_service=in_service, representative=rep,
         rounds=rounds, status_conflicts=conflicts,

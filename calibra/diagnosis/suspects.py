@@ -15,7 +15,6 @@ from __future__ import annotations
 import numpy as np
 
 from calibra.estimation.probes import ProbeSet
-from calibra.estimation.residuals import residual_correlation
 from calibra.estimation.wls import Estimator
 
 #: Candidates of one cluster tried by elimination (strongest first).
@@ -28,23 +27,21 @@ CLUSTER_CORRELATION = 0.02
 PROBE_TOLERANCE = 1e-6
 
 
-def pick_suspects(estimator: Estimator, rep, candidates: np.ndarray, stat: np.ndarray,
+def pick_suspects(estimator: Estimator, correlation, candidates: np.ndarray, stat: np.ndarray,
                   base: np.ndarray, set_aside: np.ndarray, probes: ProbeSet,
                   probe_status: np.ndarray, device_of: np.ndarray, threshold: float,
                   max_points: int = 32,
                   power: np.ndarray | None = None) -> list[int]:
-    """Points to set aside this round (see the module docstring). ``probes``: the probe
-    snapshots with ``set_aside`` left out; ``device_of``: each point's device number (−1:
-    none); ``power``: which points are power channels."""
+    """Points to set aside this round (see the module docstring). ``correlation(i)``: the
+    residual correlation of point i with every point (None when unknown); ``probes``: the
+    probe snapshots with ``set_aside`` left out; ``device_of``: each point's device number
+    (−1: none); ``power``: which points are power channels."""
     stat = np.nan_to_num(np.asarray(stat, float), nan=0.0, posinf=1e12)
-    analysis = rep.analysis if rep is not None else None
-    corr: dict[int, np.ndarray] = {}
+    corr: dict[int, np.ndarray | None] = {}
 
     def corr_row(i: int) -> np.ndarray | None:
-        if analysis is None or not rep.estimate.used[i]:
-            return None
         if i not in corr:
-            corr[i] = residual_correlation(estimator, rep.estimate, analysis, i)
+            corr[i] = correlation(i)
         return corr[i]
 
     status0 = probe_status[0] if len(probe_status) else None

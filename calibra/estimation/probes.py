@@ -126,6 +126,27 @@ class ProbeSet:
         vm, va = layout.apply_step(vm, va, sol[:nx])
         return vm, va, lam + sol[nx:]
 
+    # ------------------------------------------------------------------ correlations
+    def correlation(self, i: int, omega: np.ndarray) -> np.ndarray | None:
+        """Correlation of point i's residual with every point's at the first probe snapshot
+        that uses it: Ωᵢⱼ = −Hⱼ P Hᵢᵀ from one solve with its matrix, normalized by the
+        residual variances ``omega`` (per point, e.g. the block estimate's at that
+        snapshot). NaN where a point is not used; None when no probe uses i."""
+        for p in self.probes:
+            if p is None or p.w[i] <= 0:
+                continue
+            nx = p.layout.n_state
+            hi = p.H[i].toarray().ravel()
+            q = p.solve(np.r_[hi, np.zeros(p.cidx.size)])[:nx]
+            row = -np.asarray(p.H @ q).ravel()
+            row[i] += 1.0 / p.w[i]
+            out = np.full(row.size, np.nan)
+            used = p.w > 0
+            with np.errstate(divide="ignore", invalid="ignore"):
+                out[used] = row[used] / np.sqrt(omega[i] * omega[used])
+            return out
+        return None
+
     # ------------------------------------------------------------------ trials
     def objectives(self, trials: list[np.ndarray]) -> list[float]:
         """Σ J(x̂) over the probe snapshots for each trial (points left out besides

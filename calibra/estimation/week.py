@@ -41,7 +41,7 @@ from calibra.estimation.measurements import StateLayout, unit_phasors
 from calibra.estimation.observability import Observability
 from calibra.estimation.residuals import CRITICAL_S, analyse_residuals, chi_square_threshold
 from calibra.estimation.runtime import can_fork, default_workers, fork_pool, tune_allocator
-from calibra.estimation.wls import Estimator
+from calibra.estimation.wls import FEASIBLE, OVERSHOOT, Estimator, objective_stationary
 
 #: Largest number of missing measurements handled by the Woodbury update of Ω.
 MAX_WOODBURY = 400
@@ -691,13 +691,39 @@ class BlockSolver:
                               (pins, pins)), shape=(nx, nx))
         D = sp.csr_matrix((np.ones(off.size), (off, off)), shape=(nc, nc)) if nc else None
         keep = sp.diags(on.astype(float)) if nc else None
-        last = best = step = np.inf
+        last = best = step = objective_before = np.inf
         stuck = 0
+        previous = None
+        history: list[float] = []
+        steps: list[float] = []
         for it in range(1, self.max_iterations + 1):
+            phasors = unit_phasors(x_va)
+            h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w), phasors)
+            objective = float(np.sum(w * (z - h) ** 2))
+            # Damped: a step that raised J is halved (up to four times), as the single
+            # estimator does.
+            halvings = 0
+            feasible = not nc or float(np.abs(cons.evaluate(x_vm, x_va, status)[cidx][on]).max(
+                initial=0.0)) < FEASIBLE
+            while previous is not None and halvings < 4 and feasible and \
+                    objective > objective_before * (1 + OVERSHOOT):
+                p_vm, p_va, p_lam, p_sol = previous
+                p_sol = p_sol * 0.5
+                previous = (p_vm, p_va, p_lam, p_sol)
+                x_vm, x_va = layout.apply_step(p_vm, p_va, p_sol[:nx])
+                x_lam = (p_lam + p_sol[nx:]) * on[:, None] if nc else p_lam
+                phasors = unit_phasors(x_va)
+                h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w),
+                                                      phasors)
+                objective = float(np.sum(w * (z - h) ** 2))
+                halvings += 1
             H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)
             G = (H.T @ sp.diags(w[:, 0]) @ H + hold).tocsc()
-            phasors = unit_phasors(x_va)
-            _, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w), phasors)
+            history.append(objective)
+            if feasible and objective_stationary(steps, history):
+                done[i] = True
+                break
+            objective_before = objective
             if nc:
                 C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)[cidx]
                 lam_rows = np.zeros((cons.m, 1))
@@ -718,6 +744,8 @@ class BlockSolver:
                 break
             if step > _MAX_NEWTON_STEP:
                 sol = sol * (_MAX_NEWTON_STEP / step)
+            previous = (x_vm, x_va, x_lam, sol)
+            steps.append(step)
             if nc:
                 x_lam = (x_lam + sol[nx:]) * on[:, None]
             x_vm, x_va = layout.apply_step(x_vm, x_va, sol[:nx])
@@ -984,9 +1012,11 @@ def topology_runs(in_service: np.ndarray, max_block: int,
     ends = np.r_[starts[1:], k]
     runs = []
     for a, b in zip(starts, ends, strict=True):
+        # Equal blocks of at most max_block (not max_block and a short remainder).
+        size = -(-(b - a) // -(-(b - a) // max_block))
         s = a
         while s < b:
-            e = min(s + max_block, b)
+            e = min(s + size, b)
             if timed and max_span is not None:
                 limit = index[s] + max_span
                 e = min(e, max(s + 1, int(np.searchsorted(index.asi8[s:e], limit.value,

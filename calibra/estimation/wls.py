@@ -160,8 +160,31 @@ class Estimator:
         else:
             z0 = np.where(used, z, 0.0)
             inv_sigma = np.where(used, 1.0 / model.sigma_pu, 0.0)
+            objective_before = np.inf
+            previous = None
+            history: list[float] = []
+            steps: list[float] = []
             for it in range(1, opt.max_iterations + 1):
                 r = z0 - model.functions.evaluate(vm, va, status)
+                objective_now = float(np.sum((r[idx] / sigma) ** 2 * w_used))
+                # Damped Gauss-Newton: once the zero injections hold, a step that raised J is
+                # halved (up to four times); near a flat direction plain steps can cycle.
+                # (While they do not hold yet, J may rightly rise towards them.)
+                halvings = 0
+                feasible = _violation(cons, cidx, vm, va, status) < FEASIBLE
+                while (previous is not None and not opt.robust and halvings < 4 and feasible
+                       and objective_now > objective_before * (1 + OVERSHOOT)):
+                    dx_prev = previous[2] * 0.5
+                    vm, va = layout.apply_step(previous[0], previous[1], dx_prev)
+                    previous = (previous[0], previous[1], dx_prev)
+                    r = z0 - model.functions.evaluate(vm, va, status)
+                    objective_now = float(np.sum((r[idx] / sigma) ** 2 * w_used))
+                    halvings += 1
+                history.append(objective_now)
+                if feasible and objective_stationary(steps, history):
+                    converged = True
+                    break
+                objective_before = objective_now
                 if opt.robust and it > 1:
                     w_used = _huber_weights(r[idx] / sigma, opt.huber_k)
                     weights[idx] = w_used
@@ -179,6 +202,8 @@ class Estimator:
                 if np.isfinite(step) and step > _MAX_STEP:
                     # Far from the solution (gross errors, a poor start): limit the step.
                     dx = dx * (_MAX_STEP / step)
+                previous = (vm, va, dx)
+                steps.append(step)
                 vm, va = layout.apply_step(vm, va, dx)
                 if not np.isfinite(step) or vm[obs.estimated_buses].min() < _VM_RANGE[0] \
                         or vm[obs.estimated_buses].max() > _VM_RANGE[1]:
@@ -228,6 +253,49 @@ class Estimator:
         vmeas = used & (model.code == V_MAG)
         level = float(np.median(z[vmeas])) if vmeas.any() else 1.0
         return np.full(n, level if 0.8 < level < 1.2 else 1.0), np.zeros(n)
+
+
+#: A Gauss-Newton run whose steps have shrunk below this (pu, rad) while J no longer changes
+#: (relative 1e-9) has converged in everything the measurements say: what still moves is a
+#: direction they hardly see, e.g. the sign of a low flow seen through a current magnitude.
+FLAT_STEP = 1e-4
+FLAT_OBJECTIVE = 1e-9
+FLAT_CYCLE = 1e-6
+
+
+#: Largest zero-injection mismatch (pu) at which steps are judged by J alone.
+FEASIBLE = 1e-9
+#: A step that raises J by more than this share overshot (steps towards the exact zero
+#: injections may raise J by less: their multipliers can be large).
+OVERSHOOT = 1e-6
+
+
+def _violation(cons: MeasurementFunctions, cidx: np.ndarray, vm, va, status) -> float:
+    if cidx.size == 0:
+        return 0.0
+    return float(np.abs(cons.evaluate(vm, va, status)[cidx]).max())
+
+
+def objective_stationary(steps: list[float], objectives: list[float]) -> bool:
+    """Whether a Gauss-Newton run may stop although its step is above the tolerance: after
+    five iterations the steps are small (:data:`FLAT_STEP`) and no longer shrink fast, and J
+    no longer changes — from one iteration to the next, or, when the steps cycle in a flat
+    direction, the best of the last three no better than the best of the three before.
+    ``steps``: the step of every iteration so far; ``objectives``: J at every iterate."""
+    if len(steps) < 6 or len(objectives) < 2:
+        return False
+    last, before = steps[-1], steps[-2]
+    if last >= FLAT_STEP or last < 0.25 * before:
+        return False  # not small yet, or still converging quadratically
+    now, prev = objectives[-1], objectives[-2]
+    if abs(prev - now) <= FLAT_OBJECTIVE * max(now, 1.0):
+        return True
+    # A cycle: the steps stopped shrinking and J stays within a narrow band (a steady
+    # linear approach, whose steps keep shrinking, is not one).
+    if len(objectives) >= 8 and last >= 0.9 * min(steps[-6:-1]):
+        recent = objectives[-6:]
+        return max(recent) - min(recent) <= FLAT_CYCLE * max(now, 1.0)
+    return False
 
 
 def _huber_weights(u: np.ndarray, k: float) -> np.ndarray:

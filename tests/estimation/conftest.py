@@ -83,6 +83,22 @@ def case118_solved() -> SolvedCase:
     return solve_with_pypower(case118)
 
 
+@pytest.fixture(scope="session")
+def pegase89_solved() -> SolvedCase:
+    """PEGASE 89-bus European model (pandapower's networks, test-only) solved by pypower."""
+    from tests.published import published_case
+
+    return solve_with_pypower(lambda: published_case("case89pegase"))
+
+
+@pytest.fixture(scope="session")
+def iceland_solved() -> SolvedCase:
+    """The Icelandic grid (189 buses; series capacitor, bus couplers) solved by pypower."""
+    from tests.published import published_case
+
+    return solve_with_pypower(lambda: published_case("iceland"))
+
+
 def model_and_truth(case: SolvedCase, **kw) -> tuple[MeasurementModel, np.ndarray]:
     model = MeasurementModel.from_points(case.network, full_point_list(case.network, **kw))
     return model, model.functions.evaluate(case.vm, case.va)

@@ -14,10 +14,13 @@ from calibra.model.network import Network
 from tests.estimation.conftest import full_point_list, model_and_truth
 
 
-@pytest.mark.parametrize("case_name", ["case57_solved", "case118_solved"])
+@pytest.mark.parametrize("case_name", ["case57_solved", "case118_solved", "pegase89_solved",
+                                       "iceland_solved"])
 def test_noise_free_measurements_return_pypower_state(case_name, request):
     """Fed noise-free measurements from pypower's runpf (test-only reference), the estimator
-    returns its state to 1e-6 pu / 1e-6 rad and holds every zero injection."""
+    returns its state to 1e-6 pu / 1e-6 rad and holds every zero injection — on the IEEE cases
+    and on published real models (PEGASE 89: phase shifters, taps far from 1; Iceland: a series
+    capacitor, x = 1e-4 pu bus couplers; pandapower's networks)."""
     case = request.getfixturevalue(case_name)
     model, z = model_and_truth(case)
     est = Estimator(model).estimate(z)
