@@ -7,7 +7,15 @@ Faults whose error stays below the meter's accuracy class are reported as undete
 required.
 
     python benchmarks/diagnosis_scenarios.py [--cases case57 case118] [--seeds 1 2 3]
-           [--periods 2016] [--freq 5min]
+           [--periods 2016] [--freq 5min] [--coverage 0.55 --sparse] [--bare-status]
+           [--deadband 0.3 --bits 12] [--clean]
+
+``--cases`` takes pypower's IEEE cases and pandapower's published networks
+(``tests/published.py``: case89pegase, iceland, GBreducednetwork, case1354pegase, …).
+``--coverage`` is the chance that a branch end is metered; ``--sparse`` meters each end on its
+own (branches without any flow meter, unobservable parts); ``--clean`` runs the same weeks with
+no fault (every finding is a false alarm). Peak memory: proportional set size of the process
+tree (benchmarks/process_memory.py).
 """
 
 from __future__ import annotations
@@ -23,8 +31,12 @@ import calibra  # noqa: F401
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
+from process_memory import PeakMemory  # noqa: E402  (benchmarks/ is on the path as a script)
+
 from calibra.diagnosis.findings import findings_table  # noqa: E402
 from calibra.diagnosis.review import review_site  # noqa: E402
+from calibra.simulate.pointlist import MeteringOptions  # noqa: E402
+from calibra.simulate.telemetry import TelemetryOptions  # noqa: E402
 from tests.diagnosis.scenarios import detectable_faults, generated_scenario  # noqa: E402
 from tests.diagnosis.scoring import score  # noqa: E402
 
@@ -35,19 +47,41 @@ def main() -> None:
     ap.add_argument("--seeds", nargs="+", type=int, default=[1, 2, 3])
     ap.add_argument("--periods", type=int, default=2016)
     ap.add_argument("--freq", default="5min")
+    ap.add_argument("--coverage", type=float, default=None,
+                    help="chance that a branch end is metered (default: the simulator's)")
+    ap.add_argument("--sparse", action="store_true", help="meter branch ends independently")
+    ap.add_argument("--bare-status", action="store_true",
+                    help="status points without device, full scale or accuracy class")
+    ap.add_argument("--deadband", type=float, default=0.0, help="report by exception, %% FS")
+    ap.add_argument("--bits", type=int, default=0, help="converter resolution (0: none)")
+    ap.add_argument("--clean", action="store_true", help="no faults: count false alarms")
     args = ap.parse_args()
+    metering = MeteringOptions(independent_ends=args.sparse,
+                               bare_status_points=args.bare_status)
+    if args.coverage is not None:
+        metering = MeteringOptions(branch_end_coverage=args.coverage,
+                                   independent_ends=args.sparse,
+                                   bare_status_points=args.bare_status)
+    telemetry = TelemetryOptions(deadband_pct=args.deadband, resolution_bits=args.bits)
     rows = []
     for case in args.cases:
         for seed in args.seeds:
-            sim = generated_scenario(case, seed, args.periods, args.freq)
+            sim = generated_scenario(case, seed, args.periods, args.freq,
+                                     faults=not args.clean, metering=metering,
+                                     telemetry=telemetry)
             t = time.perf_counter()
-            res = review_site(sim.site)
+            with PeakMemory(0.05) as mem:
+                res = review_site(sim.site)
             dt = time.perf_counter() - t
-            s = score(findings_table(res.findings), sim.truth, detectable_faults(sim))
-            rows.append({"case": case, "seed": seed, "faults": len(sim.truth),
+            table = findings_table(res.findings)
+            s = score(table, sim.truth, detectable_faults(sim))
+            rows.append({"case": case, "seed": seed, "points": len(sim.site.points),
+                         "faults": len(sim.truth),
                          "undetectable": len(s.undetectable), "found": len(s.found),
                          "missed": len(s.missed), "wrong": len(s.wrong_kind),
-                         "false": len(s.false_alarms), "seconds": round(dt, 1)})
+                         "false": len(s.false_alarms),
+                         "unverifiable": int((table.finding == "unverifiable").sum()),
+                         "seconds": round(dt, 1), "peak_mb": round(mem.peak_mb)})
             print(rows[-1], flush=True)
             for item in s.missed:
                 print("   missed", item, sim.truth.loc[sim.truth.tag == item, "kind"].tolist())

@@ -128,8 +128,14 @@ class FindingsView:
         frames = [f for f in (review, earlier) if len(f)]
         if not frames:
             return pd.DataFrame(columns=LIST_COLUMNS)
-        out = pd.concat([f.reindex(columns=LIST_COLUMNS) for f in frames], ignore_index=True)
+        # Column by column, so a column that is empty in one frame takes the other's type.
+        parts = [f.reindex(columns=LIST_COLUMNS) for f in frames]
+        out = pd.DataFrame({c: pd.concat([f[c].astype(object) for f in parts],
+                                         ignore_index=True).infer_objects()
+                            for c in LIST_COLUMNS})
         out["confidence"] = pd.to_numeric(out["confidence"], errors="coerce").astype(float)
+        for name in ("factor", "offset", "drift_per_day"):
+            out[name] = pd.to_numeric(out[name], errors="coerce").astype(float)
         for name in ("tag", "device", "substation", "finding", "state", "evidence"):
             out[name] = out[name].fillna("").astype(str)
         out["in_review"] = out["in_review"].astype(bool)

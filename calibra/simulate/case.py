@@ -41,7 +41,8 @@ class GridCase:
             series = series.copy()
             series.index = series.index.astype(str)
             fill = False if name == "pv" else (1.0 if name == "v_set" else 0.0)
-            setattr(self, name, series.reindex(idx).fillna(fill))
+            series = series.reindex(idx, fill_value=fill).infer_objects()
+            setattr(self, name, series.where(series.notna(), fill))
         self.pv = self.pv.astype(bool)
         self.pv[self.network.reference_bus] = False
 

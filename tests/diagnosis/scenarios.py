@@ -6,20 +6,30 @@ import numpy as np
 import pandas as pd
 
 from calibra.simulate.case import grid_case_from_matpower
-from calibra.simulate.pointlist import make_point_list
-from calibra.simulate.telemetry import SimulationResult, simulate_site
+from calibra.simulate.pointlist import MeteringOptions, make_point_list
+from calibra.simulate.telemetry import SimulationResult, TelemetryOptions, simulate_site
+from tests.published import PUBLISHED, published_grid_case
+
+
+def scenario_case(case_name: str):
+    """A published network as a simulator case: a pypower IEEE case (``case57``…) or one of
+    pandapower's networks (:data:`tests.published.PUBLISHED`)."""
+    if case_name in PUBLISHED:
+        return published_grid_case(case_name)
+    import pypower.api as pp
+
+    return grid_case_from_matpower(getattr(pp, case_name)(), name=case_name)
 
 
 def generated_scenario(case_name: str, seed: int, periods: int = 2016, freq: str = "5min",
-                       faults=True) -> SimulationResult:
-    """A pypower case (published IEEE network) with a simulated point list, period and a
-    random fault mix drawn from ``seed``."""
-    import pypower.api as pp
-
-    case = grid_case_from_matpower(getattr(pp, case_name)(), name=case_name)
-    points = make_point_list(case, seed=seed)
+                       faults=True, metering: MeteringOptions | None = None,
+                       telemetry: TelemetryOptions | None = None) -> SimulationResult:
+    """A published network with a simulated point list (``metering``), period (``telemetry``)
+    and a random fault mix drawn from ``seed``."""
+    case = scenario_case(case_name)
+    points = make_point_list(case, options=metering, seed=seed)
     return simulate_site(case, points, start=pd.Timestamp("2026-05-04"), periods=periods,
-                         freq=freq, seed=seed, faults=faults, timezone="UTC")
+                         freq=freq, seed=seed, faults=faults, timezone="UTC", options=telemetry)
 
 
 def detectable_faults(sim: SimulationResult) -> set[str]:
