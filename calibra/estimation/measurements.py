@@ -28,8 +28,10 @@ QUANTITY_CODE = {
     "p_injection": P_INJ, "q_injection": Q_INJ, "v_magnitude": V_MAG,
 }
 BRANCH_END_CODES = (P_FLOW, Q_FLOW, I_MAG)
-#: Smoothing of |I| near zero current: h = sqrt(|I|² + eps²), in per unit.
-CURRENT_EPS = 1e-5
+#: Smoothing of |I| near zero current: h = sqrt(|I|² + eps²), in per unit. It biases h by up
+#: to eps where no current flows, so it stays far below the finest current meter: 0.25 A on a
+#: 0.22 kV generator terminal is 1e-6 pu on a 100 MVA base (1e-5 read 2.6 A there).
+CURRENT_EPS = 1e-9
 
 
 @dataclass(frozen=True)
