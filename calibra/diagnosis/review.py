@@ -20,8 +20,8 @@ from calibra.diagnosis.mismap import (
     unit_family,
 )
 from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
+from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.runtime import fork_map
-from calibra.estimation.week import observability_counts
 from calibra.model.points import analog_points
 from calibra.model.site import Site
 from calibra.progress import Progress

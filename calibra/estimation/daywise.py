@@ -21,9 +21,10 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.site_estimate import checked_topology
-from calibra.estimation.week import PeriodResult, estimate_period, observability_counts
+from calibra.estimation.week import PeriodResult, estimate_period
 from calibra.estimation.wls import Estimator
 from calibra.io.site_folder import open_history, resolve_period
 from calibra.model.availability import availability_lines

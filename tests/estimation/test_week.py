@@ -179,14 +179,14 @@ def test_partly_observable_block_is_estimated_together():
 def test_singular_iteration_matrix_falls_back_without_an_exception(case118_solved, monkeypatch):
     """A factorization that fails ('Factor is exactly singular', as SuperLU says) splits the
     block down to snapshots estimated alone; every snapshot still has an outcome with why."""
-    import calibra.estimation.week as week
+    import calibra.estimation.block as block
 
     model, Z = _varied_snapshots(case118_solved, 20, 9)
 
     def singular(*_args, **_kwargs):
         raise RuntimeError("Factor is exactly singular")
 
-    monkeypatch.setattr(week, "kkt_solver", singular)
+    monkeypatch.setattr(block, "kkt_solver", singular)
     result = BlockSolver(Estimator(model), model.network.default_in_service()).solve(Z)
     out = result.outcomes
     assert len(out) == 20 and out["converged"].all()
