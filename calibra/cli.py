@@ -124,6 +124,7 @@ def load_for_command(folder: Path, start: str | None = None,
     """Load a site for a command that works on it (only the snapshots from ``start`` to
     ``end`` when given, so a long history is never read whole); print problems; None when not
     usable."""
+    _check_order(start, end)
     try:
         site = load_site(_site_folder(folder), start=start, end=end)
     except ValueError as exc:  # a --from/--to that is not a time
@@ -136,6 +137,24 @@ def load_for_command(folder: Path, start: str | None = None,
     if site.problems:
         print(f"load: {_tally(site.problems)} (listed by 'calibra check {folder}')")
     return site
+
+
+def _check_order(start: str | None, end: str | None) -> None:
+    """A --from later than --to is a usage error (naive times compared as they are written:
+    both are in the site's time zone)."""
+    if start is None or end is None:
+        return
+    import pandas as pd
+
+    try:
+        a, b = pd.Timestamp(start), pd.Timestamp(end)
+    except ValueError:
+        return  # reported by the loader with the text
+    if (a.tzinfo is None) != (b.tzinfo is None):
+        a = a.tz_localize("UTC") if a.tzinfo is None else a
+        b = b.tz_localize("UTC") if b.tzinfo is None else b
+    if a > b:
+        raise UsageError(f"--from {start} is later than --to {end}")
 
 
 def report_unusable(folder: Path, exc: SiteLoadError) -> None:
@@ -154,20 +173,13 @@ def period_arguments(parser: argparse.ArgumentParser) -> None:
 
 def parse_period(site: Site, args: argparse.Namespace):
     """The --from/--to values as UTC timestamps (None when not given)."""
-    import pandas as pd
+    from calibra.model.times import read_local
 
-    out = []
-    for text in (args.start, args.end):
-        if text is None:
-            out.append(None)
-            continue
-        try:
-            ts = pd.Timestamp(text)
-        except ValueError as exc:
-            raise UsageError(f"not a time: {text!r}") from exc
-        ts = ts.tz_localize(site.timezone) if ts.tzinfo is None else ts
-        out.append(ts.tz_convert("UTC"))
-    return out
+    try:
+        return [None if text is None else read_local(text, site.timezone)
+                for text in (args.start, args.end)]
+    except ValueError as exc:
+        raise UsageError(str(exc)) from exc
 
 
 def _lazy(module: str, name: str) -> Callable:
@@ -202,6 +214,13 @@ COMMANDS: list[Command] = [
         _lazy("calibra.cli_review", "run"),
     ),
     Command(
+        "ledger",
+        "list the open findings of a site's ledger, or confirm, correct, mark repaired, "
+        "dismiss, annotate or undo them; show the history",
+        _lazy("calibra.cli_ledger", "add_arguments"),
+        _lazy("calibra.cli_ledger", "run"),
+    ),
+    Command(
         "open",
         "open a site in the desktop application (with no command at all: the last site used, "
         "else the bundled sample site)",
@@ -218,6 +237,9 @@ def build_parser(commands: Sequence[Command] | None = None) -> argparse.Argument
         prog="calibra",
         description="Find telemetry points whose errors are consistent over a week.",
     )
+    import calibra
+
+    parser.add_argument("--version", action="version", version=f"calibra {calibra.__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
     for command in COMMANDS if commands is None else commands:
         p = sub.add_parser(command.name, help=command.help, description=command.help)

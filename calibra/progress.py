@@ -40,21 +40,41 @@ class Progress:
 
 
 def terminal_progress(stream=None, width: int = 30, min_interval: float = 0.2) -> Progress:
-    """A :class:`Progress` that draws a one-line bar on a terminal stream (stderr by default)."""
+    """A :class:`Progress` for a terminal stream (stderr by default): one bar per stage that
+    never runs backwards (workers finish blocks out of order), redrawn in place on a terminal;
+    when the stream is not a terminal (a log file), plain lines at 0, 25, 50, 75 and 100 %."""
     out = stream or sys.stderr
-    state = {"last": 0.0, "message": ""}
+    tty = bool(getattr(out, "isatty", lambda: False)())
+    state = {"last": 0.0, "message": None, "frac": 0.0, "open": False, "step": -1,
+             "done": False}
 
     def draw(done: int, total: int, message: str) -> None:
-        now = time.monotonic()
-        final = total > 0 and done >= total
-        if not final and now - state["last"] < min_interval and message == state["message"]:
+        if message != state["message"]:
+            if state["open"]:
+                out.write("\n")
+            state.update(message=message, frac=0.0, open=False, step=-1, last=0.0, done=False)
+        if state["done"]:
             return
-        state["last"], state["message"] = now, message
-        frac = done / total if total else 0.0
-        bar = "#" * int(round(frac * width))
-        out.write(f"\r{message[:40]:<40} [{bar:<{width}}] {100 * frac:5.1f}%")
-        if final:
-            out.write("\n")
+        frac = max(state["frac"], min(max(done / total, 0.0), 1.0) if total > 0 else 0.0)
+        state["frac"] = frac
+        final = frac >= 1.0
+        if tty:
+            now = time.monotonic()
+            if not final and now - state["last"] < min_interval:
+                return
+            state["last"] = now
+            bar = "#" * int(round(frac * width))
+            out.write(f"\r{message[:40]:<40} [{bar:<{width}}] {100 * frac:5.1f}%")
+            state["open"] = not final
+            if final:
+                out.write("\n")
+        else:
+            step = int(frac * 4)
+            if step == state["step"]:
+                return
+            state["step"] = step
+            out.write(f"{message}: {25 * step} %\n")
+        state["done"] = final
         out.flush()
 
     return Progress(draw)

@@ -18,6 +18,13 @@ from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.ledger import Ledger, apply_corrections
 from calibra.model.availability import availability_lines
 from calibra.model.site import Site
+from calibra.model.times import for_machines
+from calibra.open_work import (
+    carried_findings,
+    judge_after_repairs,
+    reopened_evidence,
+    repairs_inside,
+)
 from calibra.progress import Progress
 from calibra.reports import (
     needing_field_work,
@@ -30,6 +37,7 @@ FINDINGS_FILE = "findings.csv"
 WORK_ORDERS_CSV = "work_orders.csv"
 WORK_ORDERS_PDF = "work_orders.pdf"
 SUMMARY_FILE = "summary.txt"
+SUMMARY_JSON = "summary.json"
 
 
 @dataclass
@@ -43,6 +51,8 @@ class ReviewRun:
     seconds: float
     files: dict[str, Path] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
+    #: Points judged only on their data after a repair inside the period: tag → repair time.
+    repairs_judged: dict = field(default_factory=dict)
 
 
 def settings_dict(settings: ReviewSettings) -> dict:
@@ -65,22 +75,47 @@ def run_review(
     snaps = site.snapshots.loc[start:end]
     if snaps.empty:
         raise ValueError("no snapshots in the chosen period")
-    corrections = []
+    corrections, repairs = [], {}
     if ledger is not None:
         corrections = ledger.active_corrections((snaps.index[0], snaps.index[-1]))
         snaps = apply_corrections(snaps, corrections, missing="ignore")
+        repairs = repairs_inside(ledger, snaps.index[0], snaps.index[-1])
+        snaps = judge_after_repairs(snaps, repairs)
     result = review_site(site, st, snaps, progress, engine)
     table = findings_table(result.findings)
+    table["in_this_review"] = True
     review_id = None
     if ledger is not None:
         summary = {k: v for k, v in result.summary.items() if k != "rounds"}
-        review_id = ledger.record_review(result.findings, snaps.index[0], snaps.index[-1],
-                                         settings_dict(st), summary)
-        states = ledger.findings()["state"]
-        table["state"] = table["finding_id"].map(states).fillna("new")
+        unverifiable = {f.tag for f in result.findings if f.finding == "unverifiable"}
+        judged = set(result.diagnoses) - unverifiable
+        review_id = ledger.record_review(
+            result.findings, snaps.index[0], snaps.index[-1], settings_dict(st), summary,
+            judged_from=repairs, not_judged=set(site.points.index.astype(str)) - judged)
+        table = _with_ledger(table, ledger, corrections, site.timezone)
     else:
         table["state"] = "new"
-    return ReviewRun(result, table, review_id, corrections, time.perf_counter() - t0)
+    run = ReviewRun(result, table, review_id, corrections, time.perf_counter() - t0)
+    run.repairs_judged = repairs
+    return run
+
+
+def _with_ledger(table: pd.DataFrame, ledger: Ledger, corrections: list,
+                 timezone: str) -> pd.DataFrame:
+    """The review's findings with their ledger state (and reopen reason), followed by the
+    findings the ledger still holds open for the field that the review did not see."""
+    known = ledger.findings()
+    for name, fill in (("state", "new"), ("reopened", ""), ("repaired_at", pd.NaT)):
+        table[name] = table["finding_id"].map(known[name]).fillna(fill) if len(known) else fill
+    carried = carried_findings(ledger, table["finding_id"], corrections, timezone)
+    if len(carried):
+        carried["in_this_review"] = False
+        carried = carried.reindex(columns=table.columns)
+        table = pd.concat([table.astype(object), carried.astype(object)],
+                          ignore_index=True).infer_objects()
+    table["evidence"] = reopened_evidence(table, timezone)
+    table["in_this_review"] = table["in_this_review"].astype(bool)
+    return table
 
 
 def write_outputs(run: ReviewRun, site: Site, out: Path, pdf: bool = True) -> dict[str, Path]:
@@ -88,9 +123,9 @@ def write_outputs(run: ReviewRun, site: Site, out: Path, pdf: bool = True) -> di
     out.mkdir(parents=True, exist_ok=True)
     files: dict[str, Path] = {}
     table = run.findings.copy()
-    for col in ("onset", "until"):
-        table[col] = pd.to_datetime(table[col], utc=True).map(
-            lambda t: t.isoformat().replace("+00:00", "Z") if pd.notna(t) else "")
+    for col in ("onset", "until", "repaired_at"):
+        if col in table.columns:
+            table[col] = pd.to_datetime(table[col], utc=True).map(for_machines)
     cols = list(table.columns)
     rows = ([None if (not isinstance(v, str) and pd.isna(v)) else v for v in r]
             for r in table.itertuples(index=False))
@@ -112,8 +147,9 @@ def write_outputs(run: ReviewRun, site: Site, out: Path, pdf: bool = True) -> di
                                                    footer=site.name)
     (out / SUMMARY_FILE).write_text("\n".join(summary_lines(run, site)) + "\n", encoding="utf-8")
     files["summary"] = out / SUMMARY_FILE
-    (out / "summary.json").write_text(json.dumps(_json_summary(run), indent=2, default=str),
-                                      encoding="utf-8")
+    (out / SUMMARY_JSON).write_text(json.dumps(_json_summary(run), indent=2, default=str),
+                                    encoding="utf-8")
+    files["summary_json"] = out / SUMMARY_JSON
     run.files = files
     return files
 

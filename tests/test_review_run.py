@@ -37,7 +37,14 @@ def test_correct_then_repair_then_verify(reversed_site, tmp_path):
         for tag in tags:
             ledger.mark_reversed(tag, user="test")
         second = run_review(site, ledger=ledger)
-        assert not set(tags) & set(second.findings["tag"])
+        # The review no longer sees the fault (its data are corrected), but the CT is still
+        # wrong: the findings stay, as corrected in software, for the field work.
+        seen = second.findings[second.findings["in_this_review"]]
+        assert not set(tags) & set(seen["tag"])
+        kept = second.findings.set_index("tag").loc[list(tags)]
+        assert (kept["state"] == "corrected").all()
+        assert kept["evidence"].str.contains("corrected in software since").all()
+        assert kept["evidence"].str.contains("field fix is still due").all()
         # With the correction applied, far fewer snapshots fail with every point in.
         assert second.result.summary["rounds"][0]["chi2_failed"] < 0.2 * chi2_before
         states = ledger.findings().set_index("tag")
@@ -53,7 +60,9 @@ def test_correct_then_repair_then_verify(reversed_site, tmp_path):
         before = run_review(site, ledger=ledger, end=mid - pd.Timedelta("1min"))
         assert not set(tags) & set(before.findings["tag"])
         after = run_review(site, ledger=ledger, start=mid)
-        assert set(tags) <= set(after.findings["tag"])
+        again = after.findings.set_index("tag").loc[list(tags)]
+        assert again["in_this_review"].all() and (again["state"] == "new").all()
+        assert again["evidence"].str.contains("did not clear it").all()
         history = ledger.history(tag=tags[0])
         assert len(history) >= 3
 

@@ -17,6 +17,7 @@ from calibra.cluster.worker import worker_version
 from calibra.diagnosis.review import ReviewSettings
 from calibra.ledger import Ledger
 from calibra.model.site import Site
+from calibra.open_work import repairs_inside
 from calibra.progress import Progress
 from calibra.review_run import ReviewRun, run_review
 
@@ -109,7 +110,9 @@ def engine_for_review(client, site: Site, start: pd.Timestamp | None = None,
         raise ValueError("no snapshots in the chosen period")
     corrections = [] if ledger is None else \
         ledger.active_corrections((snaps.index[0], snaps.index[-1]))
-    return ClusterEngine(client, site, start, end, corrections, worker_site, progress)
+    held = {} if ledger is None else repairs_inside(ledger, snaps.index[0], snaps.index[-1])
+    return ClusterEngine(client, site, start, end, corrections, worker_site, progress,
+                         held_out=held)
 
 
 def review_on_cluster(client, site: Site, settings: ReviewSettings | None = None,

@@ -54,7 +54,7 @@ class ClusterEngine:
     def __init__(self, client, site: Site, start: pd.Timestamp | None = None,
                  end: pd.Timestamp | None = None, corrections: Iterable[Correction] = (),
                  worker_site: str | None = None, progress: Progress | None = None,
-                 retries: int = 2):
+                 retries: int = 2, held_out: dict[str, pd.Timestamp] | None = None):
         if worker_site is None and site.path is None:
             raise ValueError("a cluster review needs a site read from a folder the workers see")
         self.client = client
@@ -62,7 +62,8 @@ class ClusterEngine:
         self.location = str(worker_site) if worker_site else str(Path(site.path).resolve())
         self.progress = progress
         self.retries = retries
-        period = prepare_period(site, start, end, self.corrections)
+        self.held_out = dict(held_out or {})
+        period = prepare_period(site, start, end, self.corrections, self.held_out)
         if len(period.index) == 0:
             raise ValueError("no snapshots in the chosen period")
         self._period = period
@@ -74,6 +75,7 @@ class ClusterEngine:
         self.n_bus = period.estimator.model.network.n_bus  #: buses of the network
         self.m = period.estimator.model.m  #: analog points (measurements)
         self._records = correction_records(self.corrections)
+        self._held = tuple(sorted((t, int(at.value)) for t, at in self.held_out.items()))
         self._token = uuid.uuid4().hex[:8]
         #: Days estimated per worker address (the last call), for reports and tests.
         self.workers_used: dict[str, int] = {}
@@ -123,7 +125,7 @@ class ClusterEngine:
         first, end, digest = self._days[day]
         return DayJob(self.location, int(self.index[0].value), int(self.index[-1].value),
                       self._records, self._site_digest, first, end, digest, rows, set_aside,
-                      int(max_block), float(tolerance), float(confidence))
+                      int(max_block), float(tolerance), float(confidence), self._held)
 
     def _run(self, jobs: list[DayJob], sizes: list[int], progress) -> list[DayResult]:
         distributed = distributed_module()

@@ -10,7 +10,7 @@ point list) stops with a clear error instead of returning different results.
 from __future__ import annotations
 
 import hashlib
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -21,6 +21,7 @@ from calibra.estimation.site_estimate import checked_topology
 from calibra.estimation.wls import Estimator
 from calibra.ledger import Correction, apply_corrections
 from calibra.model.site import Site
+from calibra.open_work import judge_after_repairs
 
 #: A software correction as plain data: tag, gain, bias, valid_from and valid_until as UTC
 #: nanoseconds (None = open).
@@ -105,14 +106,17 @@ class PreparedPeriod:
 
 
 def prepare_period(site: Site, start: pd.Timestamp | None, end: pd.Timestamp | None,
-                   corrections: Iterable[Correction] = ()) -> PreparedPeriod:
-    """The snapshots of ``site`` from ``start`` to ``end`` (inclusive) with ``corrections``,
-    converted to per unit and checked for topology exactly as the week review does
-    (:func:`calibra.diagnosis.evidence.gather_evidence`)."""
+                   corrections: Iterable[Correction] = (),
+                   held_out: Mapping[str, pd.Timestamp] | None = None) -> PreparedPeriod:
+    """The snapshots of ``site`` from ``start`` to ``end`` (inclusive) with ``corrections``
+    and the values of ``held_out`` points before their times left out (repairs judged on the
+    data after them), converted to per unit and checked for topology exactly as the week
+    review does (:func:`calibra.review_run.run_review`)."""
     snaps = site.snapshots.loc[start:end]
     corrections = list(corrections)
     if corrections:
         snaps = apply_corrections(snaps, corrections, missing="ignore")
+    snaps = judge_after_repairs(snaps, dict(held_out or {}))
     model = MeasurementModel.from_points(site.network, site.points)
     values = snaps.reindex(columns=model.tags).to_numpy(float)
     z = model.to_per_unit(values)

@@ -64,6 +64,8 @@ class DayJob:
     max_block: int
     tolerance: float
     confidence: float
+    #: Points judged only after a time (a repair inside the period): (tag, UTC ns) pairs.
+    held_out: tuple[tuple[str, int], ...] = ()
 
 
 @dataclass
@@ -154,7 +156,7 @@ def _load(location: str, start: pd.Timestamp, end: pd.Timestamp):
 def prepared_period(job: DayJob) -> PreparedPeriod:
     """The job's period, from this worker's cache or read from the site."""
     key = (job.location, site_fingerprint(job.location), job.start_ns, job.end_ns,
-           job.corrections)
+           job.corrections, job.held_out)
     with _LOCK:
         tune_allocator()
         hit = _CACHE.get(key)
@@ -172,7 +174,9 @@ def prepared_period(job: DayJob) -> PreparedPeriod:
         except OSError as exc:
             raise ClusterError(f"worker {worker_name()} cannot read the site at "
                                f"{job.location}: {exc}") from None
-        prepared = prepare_period(site, start, end, corrections_from_records(job.corrections))
+        held = {tag: pd.Timestamp(ns, tz="UTC") for tag, ns in job.held_out}
+        prepared = prepare_period(site, start, end, corrections_from_records(job.corrections),
+                                  held)
         _CACHE[key] = prepared
         while len(_CACHE) > MAX_CACHED:
             _CACHE.popitem(last=False)

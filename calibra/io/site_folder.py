@@ -26,10 +26,10 @@ from calibra.io.snapshot_size import MEMORY_LIMIT_ENV
 from calibra.io.snapshot_size import memory_limit as default_memory_limit
 from calibra.io.snapshots import empty_snapshots, plan_files, read_snapshots, snapshot_times
 from calibra.io.text_files import read_text
-from calibra.io.timestamps import LOCAL_TIME_ERRORS
 from calibra.model.network import Network
 from calibra.model.points import QUANTITIES
 from calibra.model.site import Site, SiteLoadError
+from calibra.model.times import read_local
 
 NETWORK_DIR = "network"
 CDF_SUFFIXES = (".cdf", ".txt")
@@ -148,22 +148,7 @@ def resolve_period(start, end, timezone: str) -> tuple[pd.Timestamp | None, ...]
         return None
     out = []
     for value in (start, end):
-        if value is None:
-            out.append(None)
-            continue
-        try:
-            ts = pd.Timestamp(value)
-        except (ValueError, TypeError) as exc:
-            raise ValueError(f"not a time: {value!r}") from exc
-        if ts is pd.NaT:
-            raise ValueError(f"not a time: {value!r}")
-        if ts.tzinfo is None:
-            try:
-                ts = ts.tz_localize(timezone, ambiguous="raise", nonexistent="raise")
-            except LOCAL_TIME_ERRORS as exc:
-                raise ValueError(f"{value!r} is not a single moment in {timezone} (daylight "
-                                 "saving time skips or repeats it); give a UTC offset") from exc
-        out.append(ts.tz_convert("UTC"))
+        out.append(None if value is None else read_local(value, timezone))
     return out[0], out[1]
 
 

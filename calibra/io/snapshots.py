@@ -120,6 +120,8 @@ def read_snapshots(
         return empty_snapshots(tags)
     frames.sort(key=lambda item: item[1].index[0])
     _report_overlaps(frames, log)
+    if points is not None:
+        _report_absent_tags(frames, tags, log)
     merged = pd.concat([f for _, f in frames], axis=0, sort=False)
     if len(frames) > 1:
         order = np.argsort(merged.index.asi8, kind="stable")
@@ -129,6 +131,34 @@ def read_snapshots(
     merged = merged.reindex(columns=pd.Index(columns, dtype=str)).astype(np.float64)
     merged.index.name = "timestamp"
     return merged
+
+
+def _report_absent_tags(frames: list[tuple[str, pd.DataFrame]], tags: pd.Index,
+                        log: ProblemLog) -> None:
+    """Warn, per file, about points of the point list that have no column there (their values
+    in that file's rows are missing), and about points in no file at all."""
+    everywhere: set[str] = set()
+    absent_by_file = []
+    for rel, frame in frames:
+        cols = set(map(str, frame.columns))
+        everywhere |= cols
+        absent_by_file.append((rel, [t for t in tags if t not in cols]))
+    nowhere = [t for t in tags if t not in everywhere]
+    nowhere_set = set(nowhere)
+    for rel, absent in absent_by_file:
+        absent = [t for t in absent if t not in nowhere_set]
+        if absent:
+            log.warning(rel, None, None, f"{len(absent)} point(s) of the point list have no column "
+                        f"in this file, so their values are missing in its rows: "
+                        f"{_some(absent)}", count=len(absent))
+    if nowhere:
+        log.warning(SNAPSHOT_DIR, None, None, f"{len(nowhere)} point(s) of the point list have no "
+                    f"column in any snapshot file (all their values missing): {_some(nowhere)}",
+                    count=len(nowhere))
+
+
+def _some(tags: list[str], n: int = 5) -> str:
+    return ", ".join(tags[:n]) + (f" and {len(tags) - n} more" if len(tags) > n else "")
 
 
 def plan_files(folder: Path, timezone: str, log: ProblemLog,

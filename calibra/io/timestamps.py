@@ -12,13 +12,7 @@ import numpy as np
 import pandas as pd
 
 from calibra.io.problems import ProblemLog
-
-try:  # pandas 2 raises pytz's errors for a local time that is not one moment, pandas 3 ValueError
-    from pytz.exceptions import InvalidTimeError as _PytzInvalidTime
-except ImportError:  # pragma: no cover - pandas 3 without pytz
-    _PytzInvalidTime = ValueError
-#: What localizing an ambiguous or non-existent local time raises.
-LOCAL_TIME_ERRORS = (ValueError, _PytzInvalidTime)
+from calibra.model.times import LOCAL_TIME_ERRORS
 
 _OFFSET = r"\d:\d\d(?::\d\d(?:[.,]\d+)?)?\s*(?:Z|z|[+-]\d\d(?::?\d\d)?)$"
 #: Years that a nanosecond time (what the snapshot index holds) can represent in full.

@@ -11,7 +11,7 @@ from __future__ import annotations
 import getpass
 import math
 import sqlite3
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from datetime import datetime
 from pathlib import Path
@@ -81,16 +81,23 @@ class Ledger:
 
     def record_review(self, findings: list[Finding], period_start: TimeLike,
                       period_end: TimeLike, settings: dict, summary: dict, *,
-                      started_at: TimeLike | None = None) -> int:
+                      started_at: TimeLike | None = None,
+                      judged_from: Mapping[str, TimeLike] | None = None,
+                      not_judged: Iterable[str] = ()) -> int:
         """Store a finished review and its findings; returns the review id.
+
+        ``judged_from``: tags whose data the review judged only from a later time than the
+        period start (a repair inside the period: only the data after it); ``not_judged``:
+        tags the review could not judge (too few data, not observable), never verified.
 
         New findings start as ``new``; known ones keep their state and get the new fitted
         values. Automatic actions (user ``calibra``) follow the review:
 
         - a ``repaired`` finding that this review does not find again (same tag and kind)
-          becomes ``verified`` when the period ends after the repair time;
-        - a ``repaired`` finding found again in a period that starts at or after the repair
-          time is reopened (``new``): the repair did not cure it;
+          becomes ``verified`` when the period ends after the repair time and the tag was
+          judged;
+        - a ``repaired`` finding found again in data that start at or after the repair time is
+          reopened (``new``, flagged "the repair did not clear it");
         - a ``dismissed`` finding stays dismissed unless its factor, offset or drift per day
           moved by more than 20 % (see ``states.MATERIAL_CHANGE``) from the values it had
           when dismissed; then it is reopened. To keep it dismissed, dismiss it again.
@@ -115,19 +122,25 @@ class Ledger:
             known = {r["finding_id"]: r["state"] for r in conn.execute(
                 "SELECT finding_id, state FROM findings")}
             statuses = self._statuses(conn, state_in=("repaired", "dismissed"))
+            judged = {str(t): max(start, to_utc(v, "judged_from"))
+                      for t, v in (judged_from or {}).items()}
+            unjudged = {str(t) for t in not_judged}
             touched: set[str] = set()
             for row in rows:
                 self._upsert_finding(conn, row, review_id, known)
                 touched.add(row["tag"])
                 status = statuses.get(row["finding_id"])
                 if status is not None:
-                    self._after_seen(conn, row, status, start, review_id)
+                    self._after_seen(conn, row, status, judged.get(row["tag"], start),
+                                     review_id)
             seen = set(ids)
             for fid, status in statuses.items():
                 if fid in seen or status.state != "repaired" or status.repaired_at >= end:
                     continue
                 tag = conn.execute("SELECT tag FROM findings WHERE finding_id = ?",
                                    (fid,)).fetchone()["tag"]
+                if tag in unjudged:
+                    continue
                 self._append(conn, "verify", tag, REVIEW_USER, fid, {"review": review_id})
                 touched.add(tag)
             for tag in touched:
@@ -161,11 +174,13 @@ class Ledger:
                                                               row):
             reason = "fitted values changed materially since the dismissal"
         elif status.state == "repaired" and start >= status.repaired_at:
-            reason = "found again in a period that starts after the repair"
+            reason = "the repair did not clear it: found again in the data after the repair"
         if reason:
             values = {k: row[k] for k in FITTED_VALUES}
-            self._append(conn, "reopen", row["tag"], REVIEW_USER, row["finding_id"],
-                         {"review": review_id, "reason": reason, "values": values})
+            payload = {"review": review_id, "reason": reason, "values": values}
+            if status.state == "repaired":
+                payload["repaired_at"] = to_text(status.repaired_at, "repaired_at")
+            self._append(conn, "reopen", row["tag"], REVIEW_USER, row["finding_id"], payload)
 
     # ---- user actions -------------------------------------------------------------------
 
@@ -262,20 +277,27 @@ class Ledger:
             raise ValueError(f"unknown state {state!r}; states are {', '.join(STATES)}")
         sql = "SELECT * FROM findings" + (" WHERE state = ?" if state else "")
         records = []
+        replays: dict[str, dict[str, FindingStatus]] = {}  # per tag: reopen reason, repair time
         for r in self._conn.execute(sql + " ORDER BY finding_id", (state,) if state else ()):
             record = {**_json.loads(r["extra"]), **dict(r)}
             record["finding"] = record.pop("kind")
             record.pop("extra")
             record["onset"] = from_text(record["onset"])
             record["until"] = from_text(record.get("until"))
+            if record["tag"] not in replays:
+                replays[record["tag"]] = replay_tag(self._tag_actions(self._conn,
+                                                                      record["tag"]))[0]
+            status = replays[record["tag"]].get(record["finding_id"])
+            record["reopened"] = status.reopened if status is not None else ""
+            record["repaired_at"] = status.repaired_at if status is not None else None
             records.append(record)
         columns = [*FINDING_COLUMNS, *EXTRA_COLUMNS, "state", "first_seen_review",
-                   "last_seen_review"]
+                   "last_seen_review", "reopened", "repaired_at"]
         frame = pd.DataFrame(records, columns=list(dict.fromkeys(
             columns + [k for r in records for k in r])))
         for name in ("factor", "offset", "drift_per_day", "confidence", "share_supporting"):
             frame[name] = pd.to_numeric(frame[name]).astype(float)
-        for name in ("onset", "until"):
+        for name in ("onset", "until", "repaired_at"):
             frame[name] = pd.to_datetime(frame[name], utc=True)
         return frame.set_index("finding_id")
 

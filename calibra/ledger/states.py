@@ -11,8 +11,10 @@ States::
     any state ─dismiss─▶ dismissed ─confirm─▶ confirmed
 
 ``reopen`` (automatic) brings a dismissed finding whose fitted values changed materially, or a
-repaired finding found again after the repair, back to ``new``. An ``undo`` action takes the
-action it names out of the replay; a note changes no state.
+repaired finding found again in the data after the repair, back to ``new``, flagged with the
+reason (:attr:`FindingStatus.reopened`, e.g. "the repair on … did not clear it") until it is
+repaired again, dismissed or verified. An ``undo`` action takes the action it names out of the
+replay; a note changes no state.
 """
 
 from __future__ import annotations
@@ -37,7 +39,12 @@ ACTION_KINDS = ("confirm", "dismiss", "note", "undo", *TAG_ACTIONS, *AUTOMATIC_A
 #: Actions an undo may not target: the first sighting of a finding, and undos themselves.
 NOT_UNDOABLE = ("found", "undo")
 
-_OPEN = ("new", "confirmed", "corrected")
+#: States that still call for work: found, agreed, or corrected in software only (the field fix
+#: is still due). Repaired findings wait for verification; dismissed and verified are closed.
+OPEN_STATES = ("new", "confirmed", "corrected")
+_OPEN = OPEN_STATES
+#: Actions after which a reopened finding no longer carries the reopen reason.
+_CLEARS_REOPENED = ("mark_repaired", "dismiss", "verify")
 _TRANSITIONS: dict[str, dict[str | None, str]] = {
     "found": {None: "new"},
     "confirm": {"new": "confirmed", "dismissed": "confirmed"},
@@ -81,6 +88,7 @@ class FindingStatus:
     state: str
     repaired_at: pd.Timestamp | None = None
     dismissed_values: dict | None = None
+    reopened: str = ""  #: why the review reopened it ("" when it was not, or no longer is)
 
 
 def replay_tag(actions: Iterable[Action]) -> tuple[dict[str, FindingStatus], list[Correction]]:
@@ -107,6 +115,10 @@ def replay_tag(actions: Iterable[Action]) -> tuple[dict[str, FindingStatus], lis
             if new is None:
                 continue
             status.state = new
+            if a.kind == "reopen":
+                status.reopened = str(a.payload.get("reason", "reopened by a review"))
+            elif a.kind in _CLEARS_REOPENED:
+                status.reopened = ""
             if a.kind == "mark_repaired":
                 status.repaired_at = from_text(a.payload["at"])
             elif a.kind == "dismiss":

@@ -60,8 +60,9 @@ def test_window_faults_found_with_their_onsets(cluster_review):
 def test_command_line_local_cluster_with_ledger(local_review, tmp_path, capsys):
     """``calibra review --cluster local:2`` with a ledger holding a software correction: the
     correction reaches the workers, so the corrected point (NRC.110.T1H.MVAR, wired reversed:
-    truth fault 2) is no longer found and everything else is found as by the local review.
-    (That corrected estimates equal the local ones to the bit: test_cluster_engine.)"""
+    truth fault 2) is no longer found — it stays listed as corrected in software, the field
+    fix still due — and everything else is found as by the local review. (That corrected
+    estimates equal the local ones to the bit: test_cluster_engine.)"""
     tag = "NRC.110.T1H.MVAR"
     ledger_file = tmp_path / "ledger.sqlite"
     with Ledger(ledger_file) as ledger:
@@ -77,8 +78,11 @@ def test_command_line_local_cluster_with_ledger(local_review, tmp_path, capsys):
     assert code == 0, printed
     assert f"software corrections applied: 1 ({tag})" in printed
     found = pd.read_csv(out / FINDINGS_FILE)
-    assert tag not in set(found["tag"])
-    assert set(found["tag"]) == set(local_review.findings["tag"]) - {tag}
+    seen = found[found["in_this_review"]]
+    assert tag not in set(seen["tag"])
+    assert set(seen["tag"]) == set(local_review.findings["tag"]) - {tag}
+    kept = found.set_index("tag").loc[tag]
+    assert kept["state"] == "corrected" and "field fix is still due" in kept["evidence"]
     with Ledger(ledger_file) as ledger:
         assert ledger.findings().at[f"{tag}|reversed", "state"] == "corrected"
 

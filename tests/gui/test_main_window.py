@@ -76,8 +76,14 @@ def test_review_correct_rerun(qtbot, window, site_folder):
     second = window.run
     assert second is not first
     assert {c.tag for c in second.corrections} == {MW, MVAR}
-    assert not ({_fid(MW), _fid(MVAR)} & set(second.findings["finding_id"]))
-    assert _fid(MW) not in window.findings.leaf_ids()
+    # Corrected in software, the review no longer sees the fault, but the finding stays
+    # listed (corrected, field fix due) until the repair is marked.
+    seen = second.findings[second.findings["in_this_review"]]
+    assert not ({_fid(MW), _fid(MVAR)} & set(seen["finding_id"]))
+    kept = second.findings.set_index("finding_id")
+    assert kept.at[_fid(MW), "state"] == "corrected"
+    assert "field fix is still due" in kept.at[_fid(MW), "evidence"]
+    assert _fid(MW) in window.findings.leaf_ids()
     before = first.result.summary["rounds"][0]["chi2_failed"]
     after = second.result.summary["rounds"][0]["chi2_failed"]
     assert after < before

@@ -1,0 +1,223 @@
+"""``calibra ledger SITE [ACTION ITEM …]``: the site's ledger from the command line.
+
+With no action, the open findings are listed. ITEM is a finding id (``TAG|kind``), a tag (its
+open findings) or a device (the open findings of all its points: one CT polarity fix corrects P
+and Q at once). Times typed here are in the site's time zone unless they carry their own.
+"""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+import pandas as pd
+
+from calibra.cli import EXIT_OK, EXIT_UNUSABLE, UsageError
+from calibra.io.problems import ProblemLog
+from calibra.io.site_config import read_site_config
+from calibra.ledger import Ledger, LedgerError
+from calibra.ledger.states import OPEN_STATES
+from calibra.model.times import for_people, read_local
+
+#: Finding kinds a software correction can undo, and the ledger action for each.
+CORRECTABLE = ("reversed", "scale", "offset")
+ACTIONS = ("confirm", "correct", "repaired", "dismiss", "note", "undo", "history")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("site", type=Path, help="the site folder")
+    parser.add_argument("--ledger", type=Path, default=None,
+                        help="ledger file (default: calibra-ledger.sqlite in the site folder)")
+    parser.add_argument("--user", default=None, help="name recorded with the action "
+                                                     "(default: your login name)")
+    sub = parser.add_subparsers(dest="action", metavar="ACTION")
+
+    def action(name: str, help_text: str) -> argparse.ArgumentParser:
+        p = sub.add_parser(name, help=help_text, description=help_text)
+        p.add_argument("--user", default=argparse.SUPPRESS,
+                       help="name recorded with the action (default: your login name)")
+        return p
+
+    p = action("confirm", "agree with the findings of ITEM")
+    p.add_argument("item")
+    p.add_argument("--note", default="")
+    p = action("correct", "correct ITEM in software until the field fix "
+                                       "(reversed, scale or offset findings)")
+    p.add_argument("item")
+    p.add_argument("--factor", type=float, default=None,
+                   help="scale: measured = factor x true (default: the fitted factor)")
+    p.add_argument("--offset", type=float, default=None,
+                   help="offset: measured = true + offset, in the point's unit (default: fitted)")
+    p.add_argument("--from", dest="valid_from", metavar="TIME", default=None,
+                   help="correct from this time on (default: all data)")
+    p.add_argument("--note", default="")
+    p = action("repaired", "record the field repair of ITEM at a time")
+    p.add_argument("item")
+    p.add_argument("--at", required=True, metavar="TIME",
+                   help="when the repair was done (site time zone unless given)")
+    p.add_argument("--note", default="")
+    p = action("dismiss", "dismiss the findings of ITEM, with a reason")
+    p.add_argument("item")
+    p.add_argument("--reason", required=True)
+    p = action("note", "attach a note to ITEM")
+    p.add_argument("item")
+    p.add_argument("text")
+    p = action("undo", "undo the last action on ITEM (default: the last action)")
+    p.add_argument("item", nargs="?", default=None)
+    p = action("history", "the actions on ITEM (default: all), oldest first")
+    p.add_argument("item", nargs="?", default=None)
+
+
+def _timezone(folder: Path) -> str:
+    if not folder.is_dir():
+        raise UsageError(f"no such folder: {folder}")
+    log = ProblemLog()
+    config = read_site_config(folder, log)
+    if config is None:
+        raise UsageError("; ".join(str(p) for p in log.items) or f"{folder}: no site.toml")
+    return config.timezone
+
+
+def resolve(findings: pd.DataFrame, item: str, open_only: bool = True) -> pd.DataFrame:
+    """The findings ITEM names: a finding id, else a tag's, else a device's (open ones unless
+    ``open_only`` is False). Raises UsageError naming what exists when nothing matches."""
+    if item in findings.index:
+        return findings.loc[[item]]
+    pool = findings[findings["state"].isin(OPEN_STATES)] if open_only else findings
+    for column in ("tag", "device"):
+        hit = pool[pool[column].astype(str) == item]
+        if len(hit):
+            return hit
+    if (findings["tag"].astype(str) == item).any() or (findings["device"].astype(str)
+                                                          == item).any():
+        states = sorted(set(findings.loc[(findings["tag"] == item) | (findings["device"] == item),
+                                         "state"]))
+        raise UsageError(f"{item}: no open finding (its findings are {', '.join(states)})")
+    raise UsageError(f"{item}: not a finding id, tag or device of this ledger "
+                     "(list them with 'calibra ledger SITE')")
+
+
+def _list(ledger: Ledger, tz: str) -> None:
+    found = ledger.findings()
+    open_ = found[found["state"].isin(OPEN_STATES)]
+    if open_.empty:
+        print(f"no open findings ({len(found)} in the ledger)")
+        return
+    print(f"open findings: {len(open_)} of {len(found)}")
+    for fid, r in open_.sort_values(["substation", "device", "tag"]).iterrows():
+        flag = f" — {r['reopened']}" if r.get("reopened") else ""
+        print(f"  {fid}  [{r['state']}]  {r['substation']} / {r['device']}{flag}")
+        print(f"      {r['evidence']}")
+
+
+def _correct(ledger: Ledger, rows: pd.DataFrame, args, tz: str) -> list[str]:
+    valid_from = read_local(args.valid_from, tz) if args.valid_from else None
+    done = []
+    for tag, group in rows.groupby("tag", sort=True):
+        kinds = [k for k in group["finding"] if k in CORRECTABLE]
+        if not kinds:
+            raise UsageError(f"{tag}: {', '.join(group['finding'])} cannot be corrected in "
+                             "software (only reversed, scale and offset findings); confirm it "
+                             "for the field work")
+        r = group[group["finding"] == kinds[0]].iloc[0]
+        if kinds[0] == "reversed" and args.factor is None:
+            ledger.mark_reversed(tag, args.user, valid_from, args.note)
+            done.append(f"{tag}: corrected in software (sign reversed)")
+        elif kinds[0] in ("reversed", "scale"):
+            factor = args.factor if args.factor is not None else r["factor"]
+            if pd.isna(factor):
+                raise UsageError(f"{tag}: no fitted factor; give --factor")
+            ledger.apply_scale(tag, float(factor), args.user, valid_from, args.note)
+            done.append(f"{tag}: corrected in software (measured = {float(factor):g} × true)")
+        else:
+            offset = args.offset if args.offset is not None else r["offset"]
+            if pd.isna(offset):
+                raise UsageError(f"{tag}: no fitted offset; give --offset")
+            ledger.apply_offset(tag, float(offset), args.user, valid_from, args.note)
+            done.append(f"{tag}: corrected in software (offset {float(offset):g} removed)")
+    return done
+
+
+def _history(ledger: Ledger, item: str | None, tz: str) -> None:
+    if item is None:
+        table = ledger.history()
+    else:
+        found = ledger.findings()
+        if item in found.index:
+            table = ledger.history(finding_id=item)
+        else:
+            rows = resolve(found, item, open_only=False)
+            parts = [ledger.history(tag=t) for t in sorted(set(rows["tag"]))]
+            table = pd.concat(parts).sort_index() if parts else ledger.history()
+    if table.empty:
+        print("no actions")
+        return
+    for action_id, r in table.iterrows():
+        undone = f" (undone by {int(r['undone_by'])})" if pd.notna(r["undone_by"]) else ""
+        what = r["finding_id"] or f"{r['tag']} (all findings)"
+        detail = {k: v for k, v in (r["payload"] or {}).items() if k not in ("values",)}
+        print(f"{action_id:>5}  {for_people(r['at'], tz, seconds=True)}  {r['user']:<10} "
+              f"{r['action']:<14} {what}{undone}  {detail if detail else ''}".rstrip())
+
+
+def run(args: argparse.Namespace) -> int:
+    tz = _timezone(args.site)
+    path = args.ledger or args.site / "calibra-ledger.sqlite"
+    if not path.exists():
+        raise UsageError(f"no ledger at {path}: run 'calibra review {args.site}' first")
+    try:
+        with Ledger(path) as ledger:
+            return _run(ledger, args, tz)
+    except LedgerError as exc:
+        print(f"calibra ledger: {exc}")
+        return EXIT_UNUSABLE
+    except ValueError as exc:  # a time that is not one, a factor of zero…
+        raise UsageError(str(exc)) from exc
+
+
+def _run(ledger: Ledger, args: argparse.Namespace, tz: str) -> int:
+    action = args.action
+    if action is None:
+        _list(ledger, tz)
+        return EXIT_OK
+    if action == "history":
+        _history(ledger, args.item, tz)
+        return EXIT_OK
+    if action == "undo":
+        if args.item is None:
+            last = ledger.history()
+            mine = last[~last["action"].isin(("found", "verify", "reopen", "undo"))
+                        & last["undone_by"].isna()]
+            if mine.empty:
+                raise UsageError("nothing to undo")
+            item = mine.iloc[-1]["finding_id"] or mine.iloc[-1]["tag"]
+        else:
+            item = args.item
+        ledger.undo(item, args.user)
+        print(f"undone: the last action on {item}")
+        return EXIT_OK
+    rows = resolve(ledger.findings(), args.item, open_only=action not in ("note", "dismiss"))
+    if action == "confirm":
+        for fid in rows.index[rows["state"].isin(("new",))]:
+            ledger.confirm(fid, args.user, args.note)
+            print(f"{fid}: confirmed")
+        if not rows["state"].isin(("new",)).any():
+            states = ", ".join(sorted(set(rows["state"])))
+            print(f"{args.item}: nothing to confirm (already {states})")
+    elif action == "correct":
+        for line in _correct(ledger, rows, args, tz):
+            print(line)
+    elif action == "repaired":
+        at = read_local(args.at, tz)
+        for tag in sorted(set(rows["tag"])):
+            ledger.mark_repaired(tag, at, args.user, args.note)
+            print(f"{tag}: repaired at {for_people(at, tz)}")
+    elif action == "dismiss":
+        for fid in rows.index:
+            ledger.dismiss(fid, args.reason, args.user)
+            print(f"{fid}: dismissed")
+    elif action == "note":
+        for fid in rows.index:
+            ledger.add_note(fid, args.text, args.user)
+            print(f"{fid}: note added")
+    return EXIT_OK
