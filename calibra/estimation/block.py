@@ -15,6 +15,7 @@ from calibra.estimation.block_parts import (
     CHORD_ITERATIONS,
     CLEAR_PIVOT,
     COLUMN_CHUNK_BYTES,
+    CONTRACTION,
     MAX_NEWTON_STEP,
     MAX_WOODBURY,
     MIN_SPLIT,
@@ -23,6 +24,7 @@ from calibra.estimation.block_parts import (
     ORDERINGS_ALONE,
     OUTCOME_COLUMNS,
     REFERENCE_BY_LOADING,
+    REFRESH_ALONE,
     SMALL_MISSING,
     Anderson,
     BlockResult,
@@ -590,7 +592,8 @@ class BlockSolver:
         D = sp.csr_matrix((np.ones(off.size), (off, off)), shape=(nc, nc)) if nc else None
         keep = sp.diags(on.astype(float)) if nc else None
         last = best = step = objective_before = np.inf
-        stuck = 0
+        stuck = uses = 0
+        solver = None
         previous = None
         history: list[float] = []
         steps: list[float] = []
@@ -615,15 +618,12 @@ class BlockSolver:
                                                       phasors)
                 objective = float(np.sum(w * (z - h) ** 2))
                 halvings += 1
-            H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)
-            G = (H.T @ sp.diags(w[:, 0]) @ H + hold).tocsc()
             history.append(objective)
             if feasible and objective_stationary(steps, history):
                 done[i] = True
                 break
             objective_before = objective
             if nc:
-                C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)[cidx]
                 lam_rows = np.zeros((cons.m, 1))
                 lam_rows[cidx] = x_lam * on[:, None]
                 c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, status, layout, lam_rows,
@@ -631,12 +631,23 @@ class BlockSolver:
                 c = -c[cidx]
                 c[off] = 0.0
                 rhs = np.vstack([rhs - c_grad, c])
-            else:
-                C = sp.csr_matrix((0, nx))
+            # The matrix is refactorized while the steps shrink slowly; once they contract
+            # fast it is kept (the right-hand side is exact, so the fixed point is the same).
+            if solver is None or uses >= REFRESH_ALONE or not step < CONTRACTION * last:
+                H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)
+                G = (H.T @ sp.diags(w[:, 0]) @ H + hold).tocsc()
+                C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)[cidx] if nc \
+                    else sp.csr_matrix((0, nx))
+                try:
+                    solver = kkt_solver(G, C, self._stiff, D, ORDERINGS_ALONE, dense=False)
+                except NUMERICAL_ERRORS:
+                    break
+                uses = 0
             try:
-                sol = kkt_solver(G, C, self._stiff, D, ORDERINGS_ALONE, dense=False)(rhs)
+                sol = solver(rhs)
             except NUMERICAL_ERRORS:
                 break
+            uses += 1
             step = float(np.abs(sol[:nx]).max())
             if not np.isfinite(step):
                 break

@@ -135,6 +135,10 @@ REFERENCE_BY_LOADING = True
 ANDERSON_DEPTH = 8
 #: Fixed-matrix iterations before a snapshot is finished on its own matrix.
 CHORD_ITERATIONS = 15
+#: A snapshot's own matrix is kept while each step is below this share of the one before …
+CONTRACTION = 0.3
+#: … for at most this many steps.
+REFRESH_ALONE = 6
 #: Column ordering for a snapshot's own matrix (one factorization, no search).
 ORDERINGS_ALONE = ("MMD_AT_PLUS_A",)
 #: Largest state change (pu, rad) of one Gauss-Newton step on a snapshot's own matrix.

@@ -154,6 +154,9 @@ class Estimator:
         w_used = np.ones(idx.size)
         converged, reason, it = False, "", 0
         H = C = system = None
+        # Large models: the first steps on the (far smaller) constrained normal equations,
+        # the last ones on the augmented matrix, whose accuracy decides the converged state.
+        normal, stiff = model.m >= NORMAL_MIN_MEASUREMENTS, False
         step = last_step = np.inf
         if layout.n_state == 0 or idx.size == 0:
             reason = "no observable part: " + obs.reason
@@ -191,13 +194,19 @@ class Estimator:
                 H = model.functions.jacobian_triplets(vm, va, layout, status)
                 C = _constraint_rows(cons, cidx, vm, va, layout, status)
                 c = cons.evaluate(vm, va, status)[cidx] if cidx.size else np.zeros(0)
-                if system is None:
-                    system = _AugmentedSystem(H, C, model.m, layout.n_state, cidx.size)
-                try:
-                    dx = system.solve(H, C, np.sqrt(weights) * inv_sigma, r, c)
-                except RuntimeError as exc:
-                    reason = f"gain matrix singular at iteration {it}: {exc}"
-                    break
+                dx = None
+                if normal and last_step > NORMAL_UNTIL:
+                    dx, stiff = _normal_step(H, C, weights * inv_sigma ** 2, r, c, layout,
+                                             stiff, net, status)
+                    normal = dx is not None
+                if dx is None:
+                    if system is None:
+                        system = _AugmentedSystem(H, C, model.m, layout.n_state, cidx.size)
+                    try:
+                        dx = system.solve(H, C, np.sqrt(weights) * inv_sigma, r, c)
+                    except RuntimeError as exc:
+                        reason = f"gain matrix singular at iteration {it}: {exc}"
+                        break
                 step = float(np.abs(dx).max())
                 if np.isfinite(step) and step > _MAX_STEP:
                     # Far from the solution (gross errors, a poor start): limit the step.
@@ -296,6 +305,37 @@ def objective_stationary(steps: list[float], objectives: list[float]) -> bool:
         recent = objectives[-6:]
         return max(recent) - min(recent) <= FLAT_CYCLE * max(now, 1.0)
     return False
+
+
+#: Models with at least this many measurements take their first Gauss-Newton steps on the
+#: constrained normal equations [[HᵀWH, Cᵀ], [C, 0]] (PEGASE 2869, 18,586 points: 20 ms a
+#: factorization against 0.5 s for the augmented matrix of every measurement) …
+NORMAL_MIN_MEASUREMENTS = 3000
+#: … until a step is below this (pu, rad); the augmented matrix then finishes the iteration.
+NORMAL_UNTIL = 1e-3
+
+
+def _normal_step(H, C, w: np.ndarray, r: np.ndarray, c: np.ndarray, layout: StateLayout,
+                 stiff, network, status: np.ndarray):
+    """Gauss-Newton step from the constrained normal equations (in the variables of the stiff
+    transform where bus couplers are in the state); (None, …) when it fails numerically.
+    ``stiff``: the transform (False: not built yet), returned for the next step."""
+    from calibra.estimation.covariance import kkt_solver, stiff_transform
+
+    nx = layout.n_state
+    hr, hc, hv = H
+    Hm = sp.csr_matrix((hv, (hr, hc)), shape=(r.size, nx))
+    Cm = sp.csr_matrix((C[2], (C[0], C[1])), shape=(c.size, nx))
+    G = (Hm.T @ sp.diags(w) @ Hm).tocsc()
+    if stiff is False:
+        stiff = stiff_transform(network, layout, status)
+    rhs = np.r_[Hm.T @ (w * r), -c]
+    try:
+        sol = kkt_solver(G, Cm, stiff, orderings=("MMD_AT_PLUS_A",), dense=False)(rhs)
+    except (RuntimeError, ValueError, np.linalg.LinAlgError):
+        return None, stiff
+    dx = np.asarray(sol[:nx], float)
+    return (dx if np.all(np.isfinite(dx)) else None), stiff
 
 
 def _huber_weights(u: np.ndarray, k: float) -> np.ndarray:
