@@ -18,7 +18,7 @@ from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.ledger import Ledger, apply_corrections
 from calibra.model.availability import availability_lines
 from calibra.model.site import Site
-from calibra.model.times import for_machines
+from calibra.model.times import for_machines, for_people
 from calibra.open_work import (
     carried_findings,
     judge_after_repairs,
@@ -133,10 +133,12 @@ def write_outputs(run: ReviewRun, site: Site, out: Path, pdf: bool = True) -> di
     field_work = needing_field_work(run.findings)
     files["work_orders_csv"] = write_work_orders_csv(field_work, site.points,
                                                      out / WORK_ORDERS_CSV, site_name=site.name)
-    period = (run.result.period_start, run.result.period_end)
+    # Times for people on the sheets: the site's zone, as the desktop application prints them.
+    tz = site.timezone
+    period = (run.result.period_start.tz_convert(tz), run.result.period_end.tz_convert(tz))
     if pdf and len(field_work):
-        pages = work_order_pages(site.name, field_work, site.points, pd.Timestamp.now(tz="UTC"),
-                                 period=period)
+        pages = work_order_pages(site.name, field_work, site.points,
+                                 pd.Timestamp.now(tz="UTC").tz_convert(tz), period=period)
         try:
             from calibra.gui.qt_pdf import html_to_pdf
         except ImportError:
@@ -180,8 +182,8 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     s = r.summary
     tz = site.timezone
     lines = [
-        f"site {site.name}: review of {r.period_start.tz_convert(tz):%Y-%m-%d %H:%M} to "
-        f"{r.period_end.tz_convert(tz):%Y-%m-%d %H:%M} ({tz}) in {run.seconds:.1f} s",
+        f"site {site.name}: review of {for_people(r.period_start, tz)} to "
+        f"{for_people(r.period_end, tz)} ({tz}) in {run.seconds:.1f} s",
         f"snapshots: {s['snapshots']:,}, estimated {s['converged']:,}"
         + observability_text(s, site.network.n_bus),
     ]

@@ -10,6 +10,7 @@ from calibra.diagnosis.classify import PointDiagnosis
 from calibra.diagnosis.findings import Finding
 from calibra.model.points import POWER_QUANTITIES
 from calibra.model.site import Site
+from calibra.model.times import for_people
 
 
 def _fmt(x: float, unit: str, signed: bool = True) -> str:
@@ -18,7 +19,7 @@ def _fmt(x: float, unit: str, signed: bool = True) -> str:
 
 
 def _stamp(ts: pd.Timestamp, tz: str) -> str:
-    return ts.tz_convert(tz).strftime("%a %Y-%m-%d %H:%M")
+    return for_people(ts, tz, weekday=True)
 
 
 def _representative_pair(z: np.ndarray, y: np.ndarray) -> tuple[float, float]:

@@ -22,6 +22,7 @@ from calibra.cli import format_summary
 from calibra.gui.qt_style import STATE_COLOURS
 from calibra.gui.run_compare import RunFigures, changed_findings, comparison_rows
 from calibra.model.site import LoadProblem, Site
+from calibra.model.times import for_people
 
 _METADATA = [("quantity", "Quantity"), ("element", "Element"), ("end", "End"),
              ("unit", "Unit"), ("full_scale", "Full scale"), ("accuracy_pct", "Accuracy (%)"),
@@ -63,7 +64,7 @@ def point_html(site: Site, tag: str, finding: pd.Series | None, timezone: str) -
         for key, label in _FINDING:
             value = finding.get(key)
             if key == "onset" and value is not None and not pd.isna(value):
-                value = pd.Timestamp(value).tz_convert(timezone).strftime("%a %Y-%m-%d %H:%M")
+                value = for_people(value, timezone, weekday=True)
             values.append((label, _cell(value)))
         parts.append(f"<table>{_rows(values)}</table>")
     else:
@@ -81,8 +82,7 @@ def _payload_text(payload: dict, timezone: str) -> str:
             bits.append(f"{key} {payload[key]}")
     for key in ("at", "valid_from"):
         if payload.get(key):
-            when = pd.Timestamp(payload[key]).tz_convert(timezone)
-            bits.append(f"{key.replace('_', ' ')} {when:%Y-%m-%d %H:%M}")
+            bits.append(f"{key.replace('_', ' ')} {for_people(payload[key], timezone)}")
     if payload.get("review"):
         bits.append(f"review {payload['review']}")
     return "; ".join(bits)
@@ -158,8 +158,8 @@ class DetailTabs(QTabWidget):
             return
         rows = []
         for _, a in history.iloc[::-1].iterrows():
-            when = pd.Timestamp(a["at"]).tz_convert(timezone)
-            rows.append([f"{when:%Y-%m-%d %H:%M:%S}", str(a["user"]), str(a["action"]),
+            rows.append([for_people(a["at"], timezone, seconds=True), str(a["user"]),
+                         str(a["action"]),
                          a["finding_id"] if isinstance(a["finding_id"], str)
                          else "(whole point)",
                          _payload_text(a["payload"] or {}, timezone),

@@ -14,6 +14,7 @@ import pandas as pd
 from PySide6.QtGui import QAction, QKeySequence
 
 from calibra.ledger import LedgerError
+from calibra.model.times import for_people
 
 if TYPE_CHECKING:
     from calibra.gui.qt_main import MainWindow
@@ -109,8 +110,11 @@ class PointActions:
     def apply_offset(self, offset: float | None = None) -> bool:
         tag = self.w.current_tag
         if offset is None and tag is not None:
+            unit = self._unit(tag)
             offset = self._ask_fitted("offset", 0.0, "Apply offset",
-                                      f"{tag} reads the true value plus; offset:")
+                                      f"{tag} reads the true value plus an offset; offset "
+                                      f"in {unit}:" if unit else
+                                      f"{tag} reads the true value plus an offset; offset:")
             if offset is None:
                 return False
         return self._do(f"offset {offset:+g} applied",
@@ -119,11 +123,25 @@ class PointActions:
     def mark_repaired(self, at: pd.Timestamp | None = None) -> bool:
         tag = self.w.current_tag
         if at is None and tag is not None and self.w.site is not None:
+            # Default: the end of the reviewed data (a repair is usually entered afterwards
+            # for a time the data reach), else the last snapshot, else now.
+            run, site = self.w.run, self.w.site
+            default = (run.result.period_end if run is not None else
+                       site.snapshots.index[-1] if len(site.snapshots) else
+                       pd.Timestamp.now(tz="UTC"))
             at = self.w.prompts.when("Mark repaired", f"When was {tag} repaired?",
-                                     pd.Timestamp.now(tz="UTC"), self.w.site.timezone)
+                                     default, site.timezone)
             if at is None:
                 return False
-        return self._do(f"marked repaired at {at}", lambda: self.w.ledger.mark_repaired(tag, at))
+        zone = self.w.site.timezone if self.w.site is not None else "UTC"
+        return self._do(f"marked repaired at {for_people(at, zone)}",
+                        lambda: self.w.ledger.mark_repaired(tag, at))
+
+    def _unit(self, tag: str | None) -> str:
+        site = self.w.site
+        if site is None or tag is None or tag not in site.points.index:
+            return ""
+        return str(site.points.at[tag, "unit"] or "")
 
     def dismiss(self, reason: str | None = None) -> bool:
         fid = self.w.current_finding
@@ -131,7 +149,10 @@ class PointActions:
             self.w.say("Select a finding to dismiss.")
             return False
         if reason is None:
-            reason = self.w.prompts.text("Dismiss finding", f"Why is {fid} dismissed?")
+            tag, _, kind = str(fid).partition("|")
+            reason = self.w.prompts.text("Dismiss finding",
+                                         f"Why is the {kind or 'finding'} finding on {tag} "
+                                         "dismissed?")
             if reason is None:
                 return False
         return self._do("dismissed", lambda: self.w.ledger.dismiss(fid, reason))

@@ -26,9 +26,11 @@ def _utc(t: TimeLike) -> pd.Timestamp | None:
     return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
 
 
-def for_people(t: TimeLike | None, timezone: str, seconds: bool = False) -> str:
-    """``2027-03-05 12:00 CET`` (the zone's abbreviation at that time; its offset such as
-    ``+01:00`` where the zone has no abbreviation); naive times are taken as UTC; '' for none."""
+def for_people(t: TimeLike | None, timezone: str, seconds: bool = False,
+               weekday: bool = False) -> str:
+    """``2027-03-05 12:00 CET`` (``Fri 2027-03-05 12:00 CET`` with ``weekday``; the zone's
+    abbreviation at that time, or its offset such as ``UTC+05:30`` where the zone has none);
+    naive times are taken as UTC; '' for none."""
     u = _utc(t)
     if u is None:
         return ""
@@ -37,7 +39,8 @@ def for_people(t: TimeLike | None, timezone: str, seconds: bool = False) -> str:
     if not name or name[0] in "+-" or name.isdigit():
         offset = local.strftime("%z")
         name = f"UTC{offset[:3]}:{offset[3:]}" if offset else "UTC"
-    return f"{local:%Y-%m-%d %H:%M{':%S' if seconds else ''}} {name}"
+    day = f"{local:%a} " if weekday else ""
+    return f"{day}{local:%Y-%m-%d %H:%M{':%S' if seconds else ''}} {name}"
 
 
 def for_machines(t: TimeLike | None) -> str:

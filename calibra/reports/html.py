@@ -50,7 +50,8 @@ def work_order_html(site_name: str, substation: str, findings: pd.DataFrame,
         f"<title>{escape(f'{site_name} — {substation}')}</title>",
         f"<style>{_STYLE}</style></head><body>",
         f"<h1>Field checklist: {escape(str(substation))}</h1>",
-        _header(site_name, substation, generated_at, period, len(groups)),
+        _header(site_name, substation, generated_at, period,
+                len({t for g in groups for t in g.tags}), len(groups)),
         _safety(),
     ]
     for (rtu, device), device_groups in groupby(groups, key=lambda g: (g.rtu, g.device)):
@@ -81,14 +82,16 @@ def _when(value: TimeLike | None, with_time: bool = True) -> str:
 
 
 def _header(site_name: str, substation: str, generated_at: TimeLike,
-            period: Sequence[TimeLike] | None, n_groups: int) -> str:
+            period: Sequence[TimeLike] | None, n_points: int, n_groups: int) -> str:
     if period is None:
         span = "not given"
     else:
         start, end = period
         span = f"{_when(start)} to {_when(end)}"
     cells = [("Site", site_name), ("Substation", substation), ("Review period", span),
-             ("Prepared", _when(generated_at)), ("Findings to check", str(n_groups))]
+             ("Prepared", _when(generated_at)),
+             ("Points to check", f"{n_points} ({n_groups} check group"
+                                 f"{'s' if n_groups != 1 else ''})")]
     rows = "".join(f"<tr><td><b>{escape(k)}</b></td><td>{escape(str(v))}</td></tr>"
                    for k, v in cells)
     return f"<table cellpadding=\"1\" cellspacing=\"0\">{rows}</table>"
