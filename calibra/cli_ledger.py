@@ -155,7 +155,9 @@ def _history(ledger: Ledger, item: str | None, tz: str) -> None:
     for action_id, r in table.iterrows():
         undone = f" (undone by {int(r['undone_by'])})" if pd.notna(r["undone_by"]) else ""
         what = r["finding_id"] or f"{r['tag']} (all findings)"
-        detail = {k: v for k, v in (r["payload"] or {}).items() if k not in ("values",)}
+        detail = {k: (for_people(v, tz) if k in ("at", "valid_from", "repaired_at") and v
+                      else v)
+                  for k, v in (r["payload"] or {}).items() if k not in ("values",)}
         print(f"{action_id:>5}  {for_people(r['at'], tz, seconds=True)}  {r['user']:<10} "
               f"{r['action']:<14} {what}{undone}  {detail if detail else ''}".rstrip())
 
