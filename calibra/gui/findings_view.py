@@ -14,7 +14,7 @@ import pandas as pd
 
 #: Columns the list needs (a subset of findings.csv plus ``state`` and ``in_review``).
 LIST_COLUMNS = ["finding_id", "tag", "device", "substation", "finding", "confidence", "state",
-                "factor", "offset", "drift_per_day", "evidence", "in_review"]
+                "factor", "offset", "drift_per_day", "evidence", "in_review", "reopened"]
 #: A point-list note that marks a point as being commissioned (case-insensitive).
 COMMISSIONING_NOTE = re.compile(r"commission", re.IGNORECASE)
 
@@ -136,7 +136,7 @@ class FindingsView:
         out["confidence"] = pd.to_numeric(out["confidence"], errors="coerce").astype(float)
         for name in ("factor", "offset", "drift_per_day"):
             out[name] = pd.to_numeric(out[name], errors="coerce").astype(float)
-        for name in ("tag", "device", "substation", "finding", "state", "evidence"):
+        for name in ("tag", "device", "substation", "finding", "state", "evidence", "reopened"):
             out[name] = out[name].fillna("").astype(str)
         out["in_review"] = out["in_review"].astype(bool)
         return out

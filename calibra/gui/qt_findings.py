@@ -259,7 +259,8 @@ def _finding_items(row: pd.Series) -> list[QStandardItem]:
         (row["tag"], row["tag"]),
         (row["finding"], row["finding"]),
         (confidence_text(conf), -1.0 if np.isnan(conf) else conf),
-        (row["state"] + ("" if row["in_review"] else " (earlier)"),
+        (row["state"] + (" (reopened)" if row.get("reopened") else "")
+         + ("" if row["in_review"] else " (earlier)"),
          STATES.index(row["state"]) if row["state"] in STATES else 99),
         (fitted_text(row), row["finding"]),
     ]
