@@ -8,6 +8,7 @@ import pandas as pd
 from calibra.diagnosis.causes import likely_scale_cause
 from calibra.diagnosis.classify import PointDiagnosis
 from calibra.diagnosis.findings import Finding
+from calibra.diagnosis.mismap import quantity_of_words
 from calibra.model.points import POWER_QUANTITIES
 from calibra.model.site import Site
 from calibra.model.times import for_people
@@ -70,7 +71,7 @@ def _evidence(kind: str, d: PointDiagnosis, z: np.ndarray, y: np.ndarray, unit: 
         if extra.get("reason"):
             return extra["reason"]
         sugg = extra.get("suggestion")
-        more = (f"; a meter on {sugg} would make it checkable" if sugg else
+        more = (f"; metering the {sugg} would make it checkable" if sugg else
                 "; no single nearby meter would make it checkable")
         return "critical measurement: no other meter checks it" + more
     return ""
@@ -168,10 +169,9 @@ def _merge_devices(findings: list[Finding], pts: pd.DataFrame) -> None:
                     f.scope = "device"
                     f.cause = f.cause or "one ratio error on the device's CT or VT"
         elif kinds == {"mismapped"}:
-            crossed = all(f.matched.split(" of ")[0] in ("p_flow", "q_flow", "p_injection",
-                                                         "q_injection")
-                          and f.matched.split(" of ")[0][0] != f.quantity[0]
-                          for f in found.values())
+            read = {t: quantity_of_words(f.matched) for t, f in found.items()}
+            crossed = all(read[t] in ("p_flow", "q_flow", "p_injection", "q_injection")
+                          and read[t][0] != f.quantity[0] for t, f in found.items())
             if crossed:
                 for f in found.values():
                     f.scope = "device"

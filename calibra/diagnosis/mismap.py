@@ -23,15 +23,36 @@ _UNIT_FAMILY = {
 }
 
 
+#: Quantities as an engineer names them (field text, sheets).
+QUANTITY_WORDS = {
+    "p_flow": "active-power flow", "q_flow": "reactive-power flow", "i_magnitude": "current",
+    "p_injection": "active-power injection", "q_injection": "reactive-power injection",
+    "v_magnitude": "voltage",
+}
+
+
+def quantity_of_words(text: str) -> str:
+    """The quantity a :meth:`Quantity.label` text names ('' when none)."""
+    for code, words in QUANTITY_WORDS.items():
+        if str(text).startswith(words + " "):
+            return code
+    return ""
+
+
 @dataclass(frozen=True)
 class Quantity:
     quantity: str
     element: str
     end: str  # "from", "to" or ""
+    at: str = ""  #: the bus at that end of a branch
 
     def label(self) -> str:
-        where = f"{self.element} ({self.end} end)" if self.end else self.element
-        return f"{self.quantity} of {where}"
+        """'active-power flow on branch MRG-NRC at bus NRC_110', 'voltage at bus DRM_33'."""
+        words = QUANTITY_WORDS.get(self.quantity, self.quantity)
+        if self.end:
+            where = f" at bus {self.at}" if self.at else f" at its {self.end} end"
+            return f"{words} on branch {self.element}{where}"
+        return f"{words} at bus {self.element}"
 
 
 def substation_quantities(network: Network, substation: str) -> list[Quantity]:
@@ -44,16 +65,16 @@ def substation_quantities(network: Network, substation: str) -> list[Quantity]:
         br = network.branches
         for bid, f, t in zip(br.index, br["from_bus"], br["to_bus"], strict=True):
             for end, bus in (("from", f), ("to", t)):
-                index.setdefault(sub_of[bus], []).append(("branch", str(bid), end))
+                index.setdefault(sub_of[bus], []).append(("branch", str(bid), end, str(bus)))
         for b, sub in sub_of.items():
-            index.setdefault(sub, []).append(("bus", str(b), ""))
+            index.setdefault(sub, []).append(("bus", str(b), "", ""))
         network._cache["substation_quantities"] = index
     out: list[Quantity] = []
     entries = index.get(str(substation), [])
-    for kind, element, end in sorted(entries, key=lambda e: e[0] == "bus"):
+    for kind, element, end, at in sorted(entries, key=lambda e: e[0] == "bus"):
         names = ("p_flow", "q_flow", "i_magnitude") if kind == "branch" else \
             ("p_injection", "q_injection", "v_magnitude")
-        out += [Quantity(q, element, end) for q in names]
+        out += [Quantity(q, element, end, at) for q in names]
     return out
 
 

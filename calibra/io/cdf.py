@@ -137,6 +137,9 @@ def _parse_title(line: str) -> tuple[float | None, str]:
     return (float(base.group(1)) if base else None), (title.group(1).strip() if title else "")
 
 
+_LINE_END = re.compile(r"\r\n|\r|\n")
+
+
 def parse_cdf(
     text: str, file: str, log: ProblemLog, *, frequency_hz: float = 60.0
 ) -> CdfCase | None:
@@ -144,7 +147,11 @@ def parse_cdf(
 
     Returns None when no network can be built.
     """
-    lines = text.splitlines()
+    # Line ends as text editors count them (\r\n, \n, a lone \r), so rows match what the user
+    # sees; other Unicode separators (\x85, \u2028) are not line ends in a card file.
+    lines = _LINE_END.split(text)
+    if lines and lines[-1] == "":
+        lines.pop()
     first = next((ln for ln in lines if ln.strip()), "")
     base, title = _parse_title(first)
     if base is None or base <= 0:

@@ -8,6 +8,7 @@ lines and put drawn text into its fields.
 
 from __future__ import annotations
 
+import re
 from pathlib import Path
 
 from hypothesis import HealthCheck, given, settings
@@ -63,7 +64,8 @@ def test_a_damaged_cdf_is_read_or_refused_line_by_line(text):
         network = case.network
         assert network.n_bus > 0 and network.reference_bus in network.buses.index
         assert network.branches["from_bus"].isin(network.buses.index).all()
-    lines = text.count("\n") + 1
+    # Lines as editors count them: \r\n, \n or a lone \r (common practice, no source).
+    lines = len(re.split(r"\r\n|\r|\n", text))
     for p in problems:
         assert "\n" not in str(p) and p.file == "<text>"
         assert p.row is None or 1 <= p.row <= lines, str(p)
