@@ -263,6 +263,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except UsageError as exc:
         print(f"calibra {args.command}: {exc}", file=sys.stderr)
         return EXIT_USAGE
+    except BrokenPipeError:  # output piped into a reader that stopped (``| head``)
+        sys.stderr.close()
+        return EXIT_OK
     except OSError as exc:
         print(f"calibra {args.command}: {exc.strerror or exc} ({exc.filename})", file=sys.stderr)
         return EXIT_UNUSABLE
