@@ -15,21 +15,13 @@ from dataclasses import replace
 import pytest
 
 from calibra.cli import main
-from calibra.simulate.faults import FaultSpec
 from calibra.simulate.writer import write_site
-from tests.diagnosis.scenarios import generated_scenario
+from tests.diagnosis.scenarios import reversed_device_scenario
 
 
 @pytest.fixture(scope="module")
 def reversed_device():
-    clean = generated_scenario("case57", 23, periods=576, faults=False)
-    pts = clean.site.points
-    power = pts[pts["quantity"].isin(["p_flow", "q_flow"])]
-    loaded = clean.true_values[power.index].abs().median()
-    device = str(power.loc[loaded.idxmax(), "device"])
-    tags = tuple(power.index[power["device"] == device])
-    sim = generated_scenario("case57", 23, periods=576,
-                             faults=[FaultSpec("reversed", tags, factor=-1.0)])
+    sim, device, tags = reversed_device_scenario("case57", 23)
     return sim.site, device, tags
 
 

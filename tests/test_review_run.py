@@ -7,21 +7,13 @@ import pytest
 
 from calibra.ledger import Ledger
 from calibra.review_run import FINDINGS_FILE, run_review, write_outputs
-from calibra.simulate.faults import FaultSpec
-from tests.diagnosis.scenarios import generated_scenario
+from tests.diagnosis.scenarios import reversed_device_scenario
 
 
 @pytest.fixture(scope="module")
 def reversed_site():
     """Two days of five-minute IEEE 57 data (pypower case57) with one reversed device."""
-    clean = generated_scenario("case57", 21, periods=576, faults=False)
-    pts = clean.site.points
-    power = pts[pts["quantity"].isin(["p_flow", "q_flow"])]
-    loaded = clean.true_values[power.index].abs().median()
-    device = power.loc[loaded.idxmax(), "device"]
-    tags = tuple(power.index[power["device"] == device])
-    sim = generated_scenario("case57", 21, periods=576,
-                             faults=[FaultSpec("reversed", tags, factor=-1.0)])
+    sim, _, tags = reversed_device_scenario("case57", 21)
     return sim.site, tags
 
 

@@ -6,38 +6,34 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-import scipy.linalg as la
 import scipy.sparse as sp
 
 from calibra.estimation.block_parts import (
     ANDERSON_DEPTH,
     BLOCK_TOLERANCE,
     CHORD_ITERATIONS,
-    CLEAR_PIVOT,
     COLUMN_CHUNK_BYTES,
-    CONTRACTION,
-    MAX_NEWTON_STEP,
     MAX_WOODBURY,
     MIN_SPLIT,
-    NEWTON_PATIENCE,
     NUMERICAL_ERRORS,
-    ORDERINGS_ALONE,
     OUTCOME_COLUMNS,
     REFERENCE_BY_LOADING,
-    REFRESH_ALONE,
-    SMALL_MISSING,
     Anderson,
     BlockResult,
     ColumnCache,
     MissingGroup,
-    SmallWoodbury,
     converged_reason,
     describe_error,
-    downdated,
     nearest_in_time,
     outcome_of,
     stack_blocks,
-    woodbury_rank,
+)
+from calibra.estimation.block_updates import (
+    factorize,
+    factorize_reduced,
+    newton_alone,
+    pad_small_groups,
+    woodbury,
 )
 from calibra.estimation.covariance import (
     DENSE_COVARIANCE_MAX,
@@ -48,8 +44,8 @@ from calibra.estimation.covariance import (
     stiff_transform,
 )
 from calibra.estimation.measurements import StateLayout, unit_phasors
-from calibra.estimation.residuals import CRITICAL_S, analyse_residuals
-from calibra.estimation.wls import FEASIBLE, OVERSHOOT, Estimator, objective_stationary
+from calibra.estimation.residuals import analyse_residuals
+from calibra.estimation.wls import Estimator
 
 
 class BlockSolver:
@@ -306,10 +302,10 @@ class BlockSolver:
             batch = max(1, 4_000_000 // (size * max(idx.size, 1)))
             for start in range(0, len(members), batch):
                 chunk = members[start:start + batch]
-                self._factorize(np.stack([sets[g] for g in chunk]), [groups[g] for g in chunk])
+                factorize(self, np.stack([sets[g] for g in chunk]), [groups[g] for g in chunk])
         for g in groups:
             if g.factor is None and 0 < g.missing.size <= MAX_WOODBURY:
-                self._factorize_reduced(g)
+                factorize_reduced(self, g)
         return groups
 
     def _keeps_islands(self, missing: np.ndarray) -> bool:
@@ -319,133 +315,6 @@ class BlockSolver:
         avail[self._idx] = True
         avail[self._idx[missing]] = False
         return self.estimator.observability(avail, self.status).covers(self._ref.observability)
-
-    def _factorize_reduced(self, g: MissingGroup) -> None:
-        """A missing set that leaves part of the block's islands unobservable (a meter that
-        alone ties a bus or an island): the snapshots keep what their own pattern observes.
-
-        K₀ becomes K_s by a low-rank update U C Uᵀ: rows removed (M and the rows the lost part
-        makes unusable: [Hᵢᵀ; 0], C = −1/σᵢ²), constraints removed (λⱼ decoupled: columns
-        [Cⱼᵀ; 0] and eⱼ, C = [[0, −1], [−1, 1]]), and every state the pattern leaves free held
-        (lost buses, the angle reference of each new island: eₛ, C = G₀ₛₛ). The free states
-        then appear in no row left, so the held values change nothing else: the iteration
-        converges to the exact estimate of the observable part, and Woodbury gives K_s⁻¹
-        from K₀⁻¹ with the capacitance −(C⁻¹ + UᵀK₀⁻¹U)."""
-        model, idx, ref = self.model, self._idx, self._ref
-        layout, nx, nc = self._layout, self._nx, self._cidx.size
-        avail = np.zeros(model.m, bool)
-        avail[idx] = True
-        avail[idx[g.missing]] = False
-        obs = self.estimator.observability(avail, self.status)
-        if obs.n_islands == 0:
-            return
-        unusable = np.flatnonzero(~obs.usable[idx] & avail[idx])
-        removed = np.union1d(g.missing, unusable)
-        if removed.size > MAX_WOODBURY:
-            return
-        off = ~obs.constraints_usable[self._cidx]
-        lost = ref.observability.estimated_buses & ~obs.estimated_buses
-        pins = [layout.magnitude_column[lost], layout.angle_column[lost]]
-        block_refs = set(ref.observability.references.tolist())
-        for r in obs.references:
-            members = np.flatnonzero(obs.island == obs.island[r])
-            if not block_refs.intersection(members.tolist()):
-                pins.append(layout.angle_column[[r]])
-        pins = np.unique(np.concatenate(pins))
-        pins = pins[pins >= 0]
-        dim = nx + nc
-        h_rows = self._H0_rows(removed)
-        cons_rows = np.flatnonzero(off)
-        C0 = self._C0
-        blocks = [np.hstack([h_rows, np.zeros((removed.size, nc))])]
-        cinv = [np.diag(-self._var[removed])]
-        for j in cons_rows:
-            pair = np.zeros((2, dim))
-            pair[0, :nx] = C0[j].toarray().ravel()
-            pair[1, nx + j] = 1.0
-            blocks.append(pair)
-            cinv.append(np.array([[-1.0, -1.0], [-1.0, 0.0]]))
-        if pins.size:
-            e = np.zeros((pins.size, dim))
-            e[np.arange(pins.size), pins] = 1.0
-            blocks.append(e)
-            cinv.append(np.diag(1.0 / np.maximum(self._g0_diag[pins], 1e-12)))
-        Ut = np.vstack(blocks)  # r × dim
-        Q = np.empty((dim, Ut.shape[0]))  # K₀⁻¹U
-        Q[:, :removed.size] = self._columns.get(removed)
-        if Ut.shape[0] > removed.size:
-            Q[:, removed.size:] = self._solve_k0(np.ascontiguousarray(Ut[removed.size:].T))
-        cap = -(la.block_diag(*cinv) + Ut @ Q)
-        d = 1.0 / np.sqrt(np.maximum(np.abs(np.diag(cap)), 1e-300))
-        scaled = cap * d[:, None] * d[None, :]
-        try:
-            inv = np.linalg.inv(scaled)
-        except np.linalg.LinAlgError:
-            return
-        # A capacitance that is singular after all (the pattern loses more than the test
-        # said) shows in its inverse: refuse it rather than iterate with it.
-        if not np.isfinite(inv).all() or np.abs(inv).max() > 1e10:
-            return
-        factor = inv * d[:, None] * d[None, :]
-        g.factor, g.h_missing, g.q_missing = factor, Ut, Q
-        g.observability, g.unusable, g.constraints_off, g.lost = obs, unusable, off, lost
-        g.pins = pins
-        if self.statistics:
-            g.omega_diag = downdated(self._omega_diag, -np.asarray(self._H0 @ Q[:nx]).T,
-                                      factor)
-
-    def _factorize(self, M: np.ndarray, groups: list[MissingGroup]) -> None:
-        """Ωₘₘ⁻¹ and the updated Ωᵢᵢ for groups with equally many missing measurements
-        (M: one row of base positions per group); a group whose Ωₘₘ is singular (removing M
-        leaves the snapshot unobservable) keeps ``factor`` None."""
-        G, size = M.shape
-        union, pos = np.unique(M, return_inverse=True)
-        pos = pos.reshape(M.shape)
-        # K₀⁻¹[Hᵤᵀ; 0] by solves with the missing rows U (a few sparse solves cost far less
-        # than products with the dense covariance on a large network).
-        h_union = self._H0_rows(union)
-        q_union = self._columns.get(union)
-        om_uu = np.diag(self._var[union]) - h_union @ q_union[:self._nx]
-        om_mm = om_uu[pos[:, :, None], pos[:, None, :]]
-        om_ma = None
-        if self.statistics:  # rows of Ω over the base list: Rδ − H₀ K₀⁻¹[Hᵤᵀ; 0]
-            rows_u = -np.asarray(self._H0 @ q_union[:self._nx]).T
-            rows_u[np.arange(union.size), union] += self._var[union]
-            om_ma = rows_u[pos]  # (G, size, base)
-        scale = np.sqrt(self._var[M])
-        S = om_mm / scale[:, :, None] / scale[:, None, :]
-        try:
-            L = np.linalg.cholesky(S)
-            ok = np.ones(G, bool)
-        except np.linalg.LinAlgError:
-            L = np.zeros_like(S)
-            ok = np.zeros(G, bool)
-            for g in range(G):
-                try:
-                    L[g] = np.linalg.cholesky(S[g])
-                    ok[g] = True
-                except np.linalg.LinAlgError:
-                    pass
-        diag_l = np.diagonal(L, axis1=1, axis2=2)
-        ok &= diag_l.min(axis=1) ** 2 >= CRITICAL_S
-        # A small pivot may be a meter that alone ties part of the block's islands: decided
-        # by the observability test, not by the size of a rounding error.
-        for g in np.flatnonzero(ok & (diag_l.min(axis=1) ** 2 < CLEAR_PIVOT)):
-            ok[g] = self._keeps_islands(M[g])
-        sel = np.flatnonzero(ok)
-        if sel.size == 0:
-            return
-        Linv = np.linalg.inv(L[sel])
-        inv = np.einsum("gqp,gqr->gpr", Linv, Linv)  # (LLᵀ)⁻¹ = L⁻ᵀL⁻¹
-        inv = inv / scale[sel][:, :, None] / scale[sel][:, None, :]
-        for j, g in enumerate(sel):
-            mset = M[g]
-            grp = groups[g]
-            grp.factor = inv[j]
-            grp.h_missing = np.hstack([h_union[pos[g]], np.zeros((mset.size, self._cidx.size))])
-            grp.q_missing = q_union[:, pos[g]]
-            if om_ma is not None:
-                grp.omega_diag = downdated(self._omega_diag, om_ma[g], inv[j])
 
     def _k0_columns(self, rows: np.ndarray) -> np.ndarray:
         """K₀⁻¹[H₀ᵣᵀ; 0] ((nx + nc) × |rows|): from the sparse rows and K₀⁻¹'s state columns
@@ -490,7 +359,7 @@ class BlockSolver:
             if g.constraints_off is not None:
                 self._cons_on[np.ix_(g.constraints_off, g.members)] = False
 
-        self._pad_small_groups(k, groups)
+        pad_small_groups(self, k, groups)
         members = np.flatnonzero(group_of >= 0)
         self._diverged = np.zeros(k, bool)
         self._newton_last: dict[int, float] = {}
@@ -503,7 +372,7 @@ class BlockSolver:
         # the reference's, stiff couplers whose Jacobian turns with it) is finished by
         # Gauss-Newton on the snapshot's own matrix.
         for i in members[~done[members]]:
-            self._newton_alone(int(i), groups[group_of[i]], Zt, W, vm, va, lam, done, iters)
+            newton_alone(self, int(i), groups[group_of[i]], Zt, W, vm, va, lam, done, iters)
         vm[lost], va[lost] = np.nan, np.nan
         for g in groups:
             if g.lost is not None:
@@ -543,7 +412,7 @@ class BlockSolver:
                     c[~on] = 0.0
                 rhs = np.vstack([rhs - c_grad, c])
             sol = self._solve_k0(rhs)
-            self._woodbury(sol, live, group_of, groups)
+            woodbury(self, sol, live, group_of, groups)
             step = np.abs(sol[:nx]).max(axis=0)
             sol = accel.step(sol, nx)
             if nc:
@@ -567,158 +436,6 @@ class BlockSolver:
                 accel.keep(stay)
         vm[:, live], va[:, live], lam[:, live] = x_vm, x_va, x_lam
 
-    def _newton_alone(self, i: int, g: MissingGroup, Zt, W, vm, va, lam, done, iters) -> None:
-        """Gauss-Newton for snapshot i on its own matrix (its weights, the constraints it keeps,
-        the states its pattern leaves free held), from its last iterate or, when the block
-        iteration ran away, from the reference state."""
-        model, status, layout = self.model, self.status, self._layout
-        funcs, cons = model.functions, model.constraints
-        nx, cidx = self._nx, self._cidx
-        nc = cidx.size
-        ref = self._ref
-        z, w = Zt[:, i:i + 1], W[:, i:i + 1]
-        if self._diverged[i]:
-            x_vm, x_va, x_lam = ref.vm[:, None].copy(), ref.va[:, None].copy(), \
-                np.zeros((nc, 1))
-            x_vm[~ref.observability.estimated_buses] = 1.0
-            x_va[~ref.observability.estimated_buses] = 0.0
-        else:
-            x_vm, x_va, x_lam = vm[:, [i]].copy(), va[:, [i]].copy(), lam[:, [i]].copy()
-        on = self._cons_on[:, i]
-        off = np.flatnonzero(~on)
-        pins = g.pins if g.pins is not None else np.zeros(0, np.int64)
-        hold = sp.csr_matrix((self._g0_diag[pins] if pins.size else np.zeros(0),
-                              (pins, pins)), shape=(nx, nx))
-        D = sp.csr_matrix((np.ones(off.size), (off, off)), shape=(nc, nc)) if nc else None
-        keep = sp.diags(on.astype(float)) if nc else None
-        last = best = step = objective_before = np.inf
-        stuck = uses = 0
-        solver = None
-        previous = None
-        history: list[float] = []
-        steps: list[float] = []
-        for it in range(1, self.max_iterations + 1):
-            phasors = unit_phasors(x_va)
-            h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w), phasors)
-            objective = float(np.sum(w * (z - h) ** 2))
-            # Damped: a step that raised J is halved (up to four times), as the single
-            # estimator does.
-            halvings = 0
-            feasible = not nc or float(np.abs(cons.evaluate(x_vm, x_va, status)[cidx][on]).max(
-                initial=0.0)) < FEASIBLE
-            while previous is not None and halvings < 4 and feasible and \
-                    objective > objective_before * (1 + OVERSHOOT):
-                p_vm, p_va, p_lam, p_sol = previous
-                p_sol = p_sol * 0.5
-                previous = (p_vm, p_va, p_lam, p_sol)
-                x_vm, x_va = layout.apply_step(p_vm, p_va, p_sol[:nx])
-                x_lam = (p_lam + p_sol[nx:]) * on[:, None] if nc else p_lam
-                phasors = unit_phasors(x_va)
-                h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w),
-                                                      phasors)
-                objective = float(np.sum(w * (z - h) ** 2))
-                halvings += 1
-            history.append(objective)
-            if feasible and objective_stationary(steps, history):
-                done[i] = True
-                break
-            objective_before = objective
-            if nc:
-                lam_rows = np.zeros((cons.m, 1))
-                lam_rows[cidx] = x_lam * on[:, None]
-                c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, status, layout, lam_rows,
-                                                        phasors)
-                c = -c[cidx]
-                c[off] = 0.0
-                rhs = np.vstack([rhs - c_grad, c])
-            # The matrix is refactorized while the steps shrink slowly; once they contract
-            # fast it is kept (the right-hand side is exact, so the fixed point is the same).
-            if solver is None or uses >= REFRESH_ALONE or not step < CONTRACTION * last:
-                H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)
-                G = (H.T @ sp.diags(w[:, 0]) @ H + hold).tocsc()
-                C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)[cidx] if nc \
-                    else sp.csr_matrix((0, nx))
-                try:
-                    solver = kkt_solver(G, C, self._stiff, D, ORDERINGS_ALONE, dense=False)
-                except NUMERICAL_ERRORS:
-                    break
-                uses = 0
-            try:
-                sol = solver(rhs)
-            except NUMERICAL_ERRORS:
-                break
-            uses += 1
-            step = float(np.abs(sol[:nx]).max())
-            if not np.isfinite(step):
-                break
-            if step > MAX_NEWTON_STEP:
-                sol = sol * (MAX_NEWTON_STEP / step)
-            previous = (x_vm, x_va, x_lam, sol)
-            steps.append(step)
-            if nc:
-                x_lam = (x_lam + sol[nx:]) * on[:, None]
-            x_vm, x_va = layout.apply_step(x_vm, x_va, sol[:nx])
-            iters[i] += 1
-            # Converged, or stalled at round-off level (as the single estimator accepts).
-            if step < self.tolerance or (it >= 10 and step < 100 * self.tolerance
-                                         and step >= 0.5 * last):
-                done[i] = True
-                break
-            # No progress for many steps (a gross error the iteration cycles around).
-            stuck = 0 if step < 0.5 * best else stuck + 1
-            best = min(best, step)
-            if stuck >= NEWTON_PATIENCE:
-                break
-            last = step
-        if not done[i]:
-            self._newton_last[i] = step
-        vm[:, [i]], va[:, [i]], lam[:, [i]] = x_vm, x_va, x_lam
-
-    def _woodbury(self, sol: np.ndarray, active: np.ndarray, group_of: np.ndarray,
-                  groups: list[MissingGroup]) -> None:
-        """Turn K₀⁻¹b into K_s⁻¹b for snapshots missing measurements M (in place).
-
-        K_s = K₀ − Uₘ Wₘ Uₘᵀ; the Woodbury capacitance Rₘ − Hₘ P Hₘᵀ is Ωₘₘ. Snapshots that
-        miss only a few measurements (the usual case: a dropped sample) are updated together
-        from padded per-snapshot arrays; larger sets group by group.
-        """
-        small = self._small_woodbury
-        if small is not None:
-            pos = small.position[active]
-            cols = np.flatnonzero(pos >= 0)
-            if cols.size:
-                p = pos[cols]
-                t = np.einsum("kpn,nk->kp", small.h[p], sol[:, cols])
-                t = np.einsum("kpq,kq->kp", small.f[p], t)
-                sol[:, cols] += np.einsum("dkp,kp->dk", small.q[:, p], t)
-        gids = group_of[active]
-        for gi in np.unique(gids):
-            g = groups[gi]
-            if g.factor is None or woodbury_rank(g) <= SMALL_MISSING:
-                continue
-            cols = np.flatnonzero(gids == gi)
-            sol[:, cols] += g.q_missing @ (g.factor @ (g.h_missing @ sol[:, cols]))
-
-    def _pad_small_groups(self, k: int, groups: list[MissingGroup]) -> None:
-        """Per-snapshot padded Hₘ, Ωₘₘ⁻¹ and K₀⁻¹Uₘ for the groups with few missing
-        measurements (zero padding leaves the update unchanged)."""
-        small = [g for g in groups if g.factor is not None and woodbury_rank(g) <= SMALL_MISSING]
-        if not small:
-            self._small_woodbury = None
-            return
-        width = max(woodbury_rank(g) for g in small)
-        dim = self._nx + self._cidx.size
-        h = np.zeros((len(small), width, dim))
-        f = np.zeros((len(small), width, width))
-        q = np.zeros((dim, len(small), width))
-        position = np.full(k, -1, np.int64)
-        for j, g in enumerate(small):
-            w = woodbury_rank(g)
-            h[j, :w], f[j, :w, :w], q[:, j, :w] = g.h_missing, g.factor, g.q_missing
-            position[g.members] = j
-        self._small_woodbury = SmallWoodbury(position, h, f, q)
-
-    # ------------------------------------------------------------------ residual statistics
     def _residuals(self, Z, avail, groups, single, out: BlockResult) -> None:
         model = self.model
         idx = self._idx

@@ -32,6 +32,22 @@ def generated_scenario(case_name: str, seed: int, periods: int = 2016, freq: str
                          freq=freq, seed=seed, faults=faults, timezone="UTC", options=telemetry)
 
 
+def reversed_device_scenario(case_name: str, seed: int, periods: int = 576):
+    """A scenario whose only fault is the most loaded power device wired reversed (P and Q);
+    returns (simulation, device, its power tags)."""
+    from calibra.simulate.faults import FaultSpec
+
+    clean = generated_scenario(case_name, seed, periods=periods, faults=False)
+    pts = clean.site.points
+    power = pts[pts["quantity"].isin(["p_flow", "q_flow"])]
+    loaded = clean.true_values[power.index].abs().median()
+    device = str(power.loc[loaded.idxmax(), "device"])
+    tags = tuple(power.index[power["device"] == device])
+    sim = generated_scenario(case_name, seed, periods=periods,
+                             faults=[FaultSpec("reversed", tags, factor=-1.0)])
+    return sim, device, tags
+
+
 def detectable_faults(sim: SimulationResult) -> set[str]:
     """Fault points whose error exceeds the point's accuracy-class limit for a good part of the
     period (what a review can be asked to find; common practice, no source)."""
