@@ -334,15 +334,8 @@ def _null_space_groups(A: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """For the columns of a small dense matrix: a group label (columns whose null-space rows
     agree: their differences are determined) and whether each column is determined absolutely
     (its null-space row is zero)."""
-    # Scale rows to unit length: the test is on the pattern of dependence, not the sizes.
-    A = A / np.maximum(np.linalg.norm(A, axis=1), 1e-300)[:, None]
-    r, c = A.shape
-    if r > c:  # only the c × c triangle of a QR carries the row space
-        A = la.qr(A, mode="r", check_finite=False)[0][:c]
-    _, s, vt = la.svd(A, full_matrices=True, check_finite=False, lapack_driver="gesvd")
-    tol = _RANK_TOL * max(r, c) * (s[0] if s.size else 1.0)
-    rank = int((s > tol).sum())
-    null = vt[rank:].T  # c × (c − rank)
+    null = _null_space(A)
+    c = A.shape[1]
     if null.shape[1] == 0:
         return np.zeros(c, np.int64), np.ones(c, bool)
     known = np.abs(null).max(axis=1) < _SAME_ROW
@@ -358,6 +351,29 @@ def _null_space_groups(A: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         label = label * (c + 1) + part
     _, label = np.unique(label, return_inverse=True)
     return label.ravel(), known
+
+
+def _null_space(A: np.ndarray) -> np.ndarray:
+    """An orthonormal basis of the null space of A (c × (c − rank)) by QR with column
+    pivoting: rank-revealing on these matrices (rows of structural weights between 1 and 2,
+    scaled to unit length, so the nonzero pivots stay far above the tolerance) and several
+    times cheaper than an SVD. Which columns agree, or vanish, in the null space does not
+    depend on the basis chosen, so this gives the SVD's groups."""
+    A = A / np.maximum(np.linalg.norm(A, axis=1), 1e-300)[:, None]
+    r, c = A.shape
+    R, piv = la.qr(A, mode="r", pivoting=True, check_finite=False)
+    d = np.abs(np.diag(R))
+    tol = _RANK_TOL * max(r, c) * (d[0] if d.size else 1.0)
+    rank = int((d > tol).sum())
+    if rank == c:
+        return np.zeros((c, 0))
+    # A P = Q [R11 R12; 0 0]: the null space is P [−R11⁻¹R12; I].
+    basis = np.zeros((c, c - rank))
+    basis[:rank] = -la.solve_triangular(R[:rank, :rank], R[:rank, rank:c], check_finite=False)
+    basis[rank:] = np.eye(c - rank)
+    null = np.empty_like(basis)
+    null[piv] = basis
+    return la.qr(null, mode="economic", check_finite=False)[0]
 
 
 def structure_for(funcs: MeasurementFunctions, constraints: MeasurementFunctions | None,
