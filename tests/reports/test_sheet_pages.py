@@ -75,6 +75,14 @@ def _long_substation(n_devices: int) -> tuple[pd.DataFrame, pd.DataFrame]:
                                  f"in {9000 + k} of 10,080 snapshots", quantity=q, unit=unit,
                                  factor=-1.0 if kind == "reversed" else 1.5,
                                  scope="device" if kind == "reversed" else "point"))
+    for k in range(14):  # one device with many findings: its table runs over a page
+        tag = f"GW-B{k:02d}-P"
+        rows.append((tag, "p_injection", f"GW{k:02d}", "", "MW", "Greywater", "GW-IED-BUS",
+                     "RTU-GW", str(100 + k), "600:5", "33000:110"))
+        found.append(Finding(tag=tag, device="GW-IED-BUS", substation="Greywater",
+                             finding="offset", confidence=0.98, evidence=f"{tag} reads "
+                             f"+{k + 2}.0 MW off the implied value", quantity="p_injection",
+                             unit="MW", offset=k + 2.0))
     cols = ["tag", "quantity", "element", "end", "unit", "substation", "device", "rtu",
             "channel", "ct_ratio", "vt_ratio"]
     points = pd.DataFrame(rows, columns=cols).set_index("tag")
@@ -90,6 +98,8 @@ def test_long_substation_runs_over_several_pages_unsplit(tmp_path):
     assert len(pages) >= 4
     check_pages(pages, *_expected(findings, points))
     assert all(p.substation == "Greywater" for p in pages)
+    continued = [p.number for p in pages if any(d.endswith("(continued)") for d in p.devices)]
+    assert continued, "the long device table is marked continued on its next page"
 
 
 def _sheet(units_per_device: list[int], rows_per_unit: int = 3) -> Sheet:
