@@ -87,6 +87,18 @@ def _review(args: argparse.Namespace, site, settings, start, end, ledger):
                                  args.worker_site)
 
 
+def _pdf_writer(review):
+    """The desktop layer's PDF printer, or None (with a note) when Qt is not installed."""
+    import importlib.util
+
+    if importlib.util.find_spec("PySide6") is None:
+        review.notes.append("PySide6 is not installed: work orders written as CSV only")
+        return None
+    from calibra.gui.qt_pdf import sheets_to_pdf
+
+    return sheets_to_pdf
+
+
 def run(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _check_cluster_options(args)
@@ -111,7 +123,8 @@ def run(args: argparse.Namespace) -> int:
         except ClusterError as exc:  # no workers, a worker that reads other data, ...
             print(f"cluster: {exc}")
             return EXIT_UNUSABLE
-        files = write_outputs(review, site, out, pdf=not args.no_pdf)
+        files = write_outputs(review, site, out, pdf_writer=None if args.no_pdf else
+                              _pdf_writer(review))
     finally:
         if ledger is not None:
             ledger.close()

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import time
+from collections.abc import Callable, Iterable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
@@ -27,8 +28,9 @@ from calibra.open_work import (
 )
 from calibra.progress import Progress
 from calibra.reports import (
+    Sheet,
     needing_field_work,
-    work_order_pages,
+    work_order_sheets,
     write_safe_csv,
     write_work_orders_csv,
 )
@@ -38,6 +40,10 @@ WORK_ORDERS_CSV = "work_orders.csv"
 WORK_ORDERS_PDF = "work_orders.pdf"
 SUMMARY_FILE = "summary.txt"
 SUMMARY_JSON = "summary.json"
+
+#: Prints sheets to a PDF: ``writer(sheets, path, title=…, footer=…) -> path`` (the desktop
+#: layer's :func:`calibra.gui.qt_pdf.sheets_to_pdf`, handed in by the caller).
+PdfWriter = Callable[..., Path]
 
 
 @dataclass
@@ -118,8 +124,9 @@ def _with_ledger(table: pd.DataFrame, ledger: Ledger, corrections: list,
     return table
 
 
-def write_outputs(run: ReviewRun, site: Site, out: Path, pdf: bool = True) -> dict[str, Path]:
-    """findings.csv, the work orders (CSV and, when Qt is available, PDF) and a summary."""
+def write_outputs(run: ReviewRun, site: Site, out: Path,
+                  pdf_writer: PdfWriter | None = None) -> dict[str, Path]:
+    """findings.csv, the work orders (CSV and, given ``pdf_writer``, PDF) and a summary."""
     out.mkdir(parents=True, exist_ok=True)
     files: dict[str, Path] = {}
     table = run.findings.copy()
@@ -136,17 +143,13 @@ def write_outputs(run: ReviewRun, site: Site, out: Path, pdf: bool = True) -> di
     # Times for people on the sheets: the site's zone, as the desktop application prints them.
     tz = site.timezone
     period = (run.result.period_start.tz_convert(tz), run.result.period_end.tz_convert(tz))
-    if pdf and len(field_work):
-        pages = work_order_pages(site.name, field_work, site.points,
-                                 pd.Timestamp.now(tz="UTC").tz_convert(tz), period=period)
-        try:
-            from calibra.gui.qt_pdf import html_to_pdf
-        except ImportError:
-            run.notes.append("PySide6 is not installed: work orders written as CSV only")
-        else:
-            files["work_orders_pdf"] = html_to_pdf(list(pages.values()), out / WORK_ORDERS_PDF,
-                                                   title=f"{site.name}: field checks",
-                                                   footer=site.name)
+    if pdf_writer is not None and len(field_work):
+        sheets = work_order_sheets(site.name, field_work, site.points,
+                                   pd.Timestamp.now(tz="UTC").tz_convert(tz), period=period)
+        files["work_orders_pdf"] = pdf_writer(list(sheets.values()), out / WORK_ORDERS_PDF,
+                                              title=f"{site.name}: field checks",
+                                              footer=site.name)
+        run.notes += work_order_lines(sheets.values())
     (out / SUMMARY_FILE).write_text("\n".join(summary_lines(run, site)) + "\n", encoding="utf-8")
     files["summary"] = out / SUMMARY_FILE
     (out / SUMMARY_JSON).write_text(json.dumps(_json_summary(run), indent=2, default=str),
@@ -154,6 +157,15 @@ def write_outputs(run: ReviewRun, site: Site, out: Path, pdf: bool = True) -> di
     files["summary_json"] = out / SUMMARY_JSON
     run.files = files
     return files
+
+
+def work_order_lines(sheets: Iterable[Sheet]) -> list[str]:
+    """What the work orders ask the crews to check, counted in points."""
+    sheets = list(sheets)
+    per = ", ".join(f"{s.substation} {len(s.tags)}" for s in sheets)
+    total = sum(len(s.tags) for s in sheets)
+    return [f"work orders: {total} point{'s' if total != 1 else ''} to check at "
+            f"{len(sheets)} substation{'s' if len(sheets) != 1 else ''} ({per})"]
 
 
 def _json_summary(run: ReviewRun) -> dict:
@@ -199,10 +211,13 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     if run.corrections:
         lines.append(f"software corrections applied: {len(run.corrections)} "
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")
-    lines.append(f"findings: {len(run.findings)}")
-    counts = run.findings["finding"].value_counts()
+    n_points = run.findings["tag"].nunique() if len(run.findings) else 0
+    lines.append(f"findings: {len(run.findings)} on {n_points} point"
+                 f"{'s' if n_points != 1 else ''}")
+    counts = run.findings.groupby("finding")["tag"].nunique().sort_values(ascending=False,
+                                                                          kind="stable")
     for kind, n in counts.items():
-        lines.append(f"  {kind}: {n}")
+        lines.append(f"  {kind}: {n} point{'s' if n != 1 else ''}")
     for row in run.findings.sort_values(["substation", "device", "tag"]).itertuples():
         lines.append(f"  [{row.state}] {row.tag} ({row.substation}) {row.finding}: "
                      f"{row.evidence}")

@@ -40,3 +40,19 @@ def test_core_imports_without_qt():
                           timeout=120)
     assert done.returncode == 0, done.stderr
     assert done.stdout.strip() == "ok"
+
+
+def test_nothing_below_the_desktop_layer_imports_it():
+    """Layers: gui → reports/ledger → diagnosis → estimation → model/io; only the desktop
+    package and the command line (which hands the PDF printer down) may import calibra.gui."""
+    offenders = []
+    for path in PACKAGE.rglob("*.py"):
+        rel = path.relative_to(PACKAGE)
+        if rel.parts[0] == "gui" or rel.name.startswith("cli"):
+            continue
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            names = ([a.name for a in node.names] if isinstance(node, ast.Import) else
+                     [node.module or ""] if isinstance(node, ast.ImportFrom) else [])
+            if any(n == "calibra.gui" or n.startswith("calibra.gui.") for n in names):
+                offenders.append(str(rel))
+    assert offenders == []

@@ -84,7 +84,7 @@ def test_repair_is_verified_when_the_field_fix_shows(reversed_site, tmp_path):
 def test_outputs_written(reversed_site, tmp_path):
     site, tags = reversed_site
     run = run_review(site)
-    files = write_outputs(run, site, tmp_path / "out", pdf=False)
+    files = write_outputs(run, site, tmp_path / "out")
     table = pd.read_csv(files["findings"], encoding="utf-8-sig")
     assert set(tags) <= set(table["tag"])
     assert (tmp_path / "out" / FINDINGS_FILE).exists()

@@ -8,8 +8,7 @@ import pandas as pd
 from calibra.diagnosis.causes import likely_scale_cause
 from calibra.diagnosis.classify import PointDiagnosis
 from calibra.diagnosis.findings import Finding
-from calibra.diagnosis.mismap import quantity_of_words
-from calibra.model.points import POWER_QUANTITIES
+from calibra.model.points import POWER_QUANTITIES, quantity_of_words
 from calibra.model.site import Site
 from calibra.model.times import for_people
 
@@ -71,7 +70,7 @@ def _evidence(kind: str, d: PointDiagnosis, z: np.ndarray, y: np.ndarray, unit: 
         if extra.get("reason"):
             return extra["reason"]
         sugg = extra.get("suggestion")
-        more = (f"; metering the {sugg} would make it checkable" if sugg else
+        more = (f"; {sugg} would make it checkable" if sugg else
                 "; no single nearby meter would make it checkable")
         return "critical measurement: no other meter checks it" + more
     return ""
@@ -85,8 +84,16 @@ _ACTIONS = {
     "stuck": "check RTU/IED communication and the transducer output",
     "noisy": "check wiring, shielding and earthing; check transducer health",
     "mismapped": "check the point mapping in the RTU/IED against the point list",
-    "unverifiable": "add the suggested meter or verify with a portable reference meter",
+    "unverifiable": "check the point against a portable reference meter",
 }
+
+
+def _action(kind: str, extra: dict) -> str:
+    """What to do, in the words of the sheets: an unverifiable point names the meter to add."""
+    if kind == "unverifiable" and extra.get("suggestion"):
+        return (f"add {extra['suggestion']}; until then check the point against a portable "
+                "reference meter")
+    return _ACTIONS[kind]
 
 
 def build_findings(site: Site, ev, diagnoses: dict[str, PointDiagnosis], mismaps: dict,
@@ -118,7 +125,7 @@ def build_findings(site: Site, ev, diagnoses: dict[str, PointDiagnosis], mismaps
             evidence=_evidence(kind, d, z, y, unit, limit, ev.index, tz, extra),
             quantity=str(pt["quantity"]), element=str(pt["element"]), end=str(pt["end"]),
             unit=unit, rtu=str(pt.get("rtu", "")), channel=str(pt.get("channel", "")),
-            action=_ACTIONS[kind], snapshots_used=d.n_used,
+            action=_action(kind, extra), snapshots_used=d.n_used,
             share_supporting=round(float(d.confidence), 3),
         )
         p = d.params

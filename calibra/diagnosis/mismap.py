@@ -8,7 +8,7 @@ implied value reads the wrong quantity (P and Q swapped, wrong branch end, wrong
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -16,6 +16,7 @@ import pandas as pd
 from calibra.estimation.measurements import QUANTITY_CODE, MeasurementFunctions
 from calibra.estimation.model import SQRT3
 from calibra.model.network import Network
+from calibra.model.points import end_place, quantity_words
 
 _UNIT_FAMILY = {
     "p_flow": "power", "q_flow": "power", "p_injection": "power", "q_injection": "power",
@@ -23,36 +24,22 @@ _UNIT_FAMILY = {
 }
 
 
-#: Quantities as an engineer names them (field text, sheets).
-QUANTITY_WORDS = {
-    "p_flow": "active-power flow", "q_flow": "reactive-power flow", "i_magnitude": "current",
-    "p_injection": "active-power injection", "q_injection": "reactive-power injection",
-    "v_magnitude": "voltage",
-}
-
-
-def quantity_of_words(text: str) -> str:
-    """The quantity a :meth:`Quantity.label` text names ('' when none)."""
-    for code, words in QUANTITY_WORDS.items():
-        if str(text).startswith(words + " "):
-            return code
-    return ""
-
-
 @dataclass(frozen=True)
 class Quantity:
+    """A measurable quantity: a branch end's flow or current, a bus's injection or voltage.
+
+    ``place``: the name of the measured branch end (see :func:`~calibra.model.points.end_place`),
+    for the words only; it takes no part in comparing quantities.
+    """
+
     quantity: str
     element: str
     end: str  # "from", "to" or ""
-    at: str = ""  #: the bus at that end of a branch
+    place: str = field(default="", compare=False)
 
     def label(self) -> str:
-        """'active-power flow on branch MRG-NRC at bus NRC_110', 'voltage at bus DRM_33'."""
-        words = QUANTITY_WORDS.get(self.quantity, self.quantity)
-        if self.end:
-            where = f" at bus {self.at}" if self.at else f" at its {self.end} end"
-            return f"{words} on branch {self.element}{where}"
-        return f"{words} at bus {self.element}"
+        """'active-power flow at the NRC end of MRG-NRC', 'voltage magnitude at bus DRM_33'."""
+        return quantity_words(self.quantity, self.element, self.place)
 
 
 def substation_quantities(network: Network, substation: str) -> list[Quantity]:
@@ -65,16 +52,17 @@ def substation_quantities(network: Network, substation: str) -> list[Quantity]:
         br = network.branches
         for bid, f, t in zip(br.index, br["from_bus"], br["to_bus"], strict=True):
             for end, bus in (("from", f), ("to", t)):
-                index.setdefault(sub_of[bus], []).append(("branch", str(bid), end, str(bus)))
+                place = end_place(network.buses, br, bid, end)
+                index.setdefault(sub_of[bus], []).append(("branch", str(bid), end, place))
         for b, sub in sub_of.items():
             index.setdefault(sub, []).append(("bus", str(b), "", ""))
         network._cache["substation_quantities"] = index
     out: list[Quantity] = []
     entries = index.get(str(substation), [])
-    for kind, element, end, at in sorted(entries, key=lambda e: e[0] == "bus"):
+    for kind, element, end, place in sorted(entries, key=lambda e: e[0] == "bus"):
         names = ("p_flow", "q_flow", "i_magnitude") if kind == "branch" else \
             ("p_injection", "q_injection", "v_magnitude")
-        out += [Quantity(q, element, end, at) for q in names]
+        out += [Quantity(q, element, end, place) for q in names]
     return out
 
 

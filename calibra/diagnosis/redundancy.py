@@ -4,7 +4,8 @@ A critical measurement i has Sᵢᵢ = 0: hᵢ P hᵢᵀ = σᵢ². Adding a mea
 variance σⱼ² updates the state covariance by a rank-one step, which gives
 Sᵢᵢ' = (hᵢ P hⱼᵀ)² / (σᵢ² (σⱼ² + hⱼ P hⱼᵀ)) (Sherman-Morrison). The candidate with the largest
 Sᵢᵢ' among the quantities at the point's substation and the far ends of its branches is
-suggested.
+suggested; equal candidates go to the first by (quantity, element, end), never by the order of
+a set, so every run on the same data suggests the same meter.
 
 A point that depends on a bus whose state no meter determines cannot be checked at all; the
 meter suggested for it is the one, among meters at those buses and the far ends of their
@@ -31,6 +32,7 @@ from calibra.estimation.observability import (
     ObservabilityStructure,
     structure_for,
 )
+from calibra.model.points import ENDS, end_place, quantity_words
 from calibra.model.site import Site
 
 #: Suggestions must lift Sᵢᵢ to at least this to count.
@@ -91,11 +93,27 @@ def suggest_meters(site: Site, ev, points: np.ndarray) -> dict[int, dict]:
         cross = np.asarray(Hj[cols] @ PH[k]).ravel()
         # Sherman-Morrison; the new meter assumed of the same class as the point.
         s_new = cross ** 2 / (sig_i2 * (sig_i2 + var_j[cols]))
-        j = int(np.argmax(s_new))
+        j = _stable_best(s_new, cands[i])
         best = float(s_new[j])
-        out[i] = {"suggestion": cands[i][j].label() if best >= MIN_USEFUL_S else "",
-                  "sensitivity": best}
+        out[i] = {"suggestion": f"a meter of the {cands[i][j].label()}"
+                  if best >= MIN_USEFUL_S else "", "sensitivity": best}
     return out
+
+
+#: Candidates whose gains differ by less than this share of the best count as equal.
+TIE_TOLERANCE = 1e-6
+
+
+def _stable_best(gains: np.ndarray, candidates: list[Quantity]) -> int:
+    """Position of the best candidate; equal gains (both ends of a radial line, rounding
+    noise) go to the first by (quantity, element, end), so every run suggests the same."""
+    top = float(np.max(gains))
+    tied = np.flatnonzero(gains >= top - TIE_TOLERANCE * max(abs(top), 1e-300))
+    return int(min(tied, key=lambda j: _meter_key(candidates[j])))
+
+
+def _meter_key(q: Quantity) -> tuple[str, str, str]:
+    return (q.quantity, q.element, q.end)
 
 
 # ---------------------------------------------------------------------- not observable points
@@ -114,15 +132,16 @@ class _Meter:
 
 
 def _meter_text(net, kind: str, element: int, end: int = 0) -> str:
+    """'a meter of the active- and reactive-power flow at the NRC end of MRG-NRC', …"""
     buses = net.buses
     if kind == "flow":
-        br = net.branches.iloc[element]
-        bus = br["from_bus"] if end == 0 else br["to_bus"]
-        return (f"a P and Q meter on branch {net.branches.index[element]} at bus {bus} "
-                f"(substation {buses.at[bus, 'substation']})")
-    bus = buses.index[element]
-    what = "a P and Q injection meter" if kind == "injection" else "a voltage meter"
-    return f"{what} at bus {bus} (substation {buses.at[bus, 'substation']})"
+        branch = str(net.branches.index[element])
+        place = end_place(buses, net.branches, branch, ENDS[end])
+        return f"a meter of the {quantity_words(('p_flow', 'q_flow'), branch, place)}"
+    bus = str(buses.index[element])
+    what = ("p_injection", "q_injection") if kind == "injection" else "v_magnitude"
+    return (f"a meter of the {quantity_words(what, bus)} "
+            f"(substation {buses.at[bus, 'substation']})")
 
 
 def _candidates(net, lost: np.ndarray, zero_injection: np.ndarray) -> list[_Meter]:
@@ -201,7 +220,9 @@ def _best_meter(model: MeasurementModel, available: np.ndarray, in_service: np.n
         isl = obs.island[needed]
         if (isl < 0).any() or np.unique(isl).size > 1:
             continue
-        key = (int(obs.estimated_buses.sum()), -obs.n_islands)
-        if best_key is None or key > best_key:
+        # most buses estimated, fewest islands; equal ones by (kind, element, end)
+        key = (-int(obs.estimated_buses.sum()), obs.n_islands, meter.codes, meter.element,
+               meter.end)
+        if best_key is None or key < best_key:
             best, best_key = meter, key
     return best

@@ -1,8 +1,11 @@
-"""Print HTML pages (such as the field checklists) to a PDF with Qt's rich-text engine.
+"""Print field checklists (:class:`calibra.reports.Sheet`) to a PDF or a printer with Qt's
+rich-text engine, page by page.
 
-Each page string is laid out as its own ``QTextDocument`` and starts on a new sheet; a
-footer numbers the sheets. Works headless: without a running Qt application one is created
-on the offscreen platform.
+Each sheet is laid out by :meth:`Sheet.pages` with a measure taken here (does this page's HTML
+fit one A4 body?), so no table row is ever split over two pages; every substation starts on a
+new page and its pages are numbered "page i of n" for that substation in the footer, beside
+the site's name and the reminder that findings are advisory. Works headless: without a running
+Qt application one is created on the offscreen platform.
 """
 
 from __future__ import annotations
@@ -11,35 +14,42 @@ import os
 from collections.abc import Sequence
 from pathlib import Path
 
+from calibra.reports.sheet_pages import Sheet
+
 _APP = None  # keeps a Qt application created here alive
 
 A4_MARGINS_MM = (15.0, 14.0, 15.0, 12.0)  # left, top, right, bottom
 FOOTER_MM = 7.0
+ADVISORY = "findings are advisory: confirm in the field before changing anything"
 
 
 def _application():
-    """The running Qt application, or a new offscreen ``QGuiApplication``."""
+    """The running Qt application, or a new offscreen ``QApplication`` (a widgets one, so
+    that the desktop windows can still open in the same process)."""
     global _APP
-    from PySide6.QtGui import QGuiApplication
+    from PySide6.QtWidgets import QApplication
 
-    app = QGuiApplication.instance()
+    app = QApplication.instance()
     if app is None:
         os.environ.setdefault("QT_QPA_PLATFORM", "offscreen")
-        app = _APP = QGuiApplication(["calibra"])
+        app = _APP = QApplication(["calibra"])
     return app
 
 
-def html_to_pdf(pages: Sequence[str], path: str | Path, *, title: str = "",
-                footer: str = "") -> Path:
-    """Write ``pages`` (HTML strings) to the PDF ``path`` on A4 portrait.
+def footer_text(site: str, substation: str, page: int, pages: int) -> tuple[str, str]:
+    """Left and right footer of one page: site, substation and advisory; page i of n."""
+    left = " · ".join(x for x in (site, substation, ADVISORY) if x)
+    return left, f"page {page} of {pages}"
 
-    Sheets are numbered "page k of n" over the whole file, after ``footer`` when given.
-    """
-    if not pages:
+
+def sheets_to_pdf(sheets: Sequence[Sheet], path: str | Path, *, title: str = "",
+                  footer: str = "") -> Path:
+    """Write ``sheets`` to the PDF ``path`` on A4 portrait (``footer``: the site's name)."""
+    if not sheets:
         raise ValueError("no pages to print")
-    app = _application()
-    from PySide6.QtCore import QMarginsF, QRectF, QSizeF, Qt
-    from PySide6.QtGui import QFont, QPageLayout, QPageSize, QPainter, QPdfWriter, QTextDocument
+    _application()
+    from PySide6.QtCore import QMarginsF
+    from PySide6.QtGui import QPageLayout, QPageSize, QPdfWriter
 
     path = Path(path)
     writer = QPdfWriter(str(path))
@@ -47,41 +57,62 @@ def html_to_pdf(pages: Sequence[str], path: str | Path, *, title: str = "",
     writer.setPageMargins(QMarginsF(*A4_MARGINS_MM), QPageLayout.Unit.Millimeter)
     writer.setTitle(title)
     writer.setCreator("calibra")
-    sheet = writer.pageLayout().paintRectPixels(writer.resolution())
-    footer_px = FOOTER_MM / 25.4 * writer.resolution()
-    # lay out at the screen's logical resolution, as a browser would, then scale to the writer
-    scale = writer.resolution() / app.primaryScreen().logicalDotsPerInchY()
-    body = QSizeF(sheet.width() / scale, (sheet.height() - footer_px) / scale)
-    documents = []
-    for html in pages:
+    if not paint_sheets(writer, sheets, footer):
+        raise OSError(f"cannot write the PDF {path}")
+    return path
+
+
+def paint_sheets(device, sheets: Sequence[Sheet], footer: str = "") -> bool:
+    """Paint ``sheets`` on a paged paint device (``QPdfWriter`` or ``QPrinter``), one
+    substation after another, each page laid out so that nothing is split; False when the
+    device cannot be painted on."""
+    app = _application()
+    from PySide6.QtCore import QRectF, QSizeF, Qt
+    from PySide6.QtGui import QFont, QPainter, QTextDocument
+
+    resolution = device.resolution()
+    sheet_rect = device.pageLayout().paintRectPixels(resolution)
+    footer_px = FOOTER_MM / 25.4 * resolution
+    # lay out at the screen's logical resolution, as a browser would, then scale to the device
+    scale = resolution / app.primaryScreen().logicalDotsPerInchY()
+    body = QSizeF(sheet_rect.width() / scale, (sheet_rect.height() - footer_px) / scale)
+
+    def document(html: str) -> QTextDocument:
         doc = QTextDocument()
         doc.setHtml(html)
         doc.setPageSize(body)
-        documents.append(doc)
-    total = sum(doc.pageCount() for doc in documents)
+        return doc
+
+    def fits(html: str) -> bool:
+        return document(html).pageCount() == 1
+
+    laid_out = [(sheet.substation, [document(h) for h in sheet.pages(fits)]) for sheet in sheets]
     painter = QPainter()
-    if not painter.begin(writer):
-        raise OSError(f"cannot write the PDF {path}")
+    if not painter.begin(device):
+        return False
     try:
         font = QFont("DejaVu Sans")
-        font.setPointSizeF(7.5)
-        number = 0
-        for doc in documents:
-            for page in range(doc.pageCount()):
-                if number:
-                    writer.newPage()
-                number += 1
-                painter.save()
-                painter.scale(scale, scale)
-                painter.translate(0, -page * body.height())
-                doc.drawContents(painter, QRectF(0, page * body.height(), body.width(),
-                                                 body.height()))
-                painter.restore()
-                painter.setFont(font)
-                label = f"{footer} — page {number} of {total}" if footer else (
-                    f"page {number} of {total}")
-                painter.drawText(QRectF(0, sheet.height() - footer_px, sheet.width(),
-                                        footer_px), Qt.AlignRight | Qt.AlignBottom, label)
+        font.setPointSizeF(7.0)
+        first = True
+        for substation, docs in laid_out:
+            for number, doc in enumerate(docs, start=1):
+                # a page longer than a sheet (one block taller than a page) goes on as needed
+                for part in range(doc.pageCount()):
+                    if not first:
+                        device.newPage()
+                    first = False
+                    painter.save()
+                    painter.scale(scale, scale)
+                    painter.translate(0, -part * body.height())
+                    doc.drawContents(painter, QRectF(0, part * body.height(), body.width(),
+                                                     body.height()))
+                    painter.restore()
+                    painter.setFont(font)
+                    left, right = footer_text(footer, substation, number, len(docs))
+                    box = QRectF(0, sheet_rect.height() - footer_px, sheet_rect.width(),
+                                 footer_px)
+                    painter.drawText(box, Qt.AlignLeft | Qt.AlignBottom, left)
+                    painter.drawText(box, Qt.AlignRight | Qt.AlignBottom, right)
     finally:
         painter.end()
-    return path
+    return True

@@ -1,7 +1,7 @@
 """Work orders: pick substations, preview each checklist, save a PDF, print, export CSV.
 
 The pages come from :mod:`calibra.reports` (with the safety cautions on every page); the PDF
-from :func:`calibra.gui.qt_pdf.html_to_pdf`.
+from :func:`calibra.gui.qt_pdf.sheets_to_pdf` (laid out page by page, no row split).
 """
 
 from __future__ import annotations
@@ -26,9 +26,9 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from calibra.gui.qt_pdf import html_to_pdf
+from calibra.gui.qt_pdf import paint_sheets, sheets_to_pdf
 from calibra.model.site import Site
-from calibra.reports import needing_field_work, work_order_pages, write_work_orders_csv
+from calibra.reports import Sheet, needing_field_work, work_order_sheets, write_work_orders_csv
 
 
 class WorkOrdersDialog(QDialog):
@@ -42,14 +42,15 @@ class WorkOrdersDialog(QDialog):
         self.resize(1100, 760)
         self.site = site
         self.findings = needing_field_work(findings)
-        self.pages: dict[str, str] = {}
+        self.sheets: dict[str, Sheet] = {}
         if len(self.findings):
-            self.pages = work_order_pages(site.name, self.findings, site.points,
-                                          pd.Timestamp.now(tz=site.timezone), period=period)
+            self.sheets = work_order_sheets(site.name, self.findings, site.points,
+                                            pd.Timestamp.now(tz=site.timezone), period=period)
+        self.pages = {name: sheet.whole_html() for name, sheet in self.sheets.items()}
         self.substations = QListWidget(self)
-        for sub in self.pages:
-            n = int((self.findings["substation"].astype(str).str.strip() == sub).sum())
-            item = QListWidgetItem(f"{sub}  ({n})")
+        for sub, sheet in self.sheets.items():
+            n = len(sheet.tags)
+            item = QListWidgetItem(f"{sub}  ({n} point{'s' if n != 1 else ''})")
             item.setData(Qt.UserRole, sub)
             item.setFlags(item.flags() | Qt.ItemIsUserCheckable)
             item.setCheckState(Qt.Checked)
@@ -121,8 +122,8 @@ class WorkOrdersDialog(QDialog):
         if path is None:
             return None
         try:
-            html_to_pdf([self.pages[s] for s in self.chosen()], path,
-                        title=f"{self.site.name}: field checks", footer=self.site.name)
+            sheets_to_pdf([self.sheets[s] for s in self.chosen()], path,
+                          title=f"{self.site.name}: field checks", footer=self.site.name)
         except OSError as exc:
             QMessageBox.warning(self, "Work orders", f"Could not write {path}: {exc}")
             return None
@@ -166,6 +167,6 @@ class WorkOrdersDialog(QDialog):
         dialog = QPrintDialog(printer, self)
         if dialog.exec() != QDialog.Accepted:
             return False
-        self.document().print_(printer)
+        paint_sheets(printer, [self.sheets[s] for s in self.chosen()], self.site.name)
         self.status.setText(f"Sent {len(self.chosen())} checklist(s) to {printer.printerName()}")
         return True

@@ -28,6 +28,56 @@ CT_QUANTITIES = (*POWER_QUANTITIES, "i_magnitude")
 VT_QUANTITIES = (*POWER_QUANTITIES, "v_magnitude")
 ENDS = ("from", "to")
 
+#: Quantities as an engineer names them: the one vocabulary of every text a person reads
+#: (sheets, findings, evidence, summaries).
+QUANTITY_WORDS: dict[str, str] = {
+    "p_flow": "active-power flow", "q_flow": "reactive-power flow", "i_magnitude": "current",
+    "branch_status": "breaker status",
+    "p_injection": "active-power injection", "q_injection": "reactive-power injection",
+    "v_magnitude": "voltage magnitude",
+}
+_PAIR_WORDS = {frozenset(("p_flow", "q_flow")): "active- and reactive-power flow",
+               frozenset(("p_injection", "q_injection")): "active- and reactive-power injection"}
+
+
+def quantity_words(quantity: str | tuple[str, ...], element: str, place: str = "") -> str:
+    """What a point (or a P and Q pair) measures, as an engineer says it.
+
+    ``place`` names the measured end of a branch (see :func:`end_place`): 'active-power flow at
+    the NRC end of MRG-NRC'; without it 'active-power flow on branch MRG-NRC'. Bus quantities:
+    'reactive-power injection at bus DRM_33'.
+    """
+    kinds = (quantity,) if isinstance(quantity, str) else tuple(quantity)
+    words = _PAIR_WORDS.get(frozenset(kinds)) if len(kinds) == 2 else None
+    words = words or " and ".join(QUANTITY_WORDS.get(k, k.replace("_", " ")) for k in kinds)
+    if QUANTITIES.get(kinds[0], {}).get("element") == "branch":
+        return f"{words} at the {place} end of {element}" if place else (
+            f"{words} on branch {element}")
+    return f"{words} at bus {element}"
+
+
+def quantity_of_words(text: str) -> str:
+    """The quantity a :func:`quantity_words` text names ('' when none)."""
+    for code, words in QUANTITY_WORDS.items():
+        if str(text).startswith(words + " "):
+            return code
+    return ""
+
+
+def end_place(buses: pd.DataFrame, branches: pd.DataFrame, branch: str, end: str) -> str:
+    """The name a crew knows one end of a branch by: its substation, or its bus when both ends
+    lie in the same substation (a transformer). '' when the branch or end is unknown."""
+    end = str(end).strip().lower()
+    if end not in ENDS or branch not in branches.index:
+        return ""
+    row = branches.loc[branch]
+    here, there = (row["from_bus"], row["to_bus"]) if end == "from" else (
+        row["to_bus"], row["from_bus"])
+    if here not in buses.index or there not in buses.index:
+        return str(here)
+    sub_here, sub_there = (str(buses.at[b, "substation"]).strip() for b in (here, there))
+    return sub_here if sub_here and sub_here != sub_there else str(here)
+
 REQUIRED_POINT_COLUMNS = [
     "quantity", "element", "end", "unit", "full_scale", "accuracy_pct", "substation", "device",
 ]

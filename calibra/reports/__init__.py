@@ -1,10 +1,15 @@
 """Reports of a week review: field-crew work orders as HTML pages and a safe CSV.
 
-Qt-free: the PDF of the pages is printed by :func:`calibra.gui.qt_pdf.html_to_pdf`.
+Qt-free: the PDF of the sheets is printed by :func:`calibra.gui.qt_pdf.sheets_to_pdf`.
 """
 
 from calibra.reports.checklist import FINDING_LABELS, checklist_items
-from calibra.reports.html import work_order_html, work_order_pages
+from calibra.reports.html import (
+    work_order_html,
+    work_order_pages,
+    work_order_sheet,
+    work_order_sheets,
+)
 from calibra.reports.paths import (
     inside,
     safe_file_stem,
@@ -12,6 +17,7 @@ from calibra.reports.paths import (
     write_work_orders_html,
 )
 from calibra.reports.safety import SAFETY_CAUTIONS, Caution
+from calibra.reports.sheet_pages import DeviceSection, Sheet
 from calibra.reports.spreadsheet import spreadsheet_cell, write_safe_csv
 from calibra.reports.work_orders import (
     WORK_ORDER_COLUMNS,
@@ -24,6 +30,7 @@ from calibra.reports.work_orders import (
 
 __all__ = [
     "FINDING_LABELS", "SAFETY_CAUTIONS", "WORK_ORDER_COLUMNS", "Caution", "CheckGroup",
+    "DeviceSection", "Sheet", "work_order_sheet", "work_order_sheets",
     "check_groups", "checklist_items", "inside", "needing_field_work", "safe_file_stem",
     "spreadsheet_cell", "unique_file_names", "work_order_html", "work_order_pages",
     "work_order_rows", "write_safe_csv", "write_work_orders_csv", "write_work_orders_html",

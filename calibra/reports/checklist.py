@@ -8,11 +8,15 @@ The safety cautions in :mod:`calibra.reports.safety` come before all of these on
 from __future__ import annotations
 
 import math
-import re
 from collections.abc import Callable, Mapping
 
 from calibra.diagnosis.findings import FINDING_KINDS
-from calibra.model.points import CT_QUANTITIES, VT_QUANTITIES
+from calibra.model.points import (
+    CT_QUANTITIES,
+    VT_QUANTITIES,
+    quantity_of_words,
+    quantity_words,
+)
 from calibra.reports._values import fmt, number, text, timestamp
 
 #: How each kind of finding is named on the checklist.
@@ -157,9 +161,9 @@ def _noisy(row: Mapping) -> list[str]:
 
 def _mismapped(row: Mapping) -> list[str]:
     tag, quantity, matched = text(row, "tag"), text(row, "quantity"), text(row, "matched")
-    where = " ".join(x for x in (quantity, text(row, "element"), text(row, "end")) if x)
+    where = _measures(row)
     items = [f"Point mapping: check the RTU/IED address of {tag or 'this point'} against the "
-             f"point list{f' ({where})' if where else ''}."]
+             f"point list{f' (listed as the {where})' if where else ''}."]
     if _pq_crossed(quantity, matched):
         items.append("Active and reactive power look interchanged: check which channel "
                      "carries P and which carries Q, in the transducer/IED and in the RTU.")
@@ -171,18 +175,33 @@ def _mismapped(row: Mapping) -> list[str]:
     return items
 
 
+def _measures(row: Mapping) -> str:
+    """What the point list says the point measures, in words; a branch end is named by the
+    point's own substation (where its meter is)."""
+    quantity, element = text(row, "quantity"), text(row, "element")
+    if not quantity or not element:
+        return ""
+    place = text(row, "substation") if text(row, "end") else ""
+    return quantity_words(quantity, element, place)
+
+
 def _pq_crossed(quantity: str, matched: str) -> bool:
-    kinds = {quantity[:2]} | set(re.findall(r"\b([pq]_)(?:flow|injection)\b", matched))
-    return {"p_", "q_"} <= kinds
+    """The point reads the other of P and Q (``matched`` in the words of the findings)."""
+    read = quantity_of_words(matched)
+    return bool(read) and {quantity[:1], read[:1]} == {"p", "q"}
 
 
 def _unverifiable(row: Mapping) -> list[str]:
+    # findings name the meter to add as "add <meter>; until then …" (diagnosis.describe)
     action = text(row, "action")
-    add = (f"Suggested: {action}" if action else
-           "Add a meter that makes this point redundant (a flow or injection measured on a "
-           "neighbouring element).")
-    return [add, "Until then, check the point in the field against a portable reference "
-                 "meter."]
+    record = ("Write down the reference reading and the control-centre value at the same "
+              "moment, so the difference can be judged.")
+    if not action.startswith("add "):
+        return ["Check the point in the field against a portable reference meter.", record]
+    meter = action[len("add "):].partition(";")[0].strip()
+    return [f"Metering: add {meter}, so that other meters check this point.",
+            "Until then, check the point in the field against a portable reference meter.",
+            record]
 
 
 _CHECKS: dict[str, Callable[[Mapping], list[str]]] = {

@@ -1,8 +1,9 @@
 """The printed field checklist of one substation, as HTML.
 
-The HTML keeps to the subset Qt's rich-text engine lays out (tables with rowspan, simple CSS)
-so :func:`calibra.gui.qt_pdf.html_to_pdf` can print it; any browser shows it too. Every piece
-of user data is escaped.
+The HTML keeps to the subset Qt's rich-text engine lays out (tables, simple CSS) so
+:func:`calibra.gui.qt_pdf.sheets_to_pdf` can print it page by page (no row split, see
+:mod:`calibra.reports.sheet_pages`); any browser shows the whole sheet too. Every piece of user
+data is escaped.
 """
 
 from __future__ import annotations
@@ -15,6 +16,7 @@ from itertools import groupby
 import pandas as pd
 
 from calibra.reports.safety import SAFETY_CAUTIONS
+from calibra.reports.sheet_pages import DeviceSection, Sheet, ruled_table
 from calibra.reports.work_orders import CheckGroup, check_groups
 
 _STYLE = """
@@ -30,47 +32,56 @@ td.finding { background-color: #f2f4f6; }
 TimeLike = str | datetime | pd.Timestamp
 
 
-def _table(attributes: str = "", padding: int = 3) -> str:
-    """Opening tag of a full-width ruled table."""
-    return (f'<table width="100%" border="1" cellspacing="0" cellpadding="{padding}"'
-            f'{" " + attributes if attributes else ""}>')
+def work_order_sheet(site_name: str, substation: str, findings: pd.DataFrame,
+                     points: pd.DataFrame | None, generated_at: TimeLike,
+                     period: Sequence[TimeLike] | None = None) -> Sheet:
+    """One substation's field checklist as blocks (see :mod:`calibra.reports.sheet_pages`):
+    header, safety cautions, one table per device with boxes for as-found, as-left, initials
+    and date, and room for remarks."""
+    subset = findings[findings["substation"].astype(str).str.strip() == str(substation).strip()]
+    groups = check_groups(subset, points)
+    if not groups:
+        raise ValueError(f"no findings for substation {substation!r}")
+    tags = list(dict.fromkeys(t for g in groups for t in g.tags))
+    devices = [DeviceSection(_device_title(rtu, device), [_unit(g) for g in device_groups])
+               for (rtu, device), device_groups in groupby(groups, key=lambda g: (g.rtu, g.device))]
+    head = "".join([
+        "<html><head><meta charset=\"utf-8\"/>",
+        f"<title>{escape(f'{site_name} — {substation}')}</title>",
+        f"<style>{_STYLE}</style></head><body>",
+    ])
+    opening = [f"<h1>Field checklist: {escape(str(substation))}</h1>"
+               + _header(site_name, substation, generated_at, period, len(tags), len(devices)),
+               _safety()]
+    closing = ("<h2>Remarks</h2>" + ruled_table(padding=4) + "<tr><td>&nbsp;</td></tr>" * 4
+               + "</table><p>Work done by (name, signature): ______________________________ "
+               "Date: ______________</p>")
+    return Sheet(str(substation), head, opening, devices, closing, tags)
 
 
 def work_order_html(site_name: str, substation: str, findings: pd.DataFrame,
                     points: pd.DataFrame | None, generated_at: TimeLike,
                     period: Sequence[TimeLike] | None = None) -> str:
-    """One substation's field checklist: header, safety cautions, one table per device with
-    boxes for as-found, as-left, initials and date, and room for remarks."""
-    subset = findings[findings["substation"].astype(str).str.strip() == str(substation).strip()]
-    groups = check_groups(subset, points)
-    if not groups:
-        raise ValueError(f"no findings for substation {substation!r}")
-    parts = [
-        "<html><head><meta charset=\"utf-8\"/>",
-        f"<title>{escape(f'{site_name} — {substation}')}</title>",
-        f"<style>{_STYLE}</style></head><body>",
-        f"<h1>Field checklist: {escape(str(substation))}</h1>",
-        _header(site_name, substation, generated_at, period,
-                len({t for g in groups for t in g.tags}), len(groups)),
-        _safety(),
-    ]
-    for (rtu, device), device_groups in groupby(groups, key=lambda g: (g.rtu, g.device)):
-        parts.append(_device_table(rtu, device, list(device_groups)))
-    parts.append(
-        "<h2>Remarks</h2>" + _table(padding=4) + "<tr><td>&nbsp;</td></tr>" * 4 + "</table>"
-        "<p>Work done by (name, signature): ______________________________ "
-        "Date: ______________</p>")
-    parts.append("</body></html>")
-    return "\n".join(parts)
+    """One substation's field checklist as one HTML document (any browser shows it)."""
+    return work_order_sheet(site_name, substation, findings, points, generated_at,
+                            period).whole_html()
+
+
+def work_order_sheets(site_name: str, findings: pd.DataFrame, points: pd.DataFrame | None,
+                      generated_at: TimeLike,
+                      period: Sequence[TimeLike] | None = None) -> dict[str, Sheet]:
+    """The checklist of every substation with findings, keyed by substation (sorted)."""
+    names = sorted({str(s).strip() for s in findings["substation"].dropna()} - {""})
+    return {name: work_order_sheet(site_name, name, findings, points, generated_at, period)
+            for name in names}
 
 
 def work_order_pages(site_name: str, findings: pd.DataFrame, points: pd.DataFrame | None,
                      generated_at: TimeLike,
                      period: Sequence[TimeLike] | None = None) -> dict[str, str]:
-    """The checklist of every substation with findings, keyed by substation (sorted)."""
-    names = sorted({str(s).strip() for s in findings["substation"].dropna()} - {""})
-    return {name: work_order_html(site_name, name, findings, points, generated_at, period)
-            for name in names}
+    """The checklist of every substation with findings as HTML, keyed by substation."""
+    return {name: sheet.whole_html() for name, sheet in
+            work_order_sheets(site_name, findings, points, generated_at, period).items()}
 
 
 def _when(value: TimeLike | None, with_time: bool = True) -> str:
@@ -82,7 +93,7 @@ def _when(value: TimeLike | None, with_time: bool = True) -> str:
 
 
 def _header(site_name: str, substation: str, generated_at: TimeLike,
-            period: Sequence[TimeLike] | None, n_points: int, n_groups: int) -> str:
+            period: Sequence[TimeLike] | None, n_points: int, n_devices: int) -> str:
     if period is None:
         span = "not given"
     else:
@@ -90,8 +101,8 @@ def _header(site_name: str, substation: str, generated_at: TimeLike,
         span = f"{_when(start)} to {_when(end)}"
     cells = [("Site", site_name), ("Substation", substation), ("Review period", span),
              ("Prepared", _when(generated_at)),
-             ("Points to check", f"{n_points} ({n_groups} check group"
-                                 f"{'s' if n_groups != 1 else ''})")]
+             ("Points to check", f"{n_points} on {n_devices} device"
+                                 f"{'s' if n_devices != 1 else ''}")]
     rows = "".join(f"<tr><td><b>{escape(k)}</b></td><td>{escape(str(v))}</td></tr>"
                    for k, v in cells)
     return f"<table cellpadding=\"1\" cellspacing=\"0\">{rows}</table>"
@@ -100,26 +111,22 @@ def _header(site_name: str, substation: str, generated_at: TimeLike,
 def _safety() -> str:
     items = "".join(f"<li>{escape(c.text)} <i class=\"small\">({escape(c.sources)})</i></li>"
                     for c in SAFETY_CAUTIONS)
-    return ("<h2>Safety: read before starting</h2>" + _table('class="safety"', 4)
+    return ("<h2>Safety: read before starting</h2>" + ruled_table('class="safety"', 4)
             + f"<tr><td><ul>{items}</ul></td></tr></table>")
 
 
-def _device_table(rtu: str, device: str, groups: list[CheckGroup]) -> str:
-    """One device: per finding a heading row (tags, channel, finding, evidence) followed by
-    one row per check with empty boxes; the column heads repeat on a new sheet."""
-    title = f"Device {device or '(not named)'}" + (f" · RTU {rtu}" if rtu else "")
-    head = ("<thead><tr><th width=\"52%\">Check</th><th width=\"16%\">As found</th>"
-            "<th width=\"16%\">As left</th><th width=\"8%\">Initials</th>"
-            "<th width=\"8%\">Date</th></tr></thead>")
-    rows = []
-    for g in groups:
-        where = escape(", ".join(g.tags))
-        if g.channels:
-            where += escape(f" · channel {', '.join(g.channels)}")
-        rows.append(f"<tr><td colspan=\"5\" class=\"finding\"><b>{where}: {escape(g.label)}"
-                    f"</b><br/><span class=\"small\">{escape('; '.join(g.evidence))}</span>"
-                    "</td></tr>")
-        rows += [f"<tr><td>☐ {escape(check)}</td><td></td><td></td><td></td><td></td></tr>"
-                 for check in g.checks]
-    return (f"<h2>{escape(title)}</h2>" + _table('style="margin-bottom: 14px"')
-            + f"{head}<tbody>{''.join(rows)}</tbody></table>")
+def _device_title(rtu: str, device: str) -> str:
+    return f"Device {device or '(not named)'}" + (f" · RTU {rtu}" if rtu else "")
+
+
+def _unit(g: CheckGroup) -> list[str]:
+    """A finding's heading row (tags, channel, finding, evidence) and one row per check with
+    empty boxes: the rows kept together on one page."""
+    where = escape(", ".join(g.tags))
+    if g.channels:
+        where += escape(f" · channel {', '.join(g.channels)}")
+    rows = [f"<tr><td colspan=\"5\" class=\"finding\"><b>{where}: {escape(g.label)}"
+            f"</b><br/><span class=\"small\">{escape('; '.join(g.evidence))}</span></td></tr>"]
+    rows += [f"<tr><td>☐ {escape(check)}</td><td></td><td></td><td></td><td></td></tr>"
+             for check in g.checks]
+    return rows

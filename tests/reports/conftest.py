@@ -54,13 +54,14 @@ def sample_findings(points: pd.DataFrame) -> pd.DataFrame:
         _finding(points, "MC-L2-I", "drift", "error grows 1.9 A a day", drift_per_day=1.9,
                  onset=onset),
         _finding(points, "AV-L3-P", "mismapped", "follows the reactive flow of L3",
-                 matched="q_flow L3 to"),
+                 matched="reactive-power flow at the AV end of L3"),
         _finding(points, "AV-L3-Q", "mismapped", "follows the active flow of L3",
-                 matched="p_flow L3 to"),
+                 matched="active-power flow at the AV end of L3"),
         _finding(points, "AV-G1-P", "offset", "=HYPERLINK(\"http://x\") reads +4.2 MW high",
                  offset=4.2),
         _finding(points, "KB-L4-P", "unverifiable", "no other meter sees L4",
-                 action="add P and Q at the Marlow Cross end of L4"),
+                 action="add a meter of the active- and reactive-power flow at the Marlow Cross "
+                 "end of L4; until then check the point against a portable reference meter"),
     ])
 
 

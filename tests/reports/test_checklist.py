@@ -79,15 +79,27 @@ def test_offset_drift_stuck_noisy_wording():
 
 
 def test_mismapped_recognises_crossed_p_and_q():
-    crossed = checklist_items(_row("mismapped", matched="q_flow L1 from", element="L1",
-                                   end="from"))
-    assert "(p_flow L1 from)" in crossed[0]
+    crossed = checklist_items(_row("mismapped", matched="reactive-power flow at the Marlow "
+                                   "Cross end of L1", element="L1", end="from",
+                                   substation="Marlow Cross"))
+    assert "(listed as the active-power flow at the Marlow Cross end of L1)" in crossed[0]
     assert "which channel carries P and which carries Q" in crossed[1]
-    other = checklist_items(_row("mismapped", matched="MC-L2-P"))
-    assert "match MC-L2-P instead" in other[1]
+    other = checklist_items(_row("mismapped", matched="active-power flow at the Kestrel Bank "
+                                 "end of L2", element="L1", end="from"))
+    assert "match active-power flow at the Kestrel Bank end of L2 instead" in other[1]
+    for item in crossed + other:
+        for internal in ("p_flow", "q_flow", "from)", "to)"):
+            assert internal not in item, item
 
 
 def test_unverifiable_carries_the_suggested_meter():
-    items = checklist_items(_row("unverifiable", action="add Q at the Kestrel Bank end of L4"))
-    assert items[0] == "Suggested: add Q at the Kestrel Bank end of L4"
+    items = checklist_items(_row("unverifiable", action="add a meter of the reactive-power "
+                                 "flow at the Kestrel Bank end of L4; until then check the "
+                                 "point against a portable reference meter"))
+    assert items[0] == ("Metering: add a meter of the reactive-power flow at the Kestrel Bank "
+                        "end of L4, so that other meters check this point.")
     assert "portable reference meter" in items[1]
+    assert not any("suggested" in item.lower() for item in items)
+    plain = checklist_items(_row("unverifiable", action="check the point against a portable "
+                                 "reference meter"))
+    assert "portable reference meter" in plain[0] and "add" not in plain[0]
