@@ -123,6 +123,7 @@ class BlockSolver:
         out = self._empty(k, m, n)
         rows: list[dict] = [{} for _ in range(k)]
         single = np.ones(k, bool)
+        retry = np.zeros(k, bool)  # left the block after Gauss-Newton on its own matrix
         ref = self._reference(Z, avail)
         if ref is not None:
             obs = ref.observability
@@ -146,18 +147,13 @@ class BlockSolver:
                                    **outcome_of(own),
                                    "dof": int(avail[i].sum()) - (self._nx - free)
                                    + (self._cidx.size - off)}
-                    # Gauss-Newton on its own matrix did not converge either: the single
-                    # estimator would not do better (the same iteration); say so.
-                    for i in g.members[~done[g.members]]:
-                        if i in self._newton_last:
-                            single[i] = False
-                            rows[i] = {"converged": False, "iterations": int(iters[i]),
-                                       "method": "block", **outcome_of(own), "dof": 0,
-                                       "reason": "no convergence (Gauss-Newton on the "
-                                                 "snapshot's own matrix, last step "
-                                                 f"{self._newton_last[i]:.2e})"}
+                    # Gauss-Newton on its own matrix did not converge either (its normal
+                    # equations can stall at steps of 1e-5 on a stiff model): the single
+                    # estimator, which finishes on the augmented matrix, takes it over.
+                    retry[[i for i in g.members[~done[g.members]] if i in self._newton_last]] \
+                        = True
                 self._residuals(Z, avail, blockable, single, out)
-        rest = np.flatnonzero(single)
+        rest = np.flatnonzero(single & ~retry)
         if not self.partial and rest.size >= 4:
             self._solve_partial_groups(Z, rest, confidence, out, rows, single)
         for i in np.flatnonzero(single):
@@ -460,7 +456,7 @@ class BlockSolver:
     # ------------------------------------------------------------------ fallback
     def _single(self, i: int, z: np.ndarray, confidence: float, out: BlockResult) -> dict:
         try:
-            est = self.estimator.estimate(z, None, self.status)
+            est = self.estimator.estimate(z, None, self.status, tolerance=self.tolerance)
         except NUMERICAL_ERRORS as exc:
             return {"converged": False, "iterations": 0, "method": "single",
                     "reason": f"estimate failed: {describe_error(exc)}", "observable": False,
