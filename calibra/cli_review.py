@@ -18,7 +18,7 @@ from calibra.cluster import ClusterError, parse_cluster_address
 from calibra.diagnosis.review import ReviewSettings
 from calibra.ledger import Ledger, LedgerError
 from calibra.progress import terminal_progress
-from calibra.review_run import run_review, summary_lines, write_outputs
+from calibra.review_run import OUTPUT_LABELS, run_review, summary_lines, write_outputs
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -133,5 +133,5 @@ def run(args: argparse.Namespace) -> int:
     for note in review.notes:
         print(f"note: {note}")
     for name, path in files.items():
-        print(f"wrote {name}: {path}")
+        print(f"wrote {OUTPUT_LABELS.get(name, name)}: {path}")
     return EXIT_OK

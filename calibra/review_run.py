@@ -124,6 +124,16 @@ def _with_ledger(table: pd.DataFrame, ledger: Ledger, corrections: list,
     return table
 
 
+#: How each written file is named to a person (the keys of :func:`write_outputs`' result).
+OUTPUT_LABELS = {
+    "findings": "findings",
+    "work_orders_csv": "work orders (spreadsheet)",
+    "work_orders_pdf": "work orders (PDF sheets)",
+    "summary": "summary",
+    "summary_json": "summary for programs (JSON)",
+}
+
+
 def write_outputs(run: ReviewRun, site: Site, out: Path,
                   pdf_writer: PdfWriter | None = None) -> dict[str, Path]:
     """findings.csv, the work orders (CSV and, given ``pdf_writer``, PDF) and a summary."""

@@ -113,7 +113,7 @@ def test_files_stay_in_the_output_folder(reviewed, tmp_path):
 def test_the_pdf_is_printed_with_odd_names(reviewed):
     base, _, _, output = reviewed
     pdf = base / "out" / "work_orders.pdf"
-    assert f"wrote work_orders_pdf: {pdf}" in output
+    assert f"wrote work orders (PDF sheets): {pdf}" in output
     assert pdf.read_bytes().startswith(b"%PDF-") and pdf.stat().st_size > 10_000
     if shutil.which("pdftotext") is None:
         pytest.skip("poppler-utils (pdftotext) is not installed: cannot read the PDF back")
