@@ -11,11 +11,8 @@ from PySide6.QtGui import QAction, QCloseEvent, QKeySequence
 from PySide6.QtWidgets import (
     QFileDialog,
     QInputDialog,
-    QLabel,
     QMainWindow,
     QMessageBox,
-    QProgressBar,
-    QPushButton,
     QSplitter,
     QWidget,
 )
@@ -38,6 +35,7 @@ from calibra.gui.qt_findings import FindingsPanel
 from calibra.gui.qt_jobs import JobRunner
 from calibra.gui.qt_plots import PlotPanel
 from calibra.gui.qt_point_actions import PointActions
+from calibra.gui.qt_status import StatusArea
 from calibra.gui.qt_style import app_icon
 from calibra.gui.run_compare import RunFigures, run_figures
 from calibra.io import load_site
@@ -46,12 +44,18 @@ from calibra.model.site import Site, SiteLoadError
 from calibra.review_run import ReviewRun, run_review
 
 
+def window_title(site_name: str | None) -> str:
+    """The window title: the site, then the application's name once. It ends with the name, so
+    platforms that append the application's display name add nothing more."""
+    return f"{site_name} — calibra" if site_name else "calibra"
+
+
 class MainWindow(QMainWindow):
     """calibra's main window. ``review_on_open`` starts a review once a site is loaded."""
 
     def __init__(self, recent: RecentSites | None = None, review_on_open: bool = True):
         super().__init__()
-        self.setWindowTitle("calibra")
+        self.setWindowTitle(window_title(None))
         self.setWindowIcon(app_icon())
         self.resize(1560, 920)
         self.recent = recent or RecentSites()
@@ -93,16 +97,10 @@ class MainWindow(QMainWindow):
         main.setSizes([470, 690, 400])
         main.setStretchFactor(1, 1)
         self.setCentralWidget(main)
-        self.message = QLabel("", self)
-        self.progress = QProgressBar(self)
-        self.progress.setMaximumWidth(260)
-        self.progress.setTextVisible(True)
-        self.cancel_button = QPushButton("Cancel", self)
+        self.status = StatusArea(self)
+        self.message, self.progress = self.status.message, self.status.progress
+        self.cancel_button = self.status.cancel_button
         self.cancel_button.clicked.connect(self.cancel_job)
-        bar = self.statusBar()
-        bar.addWidget(self.message, 1)
-        bar.addPermanentWidget(self.progress)
-        bar.addPermanentWidget(self.cancel_button)
         self.findings.findingSelected.connect(self._on_finding_selected)
         self.diagram.view.meterClicked.connect(self._on_meter_clicked)
         self.point_actions = PointActions(self)
@@ -260,7 +258,7 @@ class MainWindow(QMainWindow):
         self.show_point(None, None)
         self.recent.add(site.path)
         self._fill_recent()
-        self.setWindowTitle(f"calibra — {site.name}")
+        self.setWindowTitle(window_title(site.name))
         n = len(site.problems)
         self.say(f"Loaded {site.name}" + (f" with {n} load warning(s) (see Site)" if n else ""))
         if settings_problem:
