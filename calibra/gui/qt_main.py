@@ -287,6 +287,7 @@ class MainWindow(QMainWindow):
 
     def _apply_run(self, run: ReviewRun) -> None:
         self.run = run
+        self.diagram.set_result(run.result)
         self.figures.append(run_figures(run))
         self.view.set_review(run.findings)
         self.view.set_ledger(self.ledger.findings())
