@@ -29,6 +29,7 @@ from calibra.app_settings import (
 from calibra.gui.findings_view import FindingsView, commissioning_substations
 from calibra.gui.point_trace import point_trace
 from calibra.gui.qt_details import DetailTabs
+from calibra.gui.qt_device_actions import DeviceActions
 from calibra.gui.qt_diagram import DiagramPanel
 from calibra.gui.qt_dialogs import ABOUT_HTML, ProblemsDialog, Prompts, SettingsDialog
 from calibra.gui.qt_findings import FindingsPanel
@@ -37,6 +38,7 @@ from calibra.gui.qt_plots import PlotPanel
 from calibra.gui.qt_point_actions import PointActions
 from calibra.gui.qt_status import StatusArea
 from calibra.gui.qt_style import app_icon
+from calibra.gui.qt_tools import WindowTools
 from calibra.gui.run_compare import RunFigures, run_figures
 from calibra.io import load_site
 from calibra.ledger import Ledger
@@ -104,6 +106,8 @@ class MainWindow(QMainWindow):
         self.findings.findingSelected.connect(self._on_finding_selected)
         self.diagram.view.meterClicked.connect(self._on_meter_clicked)
         self.point_actions = PointActions(self)
+        self.device_actions = DeviceActions(self)
+        self.tools = WindowTools(self)
         self._build_menus()
 
     def _action(self, text: str, handler, shortcut=None, tip: str = "") -> QAction:
@@ -133,14 +137,20 @@ class MainWindow(QMainWindow):
         site_menu.addSeparator()
         site_menu.addAction(self._action("Quit", self.close, QKeySequence.Quit))
         review = menu.addMenu("&Review")
-        for action in (self.review_action, self.settings_action, self.orders_action):
+        t = self.tools
+        for action in (self.review_action, t.period_action, self.settings_action,
+                       self.orders_action, t.csv_action, t.plot_action):
             review.addAction(action)
         point = menu.addMenu("&Point")
         point.addAction(self.goto_action)
         for name in ("next", "previous", None, "confirm", "reversed", "scale", "offset",
                      "repaired", "dismiss", "note", None, "undo"):
             point.addSeparator() if name is None else point.addAction(a[name])
+        point.addSeparator()
+        point.addAction(self.device_actions.correct_action)
+        point.addAction(self.device_actions.confirm_action)
         help_menu = menu.addMenu("&Help")
+        help_menu.addAction(t.guide_action)
         help_menu.addAction(self._action("Keyboard shortcuts", self._on_shortcuts_clicked))
         help_menu.addAction(self._action("About calibra", self._on_about_clicked))
         tools = self.addToolBar("Main")
@@ -238,6 +248,7 @@ class MainWindow(QMainWindow):
         if self.ledger is not None:
             self.ledger.close()
         self.site, self.run, self.figures = site, None, []
+        self.tools.period = (None, None)  # a new site is reviewed over all its snapshots
         self.ledger = Ledger.for_site(site.path)
         settings_problem = ""
         try:
@@ -275,10 +286,12 @@ class MainWindow(QMainWindow):
             return
         settings = self.settings.review_settings()
         folder = site.path
+        start, end = self.tools.period
 
         def job(progress):
             with Ledger.for_site(folder) as ledger:  # this thread's own connection
-                return run_review(site, settings, ledger=ledger, progress=progress)
+                return run_review(site, settings, start, end, ledger=ledger,
+                                  progress=progress)
 
         self.progress.setRange(0, 0)
         self._show_busy(True)
