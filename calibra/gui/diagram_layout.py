@@ -106,6 +106,72 @@ def force_layout(n: int, edges: np.ndarray, groups: np.ndarray, seed: int = 0,
     return _fit_unit_box(pos)
 
 
+MIN_BUS_GAP = 0.11  #: buses closer than this (unit-box units) are pushed apart
+BOX_PAD = 0.075  #: a substation's box reaches this far beyond its outermost buses
+
+
+def group_boxes(pos: np.ndarray, groups: np.ndarray, pad: float = BOX_PAD) -> np.ndarray:
+    """The box (x0, y0, x1, y1) of every group label 0…g−1 around its members."""
+    g = int(groups.max()) + 1 if groups.size else 0
+    out = np.zeros((g, 4))
+    for j in range(g):
+        members = pos[groups == j]
+        out[j, :2], out[j, 2:] = members.min(axis=0) - pad, members.max(axis=0) + pad
+    return out
+
+
+def spread(pos: np.ndarray, groups: np.ndarray, rounds: int = 12) -> np.ndarray:
+    """Make room for the drawing: buses at least ``MIN_BUS_GAP`` apart, and the boxes of
+    different substations apart (each moved as a whole), in the unit box. Fitting into the box
+    shrinks the gaps again, so push and fit alternate until nothing needs to move."""
+    if len(pos) < 2:
+        return pos
+    for _ in range(rounds):
+        pos, moved = _push_apart(pos, groups)
+        pos = _fit_unit_box(pos)
+        if not moved:
+            break
+    return pos
+
+
+def _push_apart(pos: np.ndarray, groups: np.ndarray,
+                iterations: int = 300) -> tuple[np.ndarray, bool]:
+    """One round of :func:`spread` without fitting; also whether anything moved."""
+    pos = pos.copy()
+    n = len(pos)
+    any_moved = False
+    for _ in range(iterations):
+        moved = False
+        delta = pos[:, None, :] - pos[None, :, :]
+        dist = np.linalg.norm(delta, axis=2) + np.eye(n)
+        close = np.triu(dist < MIN_BUS_GAP, 1)
+        for a, b in zip(*np.nonzero(close), strict=True):
+            d = delta[a, b] / max(dist[a, b], 1e-9) if dist[a, b] > 1e-9 else np.array([1., 0.])
+            step = (MIN_BUS_GAP - dist[a, b]) / 2 + 1e-4
+            pos[a] += d * step
+            pos[b] -= d * step
+            moved = True
+        boxes = group_boxes(pos, groups)
+        for a in range(len(boxes)):
+            for b in range(a + 1, len(boxes)):
+                over = np.minimum(boxes[a, 2:], boxes[b, 2:]) - np.maximum(boxes[a, :2],
+                                                                          boxes[b, :2])
+                if (over > -0.03).all():  # overlapping, or closer than a small gap
+                    axis = int(np.argmin(over))
+                    ca = (boxes[a, :2] + boxes[a, 2:]) / 2
+                    cb = (boxes[b, :2] + boxes[b, 2:]) / 2
+                    sign = 1.0 if ca[axis] >= cb[axis] else -1.0
+                    step = np.zeros(2)
+                    step[axis] = sign * (over[axis] + 0.03) / 2 + sign * 1e-4
+                    pos[groups == a] += step
+                    pos[groups == b] -= step
+                    moved = True
+        any_moved |= moved
+        if not moved:
+            break
+    return pos, any_moved
+
+
 def _fit_unit_box(pos: np.ndarray, margin: float = 0.06) -> np.ndarray:
     """Scale into [margin, 1 − margin] keeping the aspect ratio, centred."""
     lo, hi = pos.min(axis=0), pos.max(axis=0)
@@ -125,7 +191,7 @@ def substation_diagram(site: Site, substation: str, hops: int = 1, seed: int = 0
     edges = np.array([[pos_of[f], pos_of[t]] for f, t in zip(br["from_bus"], br["to_bus"],
                                                               strict=True)], int)
     groups = pd.factorize(pd.Series(subs))[0]
-    positions = force_layout(len(buses), edges, groups, seed)
+    positions = spread(force_layout(len(buses), edges, groups, seed), groups)
     lines = _branch_lines(br, pos_of)
     diagram = Diagram(str(substation), buses, subs, positions, lines)
     diagram.meters = _meters(site, diagram, {ln.branch: ln for ln in lines})

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from calibra.diagnosis.mismap import QuantityEvaluator, substation_quantities
 from calibra.diagnosis.review import ReviewResult
 from calibra.model.site import Site
 
@@ -39,6 +40,14 @@ class PointTrace:
     intercept: float = 0.0
     model_residual: np.ndarray | None = None  #: the fitted error model over time
     model_label: str = ""
+    followed: np.ndarray | None = None  #: a mismapped point: the estimate of what it reads
+    followed_label: str = ""  #: that quantity in words ("reactive-power flow on branch …")
+
+    @property
+    def compared(self) -> np.ndarray:
+        """What the scatter sets the point against: the quantity it follows when it is
+        mismapped, else its own implied value."""
+        return self.followed if self.followed is not None else self.implied
 
     @property
     def residual(self) -> np.ndarray:
@@ -46,10 +55,11 @@ class PointTrace:
 
     def scatter(self, limit: int = MAX_SCATTER) -> tuple[np.ndarray, np.ndarray]:
         """(implied, measured) where both exist, evenly thinned to at most ``limit`` pairs."""
-        ok = np.flatnonzero(np.isfinite(self.measured) & np.isfinite(self.implied))
+        against = self.compared
+        ok = np.flatnonzero(np.isfinite(self.measured) & np.isfinite(against))
         if ok.size > limit:
             ok = ok[np.linspace(0, ok.size - 1, limit).astype(int)]
-        return self.implied[ok], self.measured[ok]
+        return against[ok], self.measured[ok]
 
 
 def wall_clock_seconds(index: pd.DatetimeIndex, timezone: str) -> np.ndarray:
@@ -96,7 +106,32 @@ def point_trace(site: Site, result: ReviewResult, tag: str) -> PointTrace | None
     if diagnosis is not None:
         t_days = ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
         _add_model(trace, diagnosis.kind, diagnosis.params, t_days)
+    _add_followed(site, result, trace, i)
     return trace
+
+
+def _add_followed(site: Site, result: ReviewResult, trace: PointTrace, i: int) -> None:
+    """For a mismapped point, the estimate of the quantity it reads instead (with the sign
+    it follows), evaluated from the period's estimated states."""
+    matched = next((f.matched for f in result.findings
+                    if f.tag == trace.tag and f.finding == "mismapped" and f.matched), "")
+    if not matched:
+        return
+    ev = result.evidence
+    net = site.network
+    sub = str(net.buses["substation"].astype(str).iloc[int(ev.model.bus_of_point[i])])
+    quantity = next((q for q in substation_quantities(net, sub) if q.label() == matched), None)
+    if quantity is None:
+        return
+    values = QuantityEvaluator(net, [quantity]).evaluate(ev.period.vm, ev.period.va,
+                                                        ev.in_service)[:, 0].astype(float)
+    ok = np.isfinite(values) & np.isfinite(trace.measured)
+    if not ok.any():
+        return
+    z, y = trace.measured[ok], values[ok]
+    sign = -1.0 if np.median(np.abs(z + y)) < np.median(np.abs(z - y)) else 1.0
+    trace.followed = sign * values
+    trace.followed_label = ("−" if sign < 0 else "") + matched
 
 
 def _class_limit(pt: pd.Series) -> float:

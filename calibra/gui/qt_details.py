@@ -6,6 +6,7 @@ from __future__ import annotations
 from html import escape
 
 import pandas as pd
+from PySide6.QtCore import Qt
 from PySide6.QtWidgets import (
     QAbstractItemView,
     QHeaderView,
@@ -89,15 +90,23 @@ def _payload_text(payload: dict, timezone: str) -> str:
 
 
 class _Table(QTableWidget):
-    def __init__(self, headers: list[str], parent: QWidget | None = None):
+    """A read-only table: every column as wide as its content, except the ``wrap`` column (the
+    long text), which takes the remaining width and wraps, rows growing to show all of it."""
+
+    def __init__(self, headers: list[str], parent: QWidget | None = None, wrap: int = -1):
         super().__init__(0, len(headers), parent)
+        self.wrap = wrap if wrap >= 0 else len(headers) + wrap
         self.setHorizontalHeaderLabels(headers)
         self.setEditTriggers(QAbstractItemView.NoEditTriggers)
         self.setSelectionBehavior(QAbstractItemView.SelectRows)
+        self.setHorizontalScrollBarPolicy(Qt.ScrollBarAlwaysOff)
         self.verticalHeader().setVisible(False)
-        self.horizontalHeader().setStretchLastSection(True)
-        self.horizontalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
-        self.setWordWrap(False)
+        self.verticalHeader().setSectionResizeMode(QHeaderView.ResizeToContents)
+        header = self.horizontalHeader()
+        header.setStretchLastSection(False)
+        header.setSectionResizeMode(QHeaderView.ResizeToContents)
+        header.setSectionResizeMode(self.wrap, QHeaderView.Stretch)
+        self.setWordWrap(True)
 
     def fill(self, rows: list[list[str]]) -> None:
         self.setRowCount(len(rows))
@@ -122,7 +131,7 @@ class DetailTabs(QTabWidget):
         super().__init__(parent)
         self.point = QTextBrowser(self)
         self.point.setOpenLinks(False)
-        self.history = _Table(["when", "who", "action", "finding", "details", "undone"], self)
+        self.history = _Table(["when, who", "action, on", "details"], self)
         self.site_text = QTextBrowser(self)
         self.problems = _Table(PROBLEM_HEADERS, self)
         site_page = self.site_page = QWidget(self)
@@ -133,7 +142,7 @@ class DetailTabs(QTabWidget):
         self.problems_title.setObjectName("sectionTitle")
         lay.addWidget(self.problems_title)
         lay.addWidget(self.problems, 1)
-        self.compare = _Table(["figure", "before", "after"], self)
+        self.compare = _Table(["figure", "before", "after"], self, wrap=0)
         self.compare_note = QTextBrowser(self)
         runs_page = QWidget(self)
         lay = QVBoxLayout(runs_page)
@@ -158,12 +167,12 @@ class DetailTabs(QTabWidget):
             return
         rows = []
         for _, a in history.iloc[::-1].iterrows():
-            rows.append([for_people(a["at"], timezone, seconds=True), str(a["user"]),
-                         str(a["action"]),
-                         a["finding_id"] if isinstance(a["finding_id"], str)
-                         else "(whole point)",
-                         _payload_text(a["payload"] or {}, timezone),
-                         "" if pd.isna(a["undone_by"]) else "undone"])
+            fid = a["finding_id"]
+            on = str(fid).partition("|")[2] if isinstance(fid, str) else "whole point"
+            undone = "" if pd.isna(a["undone_by"]) else "\n(undone)"
+            rows.append([f"{for_people(a['at'], timezone, seconds=True)}\n{a['user']}",
+                         f"{a['action']}\n{on}{undone}",
+                         _payload_text(a["payload"] or {}, timezone)])
         self.history.fill(rows)
 
     def show_site(self, site: Site | None) -> None:

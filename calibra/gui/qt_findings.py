@@ -185,9 +185,18 @@ class FindingsPanel(QWidget):
         total = len(self.view.table())
         self.count.setText(f"{shown} of {total} shown")
         self.tree.expandAll()
+        self._fit_columns()
         self._updating = False
         if keep is not None:
             self.select(keep, emit=False)
+
+    def _fit_columns(self) -> None:
+        """Keep the tree at least as wide as its columns, so no column is cut off."""
+        header = self.tree.header()
+        header.resizeSections(QHeaderView.ResizeToContents)
+        needed = (header.length() + self.tree.verticalScrollBar().sizeHint().width()
+                  + 2 * self.tree.frameWidth() + 2)
+        self.tree.setMinimumWidth(needed)
 
     def leaf_ids(self) -> list[str]:
         """Finding ids in the order the tree shows them."""

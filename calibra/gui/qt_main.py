@@ -11,11 +11,8 @@ from PySide6.QtGui import QAction, QCloseEvent, QKeySequence
 from PySide6.QtWidgets import (
     QFileDialog,
     QInputDialog,
-    QLabel,
     QMainWindow,
     QMessageBox,
-    QProgressBar,
-    QPushButton,
     QSplitter,
     QWidget,
 )
@@ -32,13 +29,16 @@ from calibra.app_settings import (
 from calibra.gui.findings_view import FindingsView, commissioning_substations
 from calibra.gui.point_trace import point_trace
 from calibra.gui.qt_details import DetailTabs
+from calibra.gui.qt_device_actions import DeviceActions
 from calibra.gui.qt_diagram import DiagramPanel
 from calibra.gui.qt_dialogs import ABOUT_HTML, ProblemsDialog, Prompts, SettingsDialog
 from calibra.gui.qt_findings import FindingsPanel
 from calibra.gui.qt_jobs import JobRunner
 from calibra.gui.qt_plots import PlotPanel
 from calibra.gui.qt_point_actions import PointActions
+from calibra.gui.qt_status import StatusArea
 from calibra.gui.qt_style import app_icon
+from calibra.gui.qt_tools import WindowTools
 from calibra.gui.run_compare import RunFigures, run_figures
 from calibra.io import load_site
 from calibra.ledger import Ledger
@@ -46,12 +46,18 @@ from calibra.model.site import Site, SiteLoadError
 from calibra.review_run import ReviewRun, run_review
 
 
+def window_title(site_name: str | None) -> str:
+    """The window title: the site, then the application's name once. It ends with the name, so
+    platforms that append the application's display name add nothing more."""
+    return f"{site_name} — calibra" if site_name else "calibra"
+
+
 class MainWindow(QMainWindow):
     """calibra's main window. ``review_on_open`` starts a review once a site is loaded."""
 
     def __init__(self, recent: RecentSites | None = None, review_on_open: bool = True):
         super().__init__()
-        self.setWindowTitle("calibra")
+        self.setWindowTitle(window_title(None))
         self.setWindowIcon(app_icon())
         self.resize(1560, 920)
         self.recent = recent or RecentSites()
@@ -93,19 +99,15 @@ class MainWindow(QMainWindow):
         main.setSizes([470, 690, 400])
         main.setStretchFactor(1, 1)
         self.setCentralWidget(main)
-        self.message = QLabel("", self)
-        self.progress = QProgressBar(self)
-        self.progress.setMaximumWidth(260)
-        self.progress.setTextVisible(True)
-        self.cancel_button = QPushButton("Cancel", self)
+        self.status = StatusArea(self)
+        self.message, self.progress = self.status.message, self.status.progress
+        self.cancel_button = self.status.cancel_button
         self.cancel_button.clicked.connect(self.cancel_job)
-        bar = self.statusBar()
-        bar.addWidget(self.message, 1)
-        bar.addPermanentWidget(self.progress)
-        bar.addPermanentWidget(self.cancel_button)
         self.findings.findingSelected.connect(self._on_finding_selected)
         self.diagram.view.meterClicked.connect(self._on_meter_clicked)
         self.point_actions = PointActions(self)
+        self.device_actions = DeviceActions(self)
+        self.tools = WindowTools(self)
         self._build_menus()
 
     def _action(self, text: str, handler, shortcut=None, tip: str = "") -> QAction:
@@ -135,14 +137,20 @@ class MainWindow(QMainWindow):
         site_menu.addSeparator()
         site_menu.addAction(self._action("Quit", self.close, QKeySequence.Quit))
         review = menu.addMenu("&Review")
-        for action in (self.review_action, self.settings_action, self.orders_action):
+        t = self.tools
+        for action in (self.review_action, t.period_action, self.settings_action,
+                       self.orders_action, t.csv_action, t.plot_action):
             review.addAction(action)
         point = menu.addMenu("&Point")
         point.addAction(self.goto_action)
         for name in ("next", "previous", None, "confirm", "reversed", "scale", "offset",
                      "repaired", "dismiss", "note", None, "undo"):
             point.addSeparator() if name is None else point.addAction(a[name])
+        point.addSeparator()
+        point.addAction(self.device_actions.correct_action)
+        point.addAction(self.device_actions.confirm_action)
         help_menu = menu.addMenu("&Help")
+        help_menu.addAction(t.guide_action)
         help_menu.addAction(self._action("Keyboard shortcuts", self._on_shortcuts_clicked))
         help_menu.addAction(self._action("About calibra", self._on_about_clicked))
         tools = self.addToolBar("Main")
@@ -240,6 +248,7 @@ class MainWindow(QMainWindow):
         if self.ledger is not None:
             self.ledger.close()
         self.site, self.run, self.figures = site, None, []
+        self.tools.period = (None, None)  # a new site is reviewed over all its snapshots
         self.ledger = Ledger.for_site(site.path)
         settings_problem = ""
         try:
@@ -260,7 +269,7 @@ class MainWindow(QMainWindow):
         self.show_point(None, None)
         self.recent.add(site.path)
         self._fill_recent()
-        self.setWindowTitle(f"calibra — {site.name}")
+        self.setWindowTitle(window_title(site.name))
         n = len(site.problems)
         self.say(f"Loaded {site.name}" + (f" with {n} load warning(s) (see Site)" if n else ""))
         if settings_problem:
@@ -277,10 +286,12 @@ class MainWindow(QMainWindow):
             return
         settings = self.settings.review_settings()
         folder = site.path
+        start, end = self.tools.period
 
         def job(progress):
             with Ledger.for_site(folder) as ledger:  # this thread's own connection
-                return run_review(site, settings, ledger=ledger, progress=progress)
+                return run_review(site, settings, start, end, ledger=ledger,
+                                  progress=progress)
 
         self.progress.setRange(0, 0)
         self._show_busy(True)
@@ -289,6 +300,7 @@ class MainWindow(QMainWindow):
 
     def _apply_run(self, run: ReviewRun) -> None:
         self.run = run
+        self.diagram.set_result(run.result)
         self.figures.append(run_figures(run))
         self.view.set_review(run.findings)
         self.view.set_ledger(self.ledger.findings())

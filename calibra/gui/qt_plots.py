@@ -21,10 +21,18 @@ from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QLabel, QSizePolicy, QSplitter, QVBoxLayout, QWidget
 
 from calibra.gui.point_trace import PointTrace
+from calibra.gui.qt_plot_keys import PlotKey, span_text
 from calibra.gui.qt_style import COLOURS
 
 STRIP_ROWS = ("no value", "branch open", "no estimate")
 STRIP_KEYS = ("missing", "open", "unestimated")
+STRIP_HELP = (
+    "Lanes mark snapshots where the point cannot be compared with the network:\n"
+    "no value: no value of the point reached the historian;\n"
+    "branch open: the point's branch was out of service;\n"
+    "no estimate: the state estimate of that snapshot does not cover the point's buses (the "
+    "network around it was not observable, or the estimate failed), so nothing implies a "
+    "value for it.\nAn empty lane means it never happened in the period.")
 AXIS_WIDTH = 86  #: left axes share one width so the time plots line up
 
 
@@ -52,6 +60,17 @@ def _plot(parent: QWidget, date_axis: bool = True, **labels) -> pg.PlotWidget:
     return w
 
 
+def _with_key(key: QWidget, plot: QWidget, parent: QWidget) -> QWidget:
+    """A plot with its key above it, outside the data."""
+    box = QWidget(parent)
+    layout = QVBoxLayout(box)
+    layout.setContentsMargins(0, 0, 0, 0)
+    layout.setSpacing(0)
+    layout.addWidget(key)
+    layout.addWidget(plot, 1)
+    return box
+
+
 def _curve(plot: pg.PlotWidget, colour: str, width: float = 1.3, name: str | None = None,
            style=Qt.SolidLine) -> pg.PlotDataItem:
     item = plot.plot([], [], pen=pg.mkPen(colour, width=width, style=style), name=name,
@@ -73,15 +92,18 @@ class PlotPanel(QWidget):
         self.title.setSizePolicy(QSizePolicy.Preferred, QSizePolicy.Fixed)
 
         self.series = _plot(self, left="value")
-        self.series.addLegend(offset=(8, 4), labelTextSize="8pt")
+        self.series_key = PlotKey(self)
         self.strip = _plot(self)
+        self.strip.setToolTip(STRIP_HELP)
+        self.strip_key = PlotKey(self)
+        self.strip_key.setToolTip(STRIP_HELP)
         self.strip.setFixedHeight(96)
         self.strip.setMouseEnabled(x=True, y=False)
         self.strip.getAxis("left").setTicks([[(i, t) for i, t in enumerate(STRIP_ROWS)]])
         self.strip.setYRange(-0.7, len(STRIP_ROWS) + 0.1, padding=0)
         self.strip.getAxis("bottom").setStyle(showValues=False)
         self.residual = _plot(self, left="measured − implied")
-        self.residual.addLegend(offset=(8, 4), labelTextSize="8pt")
+        self.residual_key = PlotKey(self)
         self.scatter = _plot(self, date_axis=False, left="measured", bottom="implied")
         # The strip sits right under the series and shares its width: a plain link lines
         # them up. The residual plot is narrower, so its range follows by value instead.
@@ -96,6 +118,7 @@ class PlotPanel(QWidget):
         self.curves: dict[str, pg.GraphicsObject] = {
             "raw": _curve(self.series, c["raw"], 1.0, "as received", Qt.DotLine),
             "implied": _curve(self.series, c["implied"], 1.0, "network implies"),
+            "followed": _curve(self.series, c["followed"], 3.0, "reads instead"),
             "measured": _curve(self.series, c["measured"], 1.0, "measured"),
             "residual": _curve(self.residual, c["measured"], 1.0, "residual"),
             "model": _curve(self.residual, c["model_wide"], 4.0, "fitted error"),
@@ -121,17 +144,22 @@ class PlotPanel(QWidget):
         self.fit_line = pg.InfiniteLine(pos=(0, 0), angle=45, pen=pg.mkPen(c["model"], width=2))
         for item in (self.ref_plus, self.ref_minus, self.fit_line):
             self.scatter.addItem(item)
+        self.scatter_note = pg.TextItem("", color=c["axis"], anchor=(0.5, 0.5))
+        self.scatter.addItem(self.scatter_note, ignoreBounds=True)
+        self.scatter_key = PlotKey(self)
 
         lower = QSplitter(Qt.Horizontal, self)
-        lower.addWidget(self.residual)
-        lower.addWidget(self.scatter)
+        lower.addWidget(_with_key(self.residual_key, self.residual, self))
+        lower.addWidget(_with_key(self.scatter_key, self.scatter, self))
         lower.setSizes([460, 300])
         top = QWidget(self)
         top_layout = QVBoxLayout(top)
         top_layout.setContentsMargins(0, 0, 0, 0)
         top_layout.setSpacing(0)
+        top_layout.addWidget(self.series_key)
         top_layout.addWidget(self.series, 1)
         top_layout.addWidget(self.strip)
+        top_layout.addWidget(self.strip_key)
         split = QSplitter(Qt.Vertical, self)
         split.addWidget(top)
         split.addWidget(lower)
@@ -151,38 +179,84 @@ class PlotPanel(QWidget):
                 item.setData([], [])
             self.band.setRegion((0, 0))
             self.fit_line.setVisible(False)
+            for key in (self.series_key, self.residual_key, self.scatter_key, self.strip_key):
+                key.clear()
+            self._empty_scatter("")
+            for p in (self.series, self.residual):
+                p.setRange(xRange=(0, 1), yRange=(0, 1), padding=0)
             return
         x = trace.x
         unit = trace.unit
         self.series.setLabel("left", f"value ({unit})")
         self.residual.setLabel("left", f"measured − implied ({unit})")
         self.scatter.setLabel("left", f"measured ({unit})")
-        self.scatter.setLabel("bottom", f"implied ({unit})")
+        against = "reads instead" if trace.followed is not None else "implied"
+        self.scatter.setLabel("bottom", f"{against} ({unit})")
         self.curves["measured"].setData(x, trace.measured)
         self.curves["implied"].setData(x, trace.implied)
         raw = trace.raw if trace.raw is not None else np.array([])
         self.curves["raw"].setData(x[: raw.size], raw)
+        followed = trace.followed if trace.followed is not None else np.array([])
+        self.curves["followed"].setData(x[: followed.size], followed)
         self.curves["residual"].setData(x, trace.residual)
         model = trace.model_residual
         self.curves["model"].setData(x[: 0 if model is None else model.size],
                                      np.array([]) if model is None else model)
         masks = (trace.missing, trace.out_of_service, trace.not_estimated)
+        lanes = []
         for row, (key, mask) in enumerate(zip(STRIP_KEYS, masks, strict=True)):
             xs = mask_runs(x, mask)
             self.curves[f"strip_{key}"].setData(xs, np.full(xs.size, float(row)),
                                                 connect="pairs")
+            lanes.append((COLOURS[f"strip_{key}"],
+                          f"{STRIP_ROWS[row]}: {span_text(int(mask.sum()), x)}"))
+        self.strip_key.show_entries(lanes)
         band = trace.band if math.isfinite(trace.band) else 0.0
         self.band.setRegion((-band, band))
-        self.curves["scatter"].setData(*trace.scatter())
-        if trace.slope is not None:
+        points = trace.scatter()
+        self.curves["scatter"].setData(*points)
+        if trace.slope is not None and trace.followed is None:
             self.fit_line.setAngle(math.degrees(math.atan(trace.slope)))
             self.fit_line.setPos((0.0, trace.intercept))
             self.fit_line.setVisible(True)
         else:
             self.fit_line.setVisible(False)
-        self._legend_model(trace.model_label)
-        for p in (self.series, self.residual, self.scatter):
+        self._fill_keys(trace)
+        for p in (self.series, self.residual):
             p.enableAutoRange()
+        if points[0].size:
+            self.scatter_note.setText("")
+            self.scatter.enableAutoRange()
+        else:
+            self._empty_scatter("no implied values")
+
+    def _empty_scatter(self, note: str) -> None:
+        """No pairs: a neutral range (not the previous point's) and a note why."""
+        self.curves["scatter"].setData([], [])
+        self.scatter.disableAutoRange()
+        self.scatter.setRange(xRange=(-1, 1), yRange=(-1, 1), padding=0)
+        self.scatter_note.setText(note)
+        self.scatter_note.setPos(0, 0)
+
+    def _fill_keys(self, trace: PointTrace) -> None:
+        c = COLOURS
+        series = [(c["measured"], "measured"), (c["implied"], "network implies")]
+        if trace.raw is not None:
+            series.append((c["raw"], "as received"))
+        if trace.followed is not None:
+            series.append((c["followed"], f"reads instead: {trace.followed_label}"))
+        self.series_key.show_entries(series)
+        residual = [(c["measured"], "residual"), (c["band_edge"], "accuracy class band")]
+        residual.append((c["model_wide"], trace.model_label or "no fault model"))
+        self.residual_key.show_entries(residual)
+        if trace.followed is not None:
+            scatter = [(c["scatter"], "measured against what it reads instead")]
+        else:
+            scatter = [(c["scatter"], "measured against implied"),
+                       (c["reference"], "±1: right or reversed sign")]
+            if trace.slope is not None:
+                scatter.append((c["model"], "fitted line"))
+        self.scatter_key.show_entries(scatter)
 
     def _on_series_range(self, _view, span) -> None:
         self._follow(self.residual, span)
@@ -198,11 +272,3 @@ class PlotPanel(QWidget):
             plot.setXRange(*span, padding=0)
         finally:
             self._syncing = False
-
-    def _legend_model(self, label: str) -> None:
-        legend = self.residual.getPlotItem().legend
-        if legend is None:
-            return
-        for sample, text in legend.items:
-            if sample.item is self.curves["model"]:
-                text.setText(label or "no fault model")

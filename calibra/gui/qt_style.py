@@ -15,6 +15,7 @@ COLOURS = {
     "measured": "#176b87",
     "implied": "#e08a1e",
     "raw": "#98a3ab",
+    "followed": "#4f8f3a",
     "model": "#a4286a",
     "model_wide": "#dfb3cb",
     "scatter": "#176b8766",

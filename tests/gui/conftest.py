@@ -22,18 +22,22 @@ protect_singletons()  # before the many Qt calls of the suite (see calibra/gui/q
 #: The seeded fault of the small site: CT polarity reversed on both power channels of one
 #: device (the simulator negates the values it writes).
 REVERSED_TAGS = ("BRN.110.MRG1.MW", "BRN.110.MRG1.MVAR")
+#: The other seeded fault some tests use: the P and Q inputs of one device swapped.
+MISMAPPED_TAGS = ("NRC.110.MRG1.MW", "NRC.110.MRG1.MVAR")
 ORIGINAL_PERIODS = 720  #: twelve hours of one-minute snapshots: a review takes a few seconds
 
 
-def _small_site(folder: Path) -> None:
-    """The invented sample grid for twelve hours with one seeded fault (a reversed CT)."""
+def _small_site(folder: Path, mismapped: bool = False) -> None:
+    """The invented sample grid for twelve hours with one seeded fault: a reversed CT, or with
+    ``mismapped`` the P and Q inputs of device NRC.110.MRG1 swapped."""
     from calibra.simulate import sample_site as ss
     from calibra.simulate.telemetry import simulate_site
     from calibra.simulate.writer import write_site
 
     case = ss.tarrowmere_case()
     points = ss.sample_points(case, 7)
-    faults = [f for f in ss.sample_faults(points) if set(f.tags) == set(REVERSED_TAGS)]
+    wanted = set(MISMAPPED_TAGS if mismapped else REVERSED_TAGS)
+    faults = [f for f in ss.sample_faults(points) if set(f.tags) == wanted]
     assert len(faults) == 1
     result = simulate_site(case, points, start=ss.START_LOCAL, periods=ORIGINAL_PERIODS,
                            timezone=ss.TIMEZONE, seed=7, faults=faults, outages=None,
@@ -63,6 +67,15 @@ def reviewed(site_template) -> tuple:
     site = load_site(site_template)
     run: ReviewRun = run_review(site)
     return site, run
+
+
+@pytest.fixture(scope="session")
+def mismapped_reviewed(tmp_path_factory) -> tuple:
+    """(site, run) of the small site with P and Q of one device swapped, reviewed."""
+    folder = tmp_path_factory.mktemp("mismapped") / "site"
+    _small_site(folder, mismapped=True)
+    site = load_site(folder)
+    return site, run_review(site)
 
 
 @pytest.fixture(autouse=True)

@@ -66,4 +66,4 @@ def test_run_app_shows_the_site_and_closes_cleanly(qapp, site_folder):
         assert launch.run(args) == 0
     finally:
         qapp.setQuitOnLastWindowClosed(True)
-    assert state == {"title": "calibra — Small test grid", "icon": True}
+    assert state == {"title": "Small test grid — calibra", "icon": True}

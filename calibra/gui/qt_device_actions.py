@@ -1,0 +1,92 @@
+"""Device-level actions: one decision for every open finding of the selected point's device,
+as ``calibra ledger SITE correct DEVICE`` does (one CT polarity fix corrects P and Q)."""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import pandas as pd
+from PySide6.QtGui import QAction, QKeySequence
+
+from calibra.ledger import LedgerError
+
+if TYPE_CHECKING:
+    from calibra.gui.qt_main import MainWindow
+
+#: Finding kinds a software correction can undo.
+CORRECTABLE = ("reversed", "scale", "offset")
+#: States still waiting for a decision (a correction is not asked twice).
+UNDECIDED = ("new", "confirmed")
+
+
+class DeviceActions:
+    """``correct`` and ``confirm`` for all open findings of the current point's device."""
+
+    def __init__(self, window: MainWindow):
+        self.w = window
+        self.correct_action = QAction("Correct whole device (fitted values)", window)
+        self.correct_action.setShortcut(QKeySequence("Ctrl+Alt+R"))
+        self.correct_action.setStatusTip("Correct every open reversed, scale or offset finding "
+                                         "of the selected point's device with its fitted value")
+        self.correct_action.triggered.connect(lambda _=False: self.correct_device())
+        self.confirm_action = QAction("Confirm whole device", window)
+        self.confirm_action.setStatusTip("Confirm every new finding of the selected point's "
+                                         "device")
+        self.confirm_action.triggered.connect(lambda _=False: self.confirm_device())
+
+    def device_findings(self) -> pd.DataFrame:
+        """The undecided findings of the current point's device in the latest review."""
+        w = self.w
+        if w.site is None or w.current_tag is None or w.current_tag not in w.site.points.index:
+            return pd.DataFrame()
+        device = str(w.site.points.at[w.current_tag, "device"])
+        table = w.view.table()
+        if table.empty:
+            return table
+        return table[(table["device"] == device) & table["state"].isin(UNDECIDED)
+                     & table["in_review"]]
+
+    def correct_device(self) -> list[str]:
+        """Correct each point of the device once, by its first correctable finding."""
+        rows = self.device_findings()
+        rows = rows[rows["finding"].isin(CORRECTABLE)] if len(rows) else rows
+        if rows.empty:
+            self.w.say("The selected point's device has no open finding that a software "
+                       "correction can undo.")
+            return []
+        led, done = self.w.ledger, []
+        try:
+            for tag, group in rows.groupby("tag", sort=True):
+                r = group.iloc[0]
+                if r["finding"] == "reversed":
+                    led.mark_reversed(tag)
+                    done.append(f"{tag} sign reversed")
+                elif r["finding"] == "scale" and pd.notna(r["factor"]):
+                    led.apply_scale(tag, float(r["factor"]))
+                    done.append(f"{tag} × {float(r['factor']):g}")
+                elif r["finding"] == "offset" and pd.notna(r["offset"]):
+                    led.apply_offset(tag, float(r["offset"]))
+                    done.append(f"{tag} offset {float(r['offset']):+g}")
+        except (LedgerError, ValueError) as exc:
+            self.w.say(f"Device correction stopped: {exc}", warn=True)
+        if done:
+            self.w.after_ledger_change("corrected in software: " + ", ".join(done))
+        return done
+
+    def confirm_device(self) -> list[str]:
+        """Confirm each new finding of the device."""
+        rows = self.device_findings()
+        rows = rows[rows["state"] == "new"] if len(rows) else rows
+        if rows.empty:
+            self.w.say("The selected point's device has no new finding to confirm.")
+            return []
+        done = []
+        try:
+            for fid in rows["finding_id"]:
+                self.w.ledger.confirm(fid)
+                done.append(str(fid))
+        except (LedgerError, ValueError) as exc:
+            self.w.say(f"Device confirmation stopped: {exc}", warn=True)
+        if done:
+            self.w.after_ledger_change("confirmed: " + ", ".join(done))
+        return done
