@@ -42,6 +42,7 @@ from calibra.gui.qt_tools import WindowTools
 from calibra.gui.run_compare import RunFigures, run_figures
 from calibra.io import load_site
 from calibra.ledger import Ledger
+from calibra.model.points import end_place, quantity_words
 from calibra.model.site import Site, SiteLoadError
 from calibra.review_run import ReviewRun, run_review
 
@@ -356,8 +357,9 @@ class MainWindow(QMainWindow):
             self.diagram.show_point(None, set())
             return
         pt = site.points.loc[tag]
-        head = f"{tag} — {pt['quantity']} of {pt['element']}"
-        head += f" ({pt['end']} end)" if str(pt.get("end", "") or "") else ""
+        place = end_place(site.network.buses, site.network.branches, str(pt["element"]),
+                          str(pt.get("end", "") or ""))
+        head = f"{tag} — {quantity_words(str(pt['quantity']), str(pt['element']), place)}"
         if row is not None:
             head += f" — {row['finding']}, {row['state']}"
         trace = point_trace(site, self.run.result, tag) if self.run is not None else None
