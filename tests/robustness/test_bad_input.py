@@ -89,6 +89,22 @@ def test_the_valid_site_loads_without_problems():
     assert site.snapshots.notna().all().all()
 
 
+def test_a_nul_byte_in_a_snapshot_cell_is_reported_at_its_cell():
+    """Found by the mutation property below: pandas' C parser ends a cell at a NUL byte, so
+    the cell was read as empty without a word (common practice, no source)."""
+    files, _ = valid()
+    name = next(f for f in files if f.startswith("snapshots/"))
+    lines = files[name].split(b"\n")
+    header, row = lines[0].split(b","), lines[1].split(b",")
+    row[1] = b"\x00"
+    lines[1] = b",".join(row)
+    site, problems = _loaded_site({**files, name: b"\n".join(lines)})
+    tag = header[1].decode()
+    assert site is not None and pd.isna(site.snapshots[tag].iloc[0])
+    assert any(p.file == name and p.row == 2 and p.column == tag and "not a number" in p.message
+               for p in problems), [str(p) for p in problems]
+
+
 @examples(1250)
 @given(st.data())
 def test_each_mutation_is_loaded_as_written_or_reported(data):
