@@ -78,6 +78,7 @@ class MainWindow(QMainWindow):
         self._draw_point()
 
     # ---- the session, read from its state -----------------------------------------------
+    # Read-only: actions change the session through ``self.state``, whose changes redraw.
     @property
     def site(self) -> Site | None:
         return self.state.site
