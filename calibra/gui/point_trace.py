@@ -8,6 +8,7 @@ Times are wall-clock seconds in the site's timezone (so the axis reads local tim
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -15,6 +16,7 @@ import pandas as pd
 
 from calibra.diagnosis.mismap import QuantityEvaluator, substation_quantities
 from calibra.diagnosis.review import ReviewResult
+from calibra.ledger import Correction
 from calibra.model.site import Site
 
 _BRANCH_QUANTITIES = ("p_flow", "q_flow", "i_magnitude", "branch_status")
@@ -68,8 +70,28 @@ def wall_clock_seconds(index: pd.DatetimeIndex, timezone: str) -> np.ndarray:
     return (local - pd.Timestamp("1970-01-01")).total_seconds().to_numpy()
 
 
-def point_trace(site: Site, result: ReviewResult, tag: str) -> PointTrace | None:
-    """The plot arrays of ``tag`` from a review; None when the review did not judge it."""
+def corrected_snapshots(corrections: Sequence[Correction], tag: str,
+                        index: pd.DatetimeIndex) -> np.ndarray:
+    """bool per snapshot of ``index``: a software correction that changes values (gain other
+    than 1 or a bias) was in force on ``tag``."""
+    hit = np.zeros(len(index), bool)
+    for c in corrections:
+        if c.tag != tag or (c.gain == 1.0 and c.bias == 0.0):
+            continue
+        inside = np.ones(len(index), bool)
+        if c.valid_from is not None:
+            inside &= index >= c.valid_from
+        if c.valid_until is not None:
+            inside &= index < c.valid_until
+        hit |= inside
+    return hit
+
+
+def point_trace(site: Site, result: ReviewResult, tag: str,
+                corrections: Sequence[Correction] = ()) -> PointTrace | None:
+    """The plot arrays of ``tag`` from a review; None when the review did not judge it.
+    ``corrections``: the software corrections the review applied (``ReviewRun.corrections``);
+    the values as received are kept when one of them changed a value of the point."""
     ev = result.evidence
     if tag not in ev.model.tags:
         return None
@@ -80,8 +102,9 @@ def point_trace(site: Site, result: ReviewResult, tag: str) -> PointTrace | None
     raw = None
     if tag in site.snapshots.columns:
         received = site.snapshots[tag].reindex(ev.index).to_numpy(float)
-        both = np.isfinite(received) & np.isfinite(measured)
-        if not np.allclose(received[both], measured[both], rtol=1e-5, atol=1e-4):
+        changed = (corrected_snapshots(corrections, str(tag), ev.index)
+                   & np.isfinite(received) & np.isfinite(measured))
+        if changed.any():
             raw = received
     out = np.zeros(len(ev.index), bool)
     if str(pt["quantity"]) in _BRANCH_QUANTITIES:

@@ -24,6 +24,7 @@ class DeviceActions:
 
     def __init__(self, window: MainWindow):
         self.w = window
+        self.state = window.state
         self.correct_action = QAction("Correct whole device (fitted values)", window)
         self.correct_action.setShortcut(QKeySequence("Ctrl+Alt+R"))
         self.correct_action.setStatusTip("Correct every open reversed, scale or offset finding "
@@ -36,11 +37,11 @@ class DeviceActions:
 
     def device_findings(self) -> pd.DataFrame:
         """The undecided findings of the current point's device in the latest review."""
-        w = self.w
-        if w.site is None or w.current_tag is None or w.current_tag not in w.site.points.index:
+        state = self.state
+        if state.site is None or state.tag is None or state.tag not in state.site.points.index:
             return pd.DataFrame()
-        device = str(w.site.points.at[w.current_tag, "device"])
-        table = w.view.table()
+        device = str(state.site.points.at[state.tag, "device"])
+        table = state.view.table()
         if table.empty:
             return table
         return table[(table["device"] == device) & table["state"].isin(UNDECIDED)
@@ -54,7 +55,7 @@ class DeviceActions:
             self.w.say("The selected point's device has no open finding that a software "
                        "correction can undo.")
             return []
-        led, done = self.w.ledger, []
+        led, done = self.state.ledger, []
         try:
             for tag, group in rows.groupby("tag", sort=True):
                 r = group.iloc[0]
@@ -70,7 +71,8 @@ class DeviceActions:
         except (LedgerError, ValueError) as exc:
             self.w.say(f"Device correction stopped: {exc}", warn=True)
         if done:
-            self.w.after_ledger_change("corrected in software: " + ", ".join(done))
+            self.state.ledger_written()
+            self.w.report_written("corrected in software: " + ", ".join(done))
         return done
 
     def confirm_device(self) -> list[str]:
@@ -83,10 +85,11 @@ class DeviceActions:
         done = []
         try:
             for fid in rows["finding_id"]:
-                self.w.ledger.confirm(fid)
+                self.state.ledger.confirm(fid)
                 done.append(str(fid))
         except (LedgerError, ValueError) as exc:
             self.w.say(f"Device confirmation stopped: {exc}", warn=True)
         if done:
-            self.w.after_ledger_change("confirmed: " + ", ".join(done))
+            self.state.ledger_written()
+            self.w.report_written("confirmed: " + ", ".join(done))
         return done

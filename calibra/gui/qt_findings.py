@@ -1,8 +1,10 @@
 """The findings list: filters above a tree grouped by substation and device.
 
-The tree is rebuilt from :class:`~calibra.gui.findings_view.FindingsView` whenever the data or
-a filter changes (a week's findings are a few dozen rows); clicking a column header sorts
-within each group. Substations under commissioning are listed first and marked.
+The panel observes the session state (:class:`~calibra.gui.session_state.SessionState`): the
+tree is rebuilt from its :class:`~calibra.gui.findings_view.FindingsView` whenever the data or
+the filter changes (a week's findings are a few dozen rows); the filter widgets change the
+state's filter. Clicking a column header sorts within each group. Substations under
+commissioning are listed first and marked.
 """
 
 from __future__ import annotations
@@ -29,6 +31,7 @@ from PySide6.QtWidgets import (
 from calibra.diagnosis.findings import FINDING_KINDS
 from calibra.gui.findings_view import FindingFilter, FindingsView, confidence_text, neighbour
 from calibra.gui.qt_style import COLOURS, state_dot
+from calibra.gui.session_state import Change, SessionState
 from calibra.ledger import STATES
 
 ID_ROLE = Qt.UserRole + 1
@@ -53,9 +56,9 @@ class FindingsPanel(QWidget):
 
     findingSelected = Signal(str, str)
 
-    def __init__(self, view: FindingsView, parent: QWidget | None = None):
+    def __init__(self, session: SessionState, parent: QWidget | None = None):
         super().__init__(parent)
-        self.view = view
+        self.session = session
         self.search = QLineEdit(self)
         self.search.setPlaceholderText("Search tags…")
         self.search.setClearButtonEnabled(True)
@@ -120,6 +123,19 @@ class FindingsPanel(QWidget):
         self.tree.selectionModel().currentChanged.connect(self._on_current_changed)
         self._updating = False
         self.refresh()
+        session.changed.connect(self._on_state_changed)
+
+    @property
+    def view(self) -> FindingsView:
+        """The findings of the session, with their filter."""
+        return self.session.view
+
+    def _on_state_changed(self, change: Change) -> None:
+        if change in (Change.SITE, Change.REVIEW):
+            self.refresh_choices()
+            self.refresh()
+        elif change in (Change.LEDGER, Change.FILTER):
+            self.refresh()
 
     # ---- filters ------------------------------------------------------------------------
     def refresh_choices(self) -> None:
@@ -153,11 +169,10 @@ class FindingsPanel(QWidget):
             self.focus.blockSignals(False)
         subs = frozenset(self.view.focus) if self.focus.isChecked() else (
             frozenset() if sub in (None, ALL) else frozenset([sub]))
-        self.view.filter = FindingFilter(
+        self.session.set_filter(FindingFilter(
             substations=subs, kind=self.kind.currentData() or "",
             state=self.state.currentData() or "", min_confidence=self.confidence.value(),
-            search=self.search.text(), include_earlier=self.earlier.isChecked())
-        self.refresh()
+            search=self.search.text(), include_earlier=self.earlier.isChecked()))
 
     # ---- tree ---------------------------------------------------------------------------
     def refresh(self) -> None:

@@ -26,8 +26,7 @@ from calibra.app_settings import (
     save_site_settings,
     settings_path,
 )
-from calibra.gui.findings_view import FindingsView, commissioning_substations
-from calibra.gui.point_trace import point_trace
+from calibra.gui.findings_view import FindingsView
 from calibra.gui.qt_details import DetailTabs
 from calibra.gui.qt_device_actions import DeviceActions
 from calibra.gui.qt_diagram import DiagramPanel
@@ -39,7 +38,8 @@ from calibra.gui.qt_point_actions import PointActions
 from calibra.gui.qt_status import StatusArea
 from calibra.gui.qt_style import app_icon
 from calibra.gui.qt_tools import WindowTools
-from calibra.gui.run_compare import RunFigures, run_figures
+from calibra.gui.run_compare import RunFigures
+from calibra.gui.session_state import Change, SessionState
 from calibra.io import load_site
 from calibra.ledger import Ledger
 from calibra.model.points import end_place, quantity_words
@@ -63,29 +63,57 @@ class MainWindow(QMainWindow):
         self.resize(1560, 920)
         self.recent = recent or RecentSites()
         self.review_on_open = review_on_open
-        self.site: Site | None = None
-        self.ledger: Ledger | None = None
-        self.settings = SiteSettings()
-        self.run: ReviewRun | None = None
-        self.figures: list[RunFigures] = []
-        self.current_finding: str | None = None
-        self.current_tag: str | None = None
+        self.state = SessionState()
         self.prompts = Prompts(self)
         self.dialogs: list[QWidget] = []  # non-modal dialogs kept alive
-        self.view = FindingsView()
         self.jobs = JobRunner(self)
         self._build()
+        self.state.changed.connect(self._on_state_changed)
         self.jobs.progressed.connect(self._on_job_progress)
         self.jobs.finished.connect(self._on_job_finished)
         self.jobs.failed.connect(self._on_job_failed)
         self.jobs.cancelled.connect(self._on_job_cancelled)
         self.jobs.idle.connect(self._on_job_idle)
         self._show_busy(False)
-        self.show_point(None, None)
+        self._draw_point()
+
+    # ---- the session, read from its state -----------------------------------------------
+    # Read-only: actions change the session through ``self.state``, whose changes redraw.
+    @property
+    def site(self) -> Site | None:
+        return self.state.site
+
+    @property
+    def ledger(self) -> Ledger | None:
+        return self.state.ledger
+
+    @property
+    def settings(self) -> SiteSettings:
+        return self.state.settings
+
+    @property
+    def run(self) -> ReviewRun | None:
+        return self.state.run
+
+    @property
+    def figures(self) -> list[RunFigures]:
+        return self.state.figures
+
+    @property
+    def view(self) -> FindingsView:
+        return self.state.view
+
+    @property
+    def current_finding(self) -> str | None:
+        return self.state.finding_id
+
+    @property
+    def current_tag(self) -> str | None:
+        return self.state.tag
 
     # ---- layout -------------------------------------------------------------------------
     def _build(self) -> None:
-        self.findings = FindingsPanel(self.view, self)
+        self.findings = FindingsPanel(self.state, self)
         self.plots = PlotPanel(self)
         self.diagram = DiagramPanel(self)
         self.details = DetailTabs(self)
@@ -246,28 +274,14 @@ class MainWindow(QMainWindow):
         self.jobs.start("loading", lambda progress: load_site(folder))
 
     def _apply_site(self, site: Site) -> None:
-        if self.ledger is not None:
-            self.ledger.close()
-        self.site, self.run, self.figures = site, None, []
-        self.tools.period = (None, None)  # a new site is reviewed over all its snapshots
-        self.ledger = Ledger.for_site(site.path)
         settings_problem = ""
         try:
-            self.settings = load_site_settings(site.path)
+            settings = load_site_settings(site.path)
         except SettingsError as exc:
-            self.settings = SiteSettings()
+            settings = SiteSettings()
             settings_problem = f"{exc}. Using the default settings until they are saved again."
-        focus = commissioning_substations(site.points, site.snapshots)
-        self.view = FindingsView(focus)
-        self.findings.view = self.view
-        self.view.set_ledger(self.ledger.findings())
-        self.findings.refresh_choices()
-        self.findings.refresh()
-        self.diagram.set_site(site, focus)
-        self.details.show_site(site)
-        self.details.setCurrentWidget(self.details.site_page)  # what was loaded, first
-        self.details.show_runs(None, None)
-        self.show_point(None, None)
+        # A new site is reviewed over all its snapshots, with nothing selected.
+        self.state.open_site(site, Ledger.for_site(site.path), settings)
         self.recent.add(site.path)
         self._fill_recent()
         self.setWindowTitle(window_title(site.name))
@@ -287,7 +301,7 @@ class MainWindow(QMainWindow):
             return
         settings = self.settings.review_settings()
         folder = site.path
-        start, end = self.tools.period
+        start, end = self.state.period
 
         def job(progress):
             with Ledger.for_site(folder) as ledger:  # this thread's own connection
@@ -300,15 +314,8 @@ class MainWindow(QMainWindow):
         self.jobs.start("review", job)
 
     def _apply_run(self, run: ReviewRun) -> None:
-        self.run = run
-        self.diagram.set_result(run.result)
-        self.figures.append(run_figures(run))
-        self.view.set_review(run.findings)
-        self.view.set_ledger(self.ledger.findings())
-        self.findings.refresh_choices()
-        self.findings.refresh()
-        before = self.figures[-2] if len(self.figures) > 1 else None
-        self.details.show_runs(before, self.figures[-1])
+        self.state.review_finished(run)
+        before = self.state.compared_figures()[0]
         s = run.result.summary
         text = (f"Review done in {run.seconds:.1f} s: {len(run.findings)} finding(s), "
                 f"{s['chi2_failed']:,} chi-square failure(s) of {s['converged']:,} "
@@ -319,23 +326,69 @@ class MainWindow(QMainWindow):
                      f"{before.chi2_failed_all_in} → {after.chi2_failed_all_in}, findings "
                      f"{before.findings} → {after.findings} (see Reviews)")
         self.say(text)
-        if self.details.currentWidget() is self.details.site_page:
-            self.details.setCurrentWidget(self.details.point)
-        if self.current_tag is not None:
-            self.show_point(self.current_finding, self.current_tag)
-        else:
+        if self.current_tag is None:
             self.findings.step(1)
+
+    # ---- views drawn from the state -----------------------------------------------------
+    def _on_state_changed(self, change: Change) -> None:
+        """Redraw what shows the part of the session that changed (the findings list
+        observes the state itself)."""
+        state = self.state
+        if change is Change.SITE:
+            site = state.site
+            self.diagram.set_site(site, state.view.focus)
+            self.details.show_site(site)
+            self.details.setCurrentWidget(self.details.site_page)  # what was loaded, first
+            self.details.show_runs(None, None)
+            self._draw_point()
+        elif change is Change.REVIEW:
+            self.diagram.set_result(state.run.result)
+            self.details.show_runs(*state.compared_figures())
+            if self.details.currentWidget() is self.details.site_page:
+                self.details.setCurrentWidget(self.details.point)
+            if state.tag is not None:
+                self._draw_point()
+        elif change in (Change.SELECTION, Change.LEDGER):
+            self._draw_point()
+
+    def _draw_point(self) -> None:
+        """Show the selected point everywhere: plots, diagram, details, history."""
+        state = self.state
+        site, tag = state.site, state.tag
+        if site is None or tag is None:
+            self.plots.show_trace(None, "Select a finding in the list")
+            self.details.show_point(None, None, None)
+            self.details.show_history(None, "UTC")
+            self.diagram.show_point(None, set())
+            return
+        row = state.finding_row()
+        pt = site.points.loc[tag]
+        place = end_place(site.network.buses, site.network.branches, str(pt["element"]),
+                          str(pt.get("end", "") or ""))
+        head = f"{tag} — {quantity_words(str(pt['quantity']), str(pt['element']), place)}"
+        if row is not None:
+            head += f" — {row['finding']}, {row['state']}"
+        trace = state.trace()
+        if trace is None:
+            why = ("run the review to see its week" if state.run is None
+                   else "the review does not judge this point")
+            self.plots.show_trace(None, f"{head} — {why}")
+        else:
+            self.plots.show_trace(trace, head)
+        self.details.show_point(site, tag, row)
+        self.details.show_history(state.history(), site.timezone)
+        self.diagram.show_point(tag, state.view.flagged_tags())
 
     # ---- selection ----------------------------------------------------------------------
     def _on_finding_selected(self, finding_id: str, tag: str) -> None:
-        self.show_point(finding_id, tag)
+        self.state.select(finding_id, tag)
 
     def _on_meter_clicked(self, tag: str) -> None:
         table = self.view.table()
         hits = table[table["tag"] == tag]
         if len(hits) and self.findings.select(hits.iloc[0]["finding_id"]):
             return
-        self.show_point(None, tag)
+        self.state.select(None, tag)
 
     def _on_goto_clicked(self) -> None:
         if self.site is None:
@@ -345,44 +398,8 @@ class MainWindow(QMainWindow):
         if ok and tag in self.site.points.index:
             self._on_meter_clicked(tag)
 
-    def show_point(self, finding_id: str | None, tag: str | None) -> None:
-        """Show one point everywhere: plots, diagram, details, history."""
-        self.current_finding, self.current_tag = finding_id, tag
-        site = self.site
-        row = self.view.row(finding_id) if finding_id else None
-        if site is None or tag is None:
-            self.plots.show_trace(None, "Select a finding in the list")
-            self.details.show_point(None, None, None)
-            self.details.show_history(None, "UTC")
-            self.diagram.show_point(None, set())
-            return
-        pt = site.points.loc[tag]
-        place = end_place(site.network.buses, site.network.branches, str(pt["element"]),
-                          str(pt.get("end", "") or ""))
-        head = f"{tag} — {quantity_words(str(pt['quantity']), str(pt['element']), place)}"
-        if row is not None:
-            head += f" — {row['finding']}, {row['state']}"
-        trace = point_trace(site, self.run.result, tag) if self.run is not None else None
-        if trace is None:
-            why = ("run the review to see its week" if self.run is None
-                   else "the review does not judge this point")
-            self.plots.show_trace(None, f"{head} — {why}")
-        else:
-            self.plots.show_trace(trace, head)
-        self.details.show_point(site, tag, row)
-        history = self.ledger.history(tag=tag) if self._tag_in_ledger(tag) else None
-        self.details.show_history(history, site.timezone)
-        self.diagram.show_point(tag, self.view.flagged_tags())
-
-    def _tag_in_ledger(self, tag: str) -> bool:
-        table = self.view.table()
-        return self.ledger is not None and bool((table["tag"] == tag).any())
-
-    def after_ledger_change(self, message: str) -> None:
-        """Refresh states, list and history after an action was written to the ledger."""
-        self.view.set_ledger(self.ledger.findings())
-        self.findings.refresh()
-        self.show_point(self.current_finding, self.current_tag)
+    def report_written(self, message: str) -> None:
+        """Say that an action was written to the ledger (the state tells the views)."""
         self.say(message + " — written to the ledger; re-run the review (F5) to see the effect")
 
     # ---- settings, work orders, help ----------------------------------------------------
@@ -401,19 +418,12 @@ class MainWindow(QMainWindow):
         except (SettingsError, OSError) as exc:
             self.say(f"Settings not saved: {exc}", warn=True)
             return
-        self.settings = settings
+        self.state.set_settings(settings)
         self.say(f"Settings saved to {path}; they apply from the next review.")
 
     def work_order_findings(self) -> pd.DataFrame:
         """The findings behind the work orders, with the ledger's current states."""
-        states = self.ledger.findings()["state"] if self.ledger is not None else pd.Series()
-        if self.run is not None:
-            table = self.run.findings.copy()
-            table["state"] = table["finding_id"].map(states).fillna(table["state"])
-            return table
-        if self.ledger is None:
-            return pd.DataFrame()
-        return self.ledger.findings().reset_index()
+        return self.state.work_order_findings()
 
     def work_orders_dialog(self):
         """A work-order dialog for the current findings (not shown)."""
@@ -448,7 +458,5 @@ class MainWindow(QMainWindow):
         if self.jobs.busy:
             self.hide()  # the job stops at its next progress step; do not look frozen meanwhile
         self.jobs.shutdown()
-        if self.ledger is not None:
-            self.ledger.close()
-            self.ledger = None
+        self.state.close()
         super().closeEvent(event)

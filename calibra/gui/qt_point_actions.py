@@ -43,6 +43,7 @@ class PointActions:
 
     def __init__(self, window: MainWindow):
         self.w = window
+        self.state = window.state
         self.actions: dict[str, QAction] = {}
         handlers: dict[str, Callable[[], object]] = {
             "next": lambda: self.w.findings.step(1),
@@ -60,14 +61,11 @@ class PointActions:
             self.actions[name] = action
 
     # ---- helpers ------------------------------------------------------------------------
-    def _finding(self) -> pd.Series | None:
-        fid = self.w.current_finding
-        return None if fid is None else self.w.view.row(fid)
-
     def _do(self, what: str, call: Callable[[], object]) -> bool:
-        """Run one ledger call; report refusals; refresh everything on success."""
-        tag = self.w.current_tag
-        if self.w.ledger is None or tag is None:
+        """Run one ledger call; report refusals; on success the state reads the ledger again
+        (and its views redraw)."""
+        tag = self.state.tag
+        if self.state.ledger is None or tag is None:
             self.w.say("Select a point first.")
             return False
         try:
@@ -75,40 +73,41 @@ class PointActions:
         except (LedgerError, ValueError) as exc:
             self.w.say(f"{what}: {exc}", warn=True)
             return False
-        self.w.after_ledger_change(f"{tag}: {what}")
+        self.state.ledger_written()
+        self.w.report_written(f"{tag}: {what}")
         return True
 
     # ---- actions ------------------------------------------------------------------------
     def confirm(self) -> bool:
-        fid = self.w.current_finding
+        fid = self.state.finding_id
         if fid is None:
             self.w.say("Select a finding to confirm.")
             return False
-        return self._do("confirmed", lambda: self.w.ledger.confirm(fid))
+        return self._do("confirmed", lambda: self.state.ledger.confirm(fid))
 
     def mark_reversed(self) -> bool:
-        tag = self.w.current_tag
-        return self._do("marked reversed", lambda: self.w.ledger.mark_reversed(tag))
+        tag = self.state.tag
+        return self._do("marked reversed", lambda: self.state.ledger.mark_reversed(tag))
 
     def _ask_fitted(self, column: str, default: float, title: str, prompt: str) -> float | None:
         """Ask for a number, offering the finding's fitted ``column`` (else ``default``)."""
-        row = self._finding()
+        row = self.state.finding_row()
         fitted = row.get(column) if row is not None else None
         start = float(fitted) if fitted is not None and pd.notna(fitted) else default
         return self.w.prompts.number(title, prompt, start)
 
     def apply_scale(self, factor: float | None = None) -> bool:
-        tag = self.w.current_tag
+        tag = self.state.tag
         if factor is None and tag is not None:
             factor = self._ask_fitted("factor", 1.0, "Apply scale factor",
                                       f"{tag} reads factor × the true value; factor:")
             if factor is None:
                 return False
         return self._do(f"scale factor {factor:g} applied",
-                        lambda: self.w.ledger.apply_scale(tag, factor))
+                        lambda: self.state.ledger.apply_scale(tag, factor))
 
     def apply_offset(self, offset: float | None = None) -> bool:
-        tag = self.w.current_tag
+        tag = self.state.tag
         if offset is None and tag is not None:
             unit = self._unit(tag)
             offset = self._ask_fitted("offset", 0.0, "Apply offset",
@@ -118,14 +117,14 @@ class PointActions:
             if offset is None:
                 return False
         return self._do(f"offset {offset:+g} applied",
-                        lambda: self.w.ledger.apply_offset(tag, offset))
+                        lambda: self.state.ledger.apply_offset(tag, offset))
 
     def mark_repaired(self, at: pd.Timestamp | None = None) -> bool:
-        tag = self.w.current_tag
-        if at is None and tag is not None and self.w.site is not None:
+        tag = self.state.tag
+        if at is None and tag is not None and self.state.site is not None:
             # Default: the end of the reviewed data (a repair is usually entered afterwards
             # for a time the data reach), else the last snapshot, else now.
-            run, site = self.w.run, self.w.site
+            run, site = self.state.run, self.state.site
             default = (run.result.period_end if run is not None else
                        site.snapshots.index[-1] if len(site.snapshots) else
                        pd.Timestamp.now(tz="UTC"))
@@ -133,18 +132,18 @@ class PointActions:
                                      default, site.timezone)
             if at is None:
                 return False
-        zone = self.w.site.timezone if self.w.site is not None else "UTC"
+        zone = self.state.site.timezone if self.state.site is not None else "UTC"
         return self._do(f"marked repaired at {for_people(at, zone)}",
-                        lambda: self.w.ledger.mark_repaired(tag, at))
+                        lambda: self.state.ledger.mark_repaired(tag, at))
 
     def _unit(self, tag: str | None) -> str:
-        site = self.w.site
+        site = self.state.site
         if site is None or tag is None or tag not in site.points.index:
             return ""
         return str(site.points.at[tag, "unit"] or "")
 
     def dismiss(self, reason: str | None = None) -> bool:
-        fid = self.w.current_finding
+        fid = self.state.finding_id
         if fid is None:
             self.w.say("Select a finding to dismiss.")
             return False
@@ -155,10 +154,10 @@ class PointActions:
                                          "dismissed?")
             if reason is None:
                 return False
-        return self._do("dismissed", lambda: self.w.ledger.dismiss(fid, reason))
+        return self._do("dismissed", lambda: self.state.ledger.dismiss(fid, reason))
 
     def add_note(self, text: str | None = None) -> bool:
-        target = self.w.current_finding or self.w.current_tag
+        target = self.state.finding_id or self.state.tag
         if target is None:
             self.w.say("Select a point first.")
             return False
@@ -166,11 +165,11 @@ class PointActions:
             text = self.w.prompts.text("Add note", f"Note on {target}:")
             if text is None:
                 return False
-        return self._do("note added", lambda: self.w.ledger.add_note(target, text))
+        return self._do("note added", lambda: self.state.ledger.add_note(target, text))
 
     def undo(self) -> bool:
-        target = self.w.current_finding or self.w.current_tag
+        target = self.state.finding_id or self.state.tag
         if target is None:
             self.w.say("Select a point first.")
             return False
-        return self._do("last action undone", lambda: self.w.ledger.undo(target))
+        return self._do("last action undone", lambda: self.state.ledger.undo(target))

@@ -106,7 +106,7 @@ class WindowTools:
 
     def __init__(self, window: MainWindow):
         self.w = window
-        self.period: tuple[pd.Timestamp | None, pd.Timestamp | None] = (None, None)
+        self.state = window.state
         self.period_action = self._action("Review period…", self._on_period_clicked,
                                           "Choose the period to review, from and to")
         self.plot_action = self._action("Export plot…", self._on_export_plot_clicked,
@@ -126,12 +126,12 @@ class WindowTools:
 
     # ---- period -------------------------------------------------------------------------
     def period_dialog(self) -> PeriodDialog | None:
-        site = self.w.site
+        site = self.state.site
         if site is None or not len(site.snapshots):
             self.w.say("Open a site first.")
             return None
         index = site.snapshots.index
-        return PeriodDialog(index[0], index[-1], self.period, site.timezone, self.w)
+        return PeriodDialog(index[0], index[-1], self.state.period, site.timezone, self.w)
 
     def _on_period_clicked(self) -> None:
         dialog = self.period_dialog()
@@ -140,8 +140,8 @@ class WindowTools:
 
     def set_period(self, start: pd.Timestamp | None, end: pd.Timestamp | None) -> None:
         """Review ``start``…``end`` (UTC) from now on, starting with a review at once."""
-        self.period = (start, end)
-        zone = self.w.site.timezone if self.w.site is not None else "UTC"
+        self.state.set_period(start, end)
+        zone = self.state.site.timezone if self.state.site is not None else "UTC"
         self.w.say(f"Review period {for_people(start, zone)} to {for_people(end, zone)}")
         self.w.start_review()
 
@@ -150,7 +150,7 @@ class WindowTools:
         if self.w.plots.trace is None:
             self.w.say("Select a point with a review first: there is no plot to export.")
             return
-        name = f"{self.w.current_tag or 'plot'}.png".replace("|", "_")
+        name = f"{self.state.tag or 'plot'}.png".replace("|", "_")
         path, _ = QFileDialog.getSaveFileName(self.w, "Export plot", name,
                                               "PNG image (*.png);;SVG drawing (*.svg)")
         if path:
@@ -173,7 +173,7 @@ class WindowTools:
 
     def export_findings(self, path: Path) -> Path | None:
         """The findings the list shows (filters applied), one row each."""
-        table = self.w.view.visible()
+        table = self.state.view.visible()
         try:
             table.to_csv(path, index=False)
         except OSError as exc:
