@@ -94,6 +94,8 @@ def suggest_meters(site: Site, ev, points: np.ndarray) -> dict[int, dict]:
         # Sherman-Morrison; the new meter assumed of the same class as the point.
         s_new = cross ** 2 / (sig_i2 * (sig_i2 + var_j[cols]))
         j = _stable_best(s_new, cands[i])
+        if j < 0:  # no candidate with a finite gain (its states not in the estimate)
+            continue
         best = float(s_new[j])
         out[i] = {"suggestion": f"a meter of the {cands[i][j].label()}"
                   if best >= MIN_USEFUL_S else "", "sensitivity": best}
@@ -105,8 +107,13 @@ TIE_TOLERANCE = 1e-6
 
 
 def _stable_best(gains: np.ndarray, candidates: list[Quantity]) -> int:
-    """Position of the best candidate; equal gains (both ends of a radial line, rounding
-    noise) go to the first by (quantity, element, end), so every run suggests the same."""
+    """Position of the best candidate (-1 when no gain is finite); equal gains (both ends of a
+    radial line, rounding noise) go to the first by (quantity, element, end), so every run
+    suggests the same."""
+    finite = np.isfinite(gains)
+    if not finite.any():
+        return -1
+    gains = np.where(finite, gains, -np.inf)
     top = float(np.max(gains))
     tied = np.flatnonzero(gains >= top - TIE_TOLERANCE * max(abs(top), 1e-300))
     return int(min(tied, key=lambda j: _meter_key(candidates[j])))

@@ -50,3 +50,12 @@ def test_equal_gains_go_to_the_first_by_quantity_element_end():
         assert order[_stable_best(gains, order)] == b
     # a clearly larger gain wins whatever its key
     assert _stable_best(np.array([0.2, 0.9]), [b, a]) == 1
+
+
+def test_gains_that_are_not_finite_never_win_and_none_finite_gives_no_meter():
+    """A candidate whose buses the estimate does not cover has a NaN gain (found on PEGASE
+    1354 at 45 % metering, where it ended the review with 'min() arg is an empty sequence')."""
+    a = Quantity("p_flow", "L2", "to", "B")
+    b = Quantity("p_flow", "L2", "from", "A")
+    assert _stable_best(np.array([np.nan, 0.3]), [b, a]) == 1
+    assert _stable_best(np.array([np.nan, np.nan]), [b, a]) == -1
