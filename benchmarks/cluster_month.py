@@ -32,6 +32,7 @@ import pandas as pd
 import calibra  # noqa: F401  (single-threaded BLAS)
 from calibra.cluster import ClusterEngine, start_local_cluster
 from calibra.estimation.engine import LocalEngine
+from calibra.estimation.week import SolverSettings
 from calibra.io import load_site
 from calibra.review_period import select_period
 
@@ -108,8 +109,8 @@ def run(folder: Path, workers: int) -> None:
         engine = LocalEngine(workers=n_proc)
         for label, _, block, tol in PASSES:
             result, sec = _timed(lambda e=engine, r=rows[label], b=block, t=tol:
-                                 e.estimate(period, r, none, max_block=b, tolerance=t,
-                                            confidence=0.99))
+                                 e.estimate(period, r, none,
+                                            settings=SolverSettings(b, t, 0.99)))
             reference.setdefault(label, result)
             table.append((label, f"local, {n_proc} process{'es' * (n_proc > 1)}", sec,
                           len(rows[label])))
@@ -126,8 +127,8 @@ def run(folder: Path, workers: int) -> None:
             for attempt in ("first call, workers read the site", "second call"):
                 for label, _, block, tol in PASSES:
                     result, sec = _timed(lambda r=rows[label], b=block, t=tol:
-                                         engine.estimate(period, r, none, max_block=b,
-                                                         tolerance=t, confidence=0.99))
+                                         engine.estimate(period, r, none,
+                                                         settings=SolverSettings(b, t, 0.99)))
                     same = _same(reference[label], result)
                     table.append((label, f"cluster of {workers}, {attempt}"
                                   + ("" if same else " (DIFFERENT RESULTS)"), sec,

@@ -29,7 +29,7 @@ from calibra.cluster.period import (
 from calibra.cluster.worker import DayJob, DayResult, estimate_day
 from calibra.estimation.engine import LocalEngine
 from calibra.estimation.period import PreparedPeriod
-from calibra.estimation.week import PeriodResult
+from calibra.estimation.week import PeriodResult, SolverSettings
 from calibra.progress import Cancelled, Progress
 
 #: Seconds between looks at the cancel flag while waiting for the cluster.
@@ -84,8 +84,7 @@ class ClusterEngine:
 
     # ------------------------------------------------------------------ PeriodEngine
     def estimate(self, period: PreparedPeriod, rows: np.ndarray, set_aside: np.ndarray, *,
-                 max_block: int, tolerance: float, confidence: float, progress=None,
-                 by_day: bool = True) -> PeriodResult:
+                 settings: SolverSettings, progress=None, by_day: bool = True) -> PeriodResult:
         """Estimate snapshots ``rows`` (positions in ``period``) without the set-aside points.
 
         ``by_day=False`` (a thin sample whose blocks cross days, such as the screening's) is
@@ -94,8 +93,7 @@ class ClusterEngine:
         rows = np.asarray(rows, dtype=np.int64)
         progress = progress or self.progress
         if not by_day:
-            return LocalEngine().estimate(period, rows, set_aside, max_block=max_block,
-                                          tolerance=tolerance, confidence=confidence,
+            return LocalEngine().estimate(period, rows, set_aside, settings=settings,
                                           progress=progress, by_day=False)
         plan = self._planned(period)
         k = len(period.index)
@@ -105,8 +103,7 @@ class ClusterEngine:
         if set_aside.shape != (period.model.m,):
             raise ValueError(f"set_aside needs one flag per point ({period.model.m})")
         segments = self._segments(plan, rows)
-        jobs = [self._job(plan, rows[a:b], day, set_aside, max_block, tolerance, confidence)
-                for a, b, day in segments]
+        jobs = [self._job(plan, rows[a:b], day, set_aside, settings) for a, b, day in segments]
         results = self._run(jobs, [b - a for a, b, _ in segments], progress)
         return self._assemble(period, rows, segments, results)
 
@@ -140,13 +137,12 @@ class ClusterEngine:
         return [(int(a), int(b), int(day[a])) for a, b in zip(cut, ends, strict=True)]
 
     @staticmethod
-    def _job(plan: _Plan, rows: np.ndarray, day: int, set_aside: np.ndarray, max_block: int,
-             tolerance: float, confidence: float) -> DayJob:
+    def _job(plan: _Plan, rows: np.ndarray, day: int, set_aside: np.ndarray,
+             settings: SolverSettings) -> DayJob:
         first, end, digest = plan.days[day]
         index = plan.period.index
         return DayJob(plan.location, int(index[0].value), int(index[-1].value), plan.records,
-                      plan.site_digest, first, end, digest, rows, set_aside, int(max_block),
-                      float(tolerance), float(confidence), plan.held)
+                      plan.site_digest, first, end, digest, rows, set_aside, settings, plan.held)
 
     def _run(self, jobs: list[DayJob], sizes: list[int], progress) -> list[DayResult]:
         distributed = distributed_module()

@@ -30,6 +30,7 @@ from calibra.cluster.period import (
 )
 from calibra.estimation.engine import LocalEngine
 from calibra.estimation.runtime import tune_allocator
+from calibra.estimation.week import SolverSettings
 from calibra.io import load_site
 from calibra.io.point_list import POINTS_FILE
 from calibra.io.site_config import SITE_FILE
@@ -61,9 +62,7 @@ class DayJob:
     day_digest: str
     rows: np.ndarray  # snapshot positions in the period to estimate (all in this day)
     set_aside: np.ndarray  # bool per point
-    max_block: int
-    tolerance: float
-    confidence: float
+    settings: SolverSettings
     #: Points judged only after a time (a repair inside the period): (tag, UTC ns) pairs.
     held_out: tuple[tuple[str, int], ...] = ()
 
@@ -209,7 +208,6 @@ def estimate_day(job: DayJob) -> DayResult:
     prepared = prepared_period(job)
     _check(job, prepared)
     result = LocalEngine(workers=1).estimate(
-        prepared.period, job.rows, job.set_aside, max_block=job.max_block,
-        tolerance=job.tolerance, confidence=job.confidence)
+        prepared.period, job.rows, job.set_aside, settings=job.settings)
     return DayResult(result.vm, result.va, result.residual, result.omega, result.outcomes,
                      worker_name())

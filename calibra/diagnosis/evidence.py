@@ -24,14 +24,19 @@ from functools import partial
 import numpy as np
 import pandas as pd
 
-from calibra.diagnosis.suspects import PROBE_TOLERANCE, pick_suspects
+from calibra.diagnosis.suspects import (
+    PROBE_TOLERANCE,
+    ScreeningRound,
+    SuspectSettings,
+    pick_suspects,
+)
 from calibra.estimation.engine import LocalEngine, PeriodEngine
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.probes import ProbeSet
 from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_residuals
 from calibra.estimation.site_estimate import StatusConflict
-from calibra.estimation.week import PeriodResult
+from calibra.estimation.week import PeriodResult, SolverSettings
 from calibra.estimation.wls import Estimator, SnapshotEstimate
 from calibra.model.points import CT_QUANTITIES, POWER_QUANTITIES
 from calibra.model.site import Site
@@ -206,14 +211,14 @@ def gather_evidence(
     sub = screening_sample(z, in_service, step)
     z_sub, ins_sub = z[sub], in_service[sub]
     engine = engine or LocalEngine()
+    screening = SolverSettings(max(60, st.max_block // step), st.screening_tolerance,
+                               st.confidence)
     probe = np.unique(np.linspace(0, len(sub) - 1, min(st.probe_snapshots, len(sub))).astype(int))
     device_of, power = _device_index(site, model)
     for rnd in range(st.max_rounds if screen else 0):
         if progress is not None:
             progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
-        screened = engine.estimate(period, sub, set_aside,
-                                   max_block=max(60, st.max_block // step),
-                                   tolerance=st.screening_tolerance, confidence=st.confidence,
+        screened = engine.estimate(period, sub, set_aside, settings=screening,
                                    progress=_Stage(progress, f"screening round {rnd + 1}"),
                                    by_day=False)
         stat = _quantile_over_snapshots(_normalized(screened), st.screening_quantile)
@@ -231,9 +236,10 @@ def gather_evidence(
         # Residual correlations at the first probe snapshot, normalized by the screening's
         # residual variances there.
         omega = screened.omega[probe[0]].astype(float)
-        picked = pick_suspects(estimator, partial(probes.correlation, omega=omega), cand,
-                               stat, base, set_aside, probes, ins_sub[probe], device_of,
-                               st.normalized_threshold, power=power)
+        picked = pick_suspects(
+            ScreeningRound(estimator, partial(probes.correlation, omega=omega), cand, stat,
+                           base, set_aside, probes, ins_sub[probe], device_of, power),
+            SuspectSettings(st.normalized_threshold))
         if not picked:
             break
         set_aside[picked] = True
@@ -241,8 +247,8 @@ def gather_evidence(
 
     if progress is not None:
         progress.update(st.max_rounds, st.max_rounds + 2, "estimating the full period")
-    full = engine.estimate(period, np.arange(k), set_aside, max_block=st.max_block,
-                           tolerance=1e-8, confidence=st.confidence,
+    full = engine.estimate(period, np.arange(k), set_aside,
+                           settings=SolverSettings(st.max_block, 1e-8, st.confidence),
                            progress=_Stage(progress, "estimating the full period"))
     implied = _implied_values(model, z, full, set_aside, in_service, st.min_sensitivity)
     rep = _representative(estimator, z, in_service, set_aside, st.confidence)

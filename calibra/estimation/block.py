@@ -51,12 +51,12 @@ from calibra.estimation.wls import Estimator
 class BlockSolver:
     """Solves many snapshots of one topology around one reference state together."""
 
-    def __init__(self, estimator: Estimator, status: np.ndarray,
+    def __init__(self, estimator: Estimator, in_service: np.ndarray,
                  tolerance: float = BLOCK_TOLERANCE,
                  max_iterations: int = 40, partial: bool = False, statistics: bool = True):
         self.estimator = estimator
         self.model = estimator.model
-        self.status = status
+        self.in_service = in_service
         self.tolerance = tolerance
         self.max_iterations = max_iterations
         #: Accept a reference that is not fully observable (a block inside an RTU outage):
@@ -84,7 +84,7 @@ class BlockSolver:
         why = f"block iteration failed ({describe_error(exc)})"
         if k >= 2 * MIN_SPLIT:
             half = k // 2
-            parts = [BlockSolver(self.estimator, self.status, self.tolerance,
+            parts = [BlockSolver(self.estimator, self.in_service, self.tolerance,
                                  self.max_iterations, self.partial, self.statistics
                                  ).solve(Z[a:b], confidence)
                      for a, b in ((0, half), (half, k))]
@@ -172,7 +172,7 @@ class BlockSolver:
             members = rest[inverse.ravel() == g]
             if members.size < 4:
                 continue
-            sub = BlockSolver(self.estimator, self.status, self.tolerance, self.max_iterations,
+            sub = BlockSolver(self.estimator, self.in_service, self.tolerance, self.max_iterations,
                               partial=True, statistics=self.statistics
                               ).solve(Z[members], confidence)
             ok = sub.outcomes["method"].to_numpy() == "block"
@@ -192,7 +192,7 @@ class BlockSolver:
         base = avail.any(axis=0)
         if not base.any():
             return None
-        whole = self.estimator.observability(base, self.status)
+        whole = self.estimator.observability(base, self.in_service)
         if whole.n_islands == 0:
             return None
         # The block iterates around the reference's operating point: the snapshot nearest the
@@ -213,7 +213,7 @@ class BlockSolver:
         filled = nearest_in_time(Z) if not self.partial else Z
         for cand in order[:5]:
             # The block's tolerance is enough for a reference.
-            est = self.estimator.estimate(filled[cand], None, self.status,
+            est = self.estimator.estimate(filled[cand], None, self.in_service,
                                           tolerance=max(self.tolerance, 1e-8))
             if est.converged and (self.partial or est.observability.covers(whole)):
                 return est
@@ -222,7 +222,7 @@ class BlockSolver:
     def _prepare(self, ref, base: np.ndarray) -> None:
         """Iteration matrix K₀ at the reference state, K₀⁻¹'s state columns and Ωᵢᵢ of the
         base set."""
-        model, status = self.model, self.status
+        model, in_service = self.model, self.in_service
         funcs, cons = model.functions, model.constraints
         layout: StateLayout = ref.layout
         nx = layout.n_state
@@ -230,12 +230,12 @@ class BlockSolver:
         nc = cidx.size
         idx = np.flatnonzero(base)
         var = model.sigma_pu[idx] ** 2
-        H0 = funcs.jacobian(ref.vm, ref.va, layout, status)[idx].tocsr()
+        H0 = funcs.jacobian(ref.vm, ref.va, layout, in_service)[idx].tocsr()
         G0 = (H0.T @ sp.diags(1.0 / var) @ H0).tocsc()
-        C0 = cons.jacobian(ref.vm, ref.va, layout, status)[cidx]
+        C0 = cons.jacobian(ref.vm, ref.va, layout, in_service)[cidx]
         # Bus couplers make G₀ badly conditioned (near-parallel columns): work in variables
         # that separate their stiff differences (x = T x'), K₀⁻¹ = T_f K₀'⁻¹ T_fᵀ.
-        T = self._stiff = stiff_transform(model.network, layout, status)
+        T = self._stiff = stiff_transform(model.network, layout, in_service)
         Gn, Cn = (G0, sp.csr_matrix(C0)) if T is None else \
             ((T.T @ G0 @ T).tocsc(), sp.csr_matrix(C0) @ T)
         self._solve_k0 = kkt_solver(G0, C0, T)
@@ -310,7 +310,7 @@ class BlockSolver:
         avail = np.zeros(self.model.m, bool)
         avail[self._idx] = True
         avail[self._idx[missing]] = False
-        return self.estimator.observability(avail, self.status).covers(self._ref.observability)
+        return self.estimator.observability(avail, self.in_service).covers(self._ref.observability)
 
     def _k0_columns(self, rows: np.ndarray) -> np.ndarray:
         """K₀⁻¹[H₀ᵣᵀ; 0] ((nx + nc) × |rows|): from the sparse rows and K₀⁻¹'s state columns
@@ -383,7 +383,7 @@ class BlockSolver:
         """The fixed-matrix iteration for the snapshots ``cols`` (results written back into
         vm, va, lam, done and iters). The chunk works on its own contiguous copies, from which
         converged columns are dropped, so an iteration indexes nothing."""
-        model, status, layout = self.model, self.status, self._layout
+        model, in_service, layout = self.model, self.in_service, self._layout
         funcs, cons = model.functions, model.constraints
         nx, cidx = self._nx, self._cidx
         nc = cidx.size
@@ -397,11 +397,11 @@ class BlockSolver:
             if live.size == 0:
                 break
             phasors = unit_phasors(x_va)
-            _, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w), phasors)
+            _, rhs = funcs.evaluate_with_gradient(x_vm, x_va, layout, in_service, (z, w), phasors)
             if nc:
                 lam_rows = np.zeros((cons.m, live.size))
                 lam_rows[cidx] = x_lam
-                c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, status, layout, lam_rows,
+                c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, layout, in_service, lam_rows,
                                                         phasors)
                 c = -c[cidx]
                 if dropped:
@@ -441,7 +441,7 @@ class BlockSolver:
         vm = self._states[0][:, ok]
         va = self._states[1][:, ok]
         h = model.functions.evaluate(np.nan_to_num(vm, nan=1.0), np.nan_to_num(va),
-                                     self.status).T
+                                     self.in_service).T
         out.residual[ok] = np.where(avail[ok], Z[ok] - h, np.nan)
         if not self.statistics:
             return
@@ -456,7 +456,7 @@ class BlockSolver:
     # ------------------------------------------------------------------ fallback
     def _single(self, i: int, z: np.ndarray, confidence: float, out: BlockResult) -> dict:
         try:
-            est = self.estimator.estimate(z, None, self.status, tolerance=self.tolerance)
+            est = self.estimator.estimate(z, None, self.in_service, tolerance=self.tolerance)
         except NUMERICAL_ERRORS as exc:
             return {"converged": False, "iterations": 0, "method": "single",
                     "reason": f"estimate failed: {describe_error(exc)}", "observable": False,

@@ -52,7 +52,7 @@ def factorize_reduced(s: BlockSolver, g: MissingGroup) -> None:
     avail = np.zeros(model.m, bool)
     avail[idx] = True
     avail[idx[g.missing]] = False
-    obs = s.estimator.observability(avail, s.status)
+    obs = s.estimator.observability(avail, s.in_service)
     if obs.n_islands == 0:
         return
     unusable = np.flatnonzero(~obs.usable[idx] & avail[idx])
@@ -169,7 +169,7 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
     """Gauss-Newton for snapshot i on its own matrix (its weights, the constraints it keeps,
     the states its pattern leaves free held), from its last iterate or, when the block
     iteration ran away, from the reference state."""
-    model, status, layout = s.model, s.status, s._layout
+    model, in_service, layout = s.model, s.in_service, s._layout
     funcs, cons = model.functions, model.constraints
     nx, cidx = s._nx, s._cidx
     nc = cidx.size
@@ -197,12 +197,12 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
     steps: list[float] = []
     for it in range(1, s.max_iterations + 1):
         phasors = unit_phasors(x_va)
-        h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w), phasors)
+        h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, layout, in_service, (z, w), phasors)
         objective = float(np.sum(w * (z - h) ** 2))
         # Damped: a step that raised J is halved (up to four times), as the single
         # estimator does.
         halvings = 0
-        feasible = not nc or float(np.abs(cons.evaluate(x_vm, x_va, status)[cidx][on]).max(
+        feasible = not nc or float(np.abs(cons.evaluate(x_vm, x_va, in_service)[cidx][on]).max(
             initial=0.0)) < FEASIBLE
         while previous is not None and halvings < 4 and feasible and \
                 objective > objective_before * (1 + OVERSHOOT):
@@ -212,7 +212,7 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
             x_vm, x_va = layout.apply_step(p_vm, p_va, p_sol[:nx])
             x_lam = (p_lam + p_sol[nx:]) * on[:, None] if nc else p_lam
             phasors = unit_phasors(x_va)
-            h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w),
+            h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, layout, in_service, (z, w),
                                                   phasors)
             objective = float(np.sum(w * (z - h) ** 2))
             halvings += 1
@@ -224,7 +224,7 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
         if nc:
             lam_rows = np.zeros((cons.m, 1))
             lam_rows[cidx] = x_lam * on[:, None]
-            c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, status, layout, lam_rows,
+            c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, layout, in_service, lam_rows,
                                                     phasors)
             c = -c[cidx]
             c[off] = 0.0
@@ -232,9 +232,9 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
         # The matrix is refactorized while the steps shrink slowly; once they contract
         # fast it is kept (the right-hand side is exact, so the fixed point is the same).
         if solver is None or uses >= REFRESH_ALONE or not step < CONTRACTION * last:
-            H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)
+            H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, in_service)
             G = (H.T @ sp.diags(w[:, 0]) @ H + hold).tocsc()
-            C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)[cidx] if nc \
+            C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, in_service)[cidx] if nc \
                 else sp.csr_matrix((0, nx))
             try:
                 solver = kkt_solver(G, C, s._stiff, D, ORDERINGS_ALONE, dense=False)

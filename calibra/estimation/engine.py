@@ -14,13 +14,12 @@ from typing import Protocol
 import numpy as np
 
 from calibra.estimation.period import PreparedPeriod
-from calibra.estimation.week import PeriodResult, estimate_period
+from calibra.estimation.week import PeriodResult, SolverSettings, estimate_period
 
 
 class PeriodEngine(Protocol):
     def estimate(self, period: PreparedPeriod, rows: np.ndarray, set_aside: np.ndarray, *,
-                 max_block: int, tolerance: float, confidence: float, progress=None,
-                 by_day: bool = True) -> PeriodResult:
+                 settings: SolverSettings, progress=None, by_day: bool = True) -> PeriodResult:
         """Estimate snapshots ``rows`` (positions in ``period``) without the set-aside points.
         ``by_day=False``: blocks may cross days (a thin sample such as the screening's, where
         one block per day would hold a handful of snapshots)."""
@@ -35,9 +34,8 @@ class LocalEngine:
         self.workers = workers
 
     def estimate(self, period: PreparedPeriod, rows: np.ndarray, set_aside: np.ndarray, *,
-                 max_block: int, tolerance: float, confidence: float, progress=None,
-                 by_day: bool = True) -> PeriodResult:
+                 settings: SolverSettings, progress=None, by_day: bool = True) -> PeriodResult:
         z = np.where(set_aside[None, :], np.nan, period.z[rows])
         return estimate_period(period.estimator, z, period.in_service[rows], period.index[rows],
-                               max_block, confidence, progress, tolerance, self.workers,
+                               settings=settings, progress=progress, workers=self.workers,
                                by_day=by_day)

@@ -43,16 +43,20 @@ class PreparedPeriod:
 
 def prepare_period(site: Site, snapshots: pd.DataFrame | None = None, *,
                    corrections: tuple = (),
-                   held_out: Mapping[str, pd.Timestamp] | None = None) -> PreparedPeriod:
+                   held_out: Mapping[str, pd.Timestamp] | None = None,
+                   estimator: Estimator | None = None) -> PreparedPeriod:
     """Per-unit values and checked topology of ``snapshots`` (default: the site's), which
     already have ``corrections`` applied and ``held_out`` points left out before their times
-    (recorded with the period so an engine elsewhere can prepare the same)."""
+    (recorded with the period so an engine elsewhere can prepare the same). ``estimator``: one
+    already built for the site's network and points (a period read day by day keeps one)."""
     snaps = site.snapshots if snapshots is None else snapshots
-    model = MeasurementModel.from_points(site.network, site.points)
+    if estimator is None:
+        estimator = Estimator(MeasurementModel.from_points(site.network, site.points))
+    model = estimator.model
     values = snaps.reindex(columns=model.tags).to_numpy(float)
     z = model.to_per_unit(values)
     in_service, conflicts = checked_topology(site, snaps)
     with np.errstate(over="ignore"):  # readings beyond float32 (bad data) are kept as ±inf
         measured = values.astype(np.float32)
-    return PreparedPeriod(site, snaps.index, Estimator(model), measured, z, in_service,
+    return PreparedPeriod(site, snaps.index, estimator, measured, z, in_service,
                           conflicts, tuple(corrections), dict(held_out or {}))

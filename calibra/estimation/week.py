@@ -53,6 +53,16 @@ class PeriodResult:
     outcomes: pd.DataFrame
 
 
+@dataclass(frozen=True)
+class SolverSettings:
+    """How a period's blocks are solved: the longest block, the largest state update accepted
+    as converged (pu / rad) and the chi-square test level."""
+
+    max_block: int = 360
+    tolerance: float = BLOCK_TOLERANCE
+    confidence: float = 0.99
+
+
 #: Longest time a block of consecutive snapshots spans: its operating points stay near its
 #: reference's (6 h of one-minute data is 360 snapshots; 15-minute data gives blocks of 24
 #: rather than a whole day, whose load cycle a fixed iteration matrix does not follow).
@@ -145,34 +155,34 @@ def estimate_period(
     z: np.ndarray,
     in_service: np.ndarray,
     index: pd.Index | None = None,
-    max_block: int = 360,
-    confidence: float = 0.99,
+    *,
+    settings: SolverSettings = SolverSettings(),
     progress=None,
-    tolerance: float = BLOCK_TOLERANCE,
     workers: int | None = None,
     by_day: bool = True,
 ) -> PeriodResult:
     """Estimate every snapshot of a period (k × m per unit) block by block.
 
-    Blocks hold one topology and at most ``max_block`` consecutive snapshots (6 h of one-minute
-    data by default), so the reference state of a block stays close to all its snapshots.
+    Blocks hold one topology and at most ``settings.max_block`` consecutive snapshots (6 h of
+    one-minute data by default), so the reference state of a block stays close to all its snapshots.
     Blocks run in ``workers`` processes (default: :func:`default_workers`); each block is
     solved the same way wherever it runs, so the results do not depend on the number of
-    workers. ``tolerance`` is the largest state update accepted as converged. Blocks break at
+    workers. ``settings.tolerance`` is the largest state update accepted as converged. Blocks
+    break at
     every UTC day unless ``by_day`` is False (a thin sample of the period).
     """
     tune_allocator()
     k, m = z.shape
     n = estimator.model.network.n_bus
-    runs = topology_runs(in_service, max_block, index if by_day else None)
+    runs = topology_runs(in_service, settings.max_block, index if by_day else None)
     workers = default_workers() if workers is None else workers
     parallel = len(runs) > 1 and can_fork(workers)
     # The runs cover every snapshot once, so every row of the outputs is written.
     vm, va = (_output_array((k, n), parallel) for _ in range(2))
     res, om = (_output_array((k, m), parallel) for _ in range(2))
     frames: dict[int, pd.DataFrame] = {}
-    _WORK.update(estimator=estimator, z=z, in_service=in_service, tolerance=tolerance,
-                 confidence=confidence, out=(vm, va, res, om), index=index)
+    _WORK.update(estimator=estimator, z=z, in_service=in_service, tolerance=settings.tolerance,
+                 confidence=settings.confidence, out=(vm, va, res, om), index=index)
     pool = None
     done = 0
     try:
@@ -192,7 +202,8 @@ def estimate_period(
         if frames else pd.DataFrame()
     if len(outcomes):
         dof = outcomes["dof"].clip(lower=1)
-        outcomes["chi2_threshold"] = chi_square_threshold(confidence, dof.to_numpy(float))
+        outcomes["chi2_threshold"] = chi_square_threshold(settings.confidence,
+                                                          dof.to_numpy(float))
         outcomes["chi2_passed"] = outcomes["objective"] <= outcomes["chi2_threshold"]
         outcomes.loc[~outcomes["converged"].astype(bool), "chi2_passed"] = False
     idx = index if index is not None else pd.RangeIndex(k, name="snapshot")

@@ -19,6 +19,7 @@ from calibra.estimation.engine import LocalEngine
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.site_estimate import checked_topology
+from calibra.estimation.week import SolverSettings
 from calibra.estimation.wls import Estimator
 from calibra.io import load_site
 from calibra.ledger import apply_corrections
@@ -85,8 +86,8 @@ LOCAL = LocalEngine(workers=1)
 
 def estimate(engine, period, rows, set_aside, max_block, tolerance):
     """``engine.estimate`` with the review's confidence level."""
-    return engine.estimate(period, rows, set_aside, max_block=max_block, tolerance=tolerance,
-                           confidence=0.99)
+    return engine.estimate(period, rows, set_aside,
+                           settings=SolverSettings(max_block, tolerance, 0.99))
 
 
 #: Points set aside in the engine checks: two known faulty ones (truth faults 8 and 9), as a

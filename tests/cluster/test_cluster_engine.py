@@ -18,6 +18,7 @@ pytest.importorskip("distributed")
 
 from calibra.cluster import ClusterEngine, ClusterError  # noqa: E402
 from calibra.cluster.worker import SITE_ENTRIES  # noqa: E402
+from calibra.estimation.week import SolverSettings  # noqa: E402
 from calibra.ledger import Correction  # noqa: E402
 from calibra.progress import Cancelled, Progress  # noqa: E402
 from calibra.review_period import select_period  # noqa: E402
@@ -139,7 +140,7 @@ def test_cancel_stops_outstanding_days(client, sample_site):
     progress = Progress(lambda done, total, msg: seen.append(done) or progress.cancel())
     with pytest.raises(Cancelled):
         engine.estimate(period, np.arange(len(period.index)), np.zeros(period.model.m, bool),
-                        max_block=360, tolerance=1e-8, confidence=0.99, progress=progress)
+                        settings=SolverSettings(360, 1e-8, 0.99), progress=progress)
     assert len(seen) == 1 and seen[0] < len(period.index)
     deadline = time.monotonic() + 30
     while _calibra_tasks(client) and time.monotonic() < deadline:

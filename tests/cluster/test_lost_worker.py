@@ -14,6 +14,7 @@ import pytest
 pytest.importorskip("distributed")
 
 from calibra.cluster import ClusterEngine  # noqa: E402
+from calibra.estimation.week import SolverSettings  # noqa: E402
 from calibra.progress import Progress  # noqa: E402
 from calibra.review_period import select_period  # noqa: E402
 from tests.cluster.conftest import (  # noqa: E402
@@ -53,8 +54,8 @@ def test_worker_killed_mid_run(own_client, sample_site, local_full):
             killed[victim] = list(busy[victim])
             os.kill(pids[victim], signal.SIGKILL)
 
-    result = engine.estimate(period, rows, set_aside, max_block=360, tolerance=1e-8,
-                             confidence=0.99, progress=Progress(kill_a_busy_worker))
+    result = engine.estimate(period, rows, set_aside, settings=SolverSettings(360, 1e-8, 0.99),
+                             progress=Progress(kill_a_busy_worker))
     assert killed, "no worker was busy after the first day finished"
     victim = next(iter(killed))
     assert victim not in client.scheduler_info()["workers"]
