@@ -4,6 +4,8 @@ around one reference state (see :mod:`calibra.estimation.week` for the method)."
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
@@ -22,6 +24,7 @@ from calibra.estimation.block_parts import (
     BlockResult,
     ColumnCache,
     MissingGroup,
+    ReferenceSetup,
     converged_reason,
     describe_error,
     nearest_in_time,
@@ -65,6 +68,15 @@ class BlockSolver:
         #: False: states, residuals and objectives only, no residual covariance Ω (no dense
         #: state covariance: what screening probes need on a large network).
         self.statistics = statistics
+        #: Set up at the reference state by each solve (None before).
+        self.setup: ReferenceSetup | None = None
+        # Per-solve working state of the block iteration.
+        self._columns: ColumnCache | None = None
+        self._cons_on: np.ndarray | None = None
+        self._diverged: np.ndarray | None = None
+        self._newton_last: dict[int, float] = {}
+        self._states: tuple[np.ndarray, np.ndarray] | None = None
+        self._small_woodbury = None
 
     # ------------------------------------------------------------------ public
     def solve(self, Z: np.ndarray, confidence: float = 0.99) -> BlockResult:
@@ -133,7 +145,7 @@ class BlockSolver:
             blockable = [g for g in groups if g.factor is not None or g.missing.size == 0]
             for g in blockable:
                 if g.unusable is not None:  # rows its lost part makes unusable
-                    avail[np.ix_(g.members, self._idx[g.unusable])] = False
+                    avail[np.ix_(g.members, self.setup.idx[g.unusable])] = False
             if blockable:
                 done, iters = self._iterate(Z, avail, blockable, out)
                 for g in blockable:
@@ -145,8 +157,8 @@ class BlockSolver:
                         rows[i] = {"converged": True, "iterations": int(iters[i]),
                                    "method": "block", "reason": converged_reason(own),
                                    **outcome_of(own),
-                                   "dof": int(avail[i].sum()) - (self._nx - free)
-                                   + (self._cidx.size - off)}
+                                   "dof": int(avail[i].sum()) - (self.setup.nx - free)
+                                   + (self.setup.cidx.size - off)}
                     # Gauss-Newton on its own matrix did not converge either (its normal
                     # equations can stall at steps of 1e-5 on a stiff model): the single
                     # estimator, which finishes on the augmented matrix, takes it over.
@@ -235,20 +247,16 @@ class BlockSolver:
         C0 = cons.jacobian(ref.vm, ref.va, layout, in_service)[cidx]
         # Bus couplers make G₀ badly conditioned (near-parallel columns): work in variables
         # that separate their stiff differences (x = T x'), K₀⁻¹ = T_f K₀'⁻¹ T_fᵀ.
-        T = self._stiff = stiff_transform(model.network, layout, in_service)
+        T = stiff_transform(model.network, layout, in_service)
         Gn, Cn = (G0, sp.csr_matrix(C0)) if T is None else \
             ((T.T @ G0 @ T).tocsc(), sp.csr_matrix(C0) @ T)
-        self._solve_k0 = kkt_solver(G0, C0, T)
-        self._H0 = H0
-        self._C0 = sp.csr_matrix(C0)
-        self._g0_diag = G0.diagonal()
+        solve_k0 = kkt_solver(G0, C0, T)
         # A dense copy makes row access cheap; only when it stays small.
-        self._H0_dense = H0.toarray() if idx.size * nx <= 5_000_000 else None
-        self._var = var
-        self._idx = idx
-        self._layout, self._cidx, self._nx, self._ref = layout, cidx, nx, ref
-        self._omega_diag = self._P = self._Mt = None
+        H0_dense = H0.toarray() if idx.size * nx <= 5_000_000 else None
+        setup = ReferenceSetup(ref, layout, idx, cidx, nx, var, H0, sp.csr_matrix(C0), H0_dense,
+                               G0.diagonal(), T, solve_k0)
         if not self.statistics:
+            self.setup = setup
             return
         # Ωᵢᵢ = Rᵢᵢ − H₀ᵢ P H₀ᵢᵀ over the base list from the state covariance P (K₀⁻¹'s state
         # block, dense, once per block); the Woodbury updates need only solves with K₀.
@@ -259,13 +267,14 @@ class BlockSolver:
         if cols is None:
             E = np.zeros((nx + nc, nx))
             E[np.arange(nx), np.arange(nx)] = 1.0
-            K0_state = kkt_solver(Gn, Cn)(E) if T is not None else self._solve_k0(E)
+            K0_state = kkt_solver(Gn, Cn)(E) if T is not None else solve_k0(E)
             cols = (np.ascontiguousarray(K0_state[:nx]), K0_state[nx:])
         # K₀⁻¹[Hᵢᵀ; 0] for a missing row i is then a sum of a few columns of P and M: far
         # cheaper than a solve.
-        self._P, self._Mt = cols[0], np.ascontiguousarray(cols[1].T)
-        self._Hn = H0 if T is None else (H0 @ T).tocsr()
-        self._omega_diag = var - quadratic_diagonal(self._Hn, self._P)
+        P, Mt = cols[0], np.ascontiguousarray(cols[1].T)
+        Hn = H0 if T is None else (H0 @ T).tocsr()
+        self.setup = replace(setup, P=P, Mt=Mt, Hn=Hn,
+                             omega_diag=var - quadratic_diagonal(Hn, P))
 
     def _groups(self, avail: np.ndarray) -> list[MissingGroup]:
         """Group snapshots by the base measurements they miss; factorize each Ωₘₘ.
@@ -273,7 +282,7 @@ class BlockSolver:
         Groups with the same number of missing measurements are factorized together (stacked
         small matrices), which matters when most snapshots miss one or two samples.
         """
-        idx = self._idx
+        idx = self.setup.idx
         miss = ~avail[:, idx]
         keys = np.ascontiguousarray(np.packbits(miss, axis=1))
         keys = keys.view(np.dtype((np.void, keys.shape[1]))).ravel()
@@ -282,7 +291,7 @@ class BlockSolver:
         order = np.argsort(inverse, kind="stable")
         bounds = np.searchsorted(inverse[order], np.arange(first.size + 1))
         sets = [np.flatnonzero(miss[f]) for f in first]
-        groups = [MissingGroup(order[bounds[g]:bounds[g + 1]], sets[g], None, self._omega_diag)
+        groups = [MissingGroup(order[bounds[g]:bounds[g + 1]], sets[g], None, self.setup.omega_diag)
                   for g in range(first.size)]
         by_size: dict[int, list[int]] = {}
         for g, mset in enumerate(sets):
@@ -308,33 +317,36 @@ class BlockSolver:
         """Whether the block's pattern without the base rows ``missing`` estimates every bus
         of the block in as many islands."""
         avail = np.zeros(self.model.m, bool)
-        avail[self._idx] = True
-        avail[self._idx[missing]] = False
-        return self.estimator.observability(avail, self.in_service).covers(self._ref.observability)
+        setup = self.setup
+        avail[setup.idx] = True
+        avail[setup.idx[missing]] = False
+        return self.estimator.observability(avail, self.in_service).covers(
+            setup.ref.observability)
 
     def _k0_columns(self, rows: np.ndarray) -> np.ndarray:
         """K₀⁻¹[H₀ᵣᵀ; 0] ((nx + nc) × |rows|): from the sparse rows and K₀⁻¹'s state columns
         when the block has them (a few nonzeros per row), else by solves."""
-        if self._P is None:
+        if self.setup.P is None:
             h = self._H0_rows(rows)
-            return self._solve_k0(np.vstack([h.T, np.zeros((self._cidx.size, rows.size))]))
-        h = self._Hn[rows]
-        qx = np.asarray(h @ self._P).T
-        if self._stiff is not None:
-            qx = np.asarray(self._stiff @ qx)
-        return np.vstack([qx, np.asarray(h @ self._Mt).T])
+            return self.setup.solve_k0(np.vstack([h.T,
+                                                  np.zeros((self.setup.cidx.size, rows.size))]))
+        h = self.setup.Hn[rows]
+        qx = np.asarray(h @ self.setup.P).T
+        if self.setup.stiff is not None:
+            qx = np.asarray(self.setup.stiff @ qx)
+        return np.vstack([qx, np.asarray(h @ self.setup.Mt).T])
 
     def _H0_rows(self, rows: np.ndarray) -> np.ndarray:
-        if self._H0_dense is not None:
-            return self._H0_dense[rows]
-        return self._H0[rows].toarray()
+        if self.setup.H0_dense is not None:
+            return self.setup.H0_dense[rows]
+        return self.setup.H0[rows].toarray()
 
     # ------------------------------------------------------------------ block iteration
     def _iterate(self, Z: np.ndarray, avail: np.ndarray, groups: list[MissingGroup],
                  out: BlockResult):
         model = self.model
-        nc = self._cidx.size
-        ref = self._ref
+        nc = self.setup.cidx.size
+        ref = self.setup.ref
         k = Z.shape[0]
         inv_var = 1.0 / model.sigma_pu ** 2
         group_of = np.full(k, -1, np.int64)
@@ -358,7 +370,7 @@ class BlockSolver:
         pad_small_groups(self, k, groups)
         members = np.flatnonzero(group_of >= 0)
         self._diverged = np.zeros(k, bool)
-        self._newton_last: dict[int, float] = {}
+        self._newton_last = {}
         # Snapshots are independent: on a large network they go through in column chunks.
         width = max(8, COLUMN_CHUNK_BYTES // (16 * max(model.m, len(model.network.buses))))
         for c0 in range(0, members.size, width):
@@ -383,9 +395,9 @@ class BlockSolver:
         """The fixed-matrix iteration for the snapshots ``cols`` (results written back into
         vm, va, lam, done and iters). The chunk works on its own contiguous copies, from which
         converged columns are dropped, so an iteration indexes nothing."""
-        model, in_service, layout = self.model, self.in_service, self._layout
+        model, in_service, layout = self.model, self.in_service, self.setup.layout
         funcs, cons = model.functions, model.constraints
-        nx, cidx = self._nx, self._cidx
+        nx, cidx = self.setup.nx, self.setup.cidx
         nc = cidx.size
         live = np.asarray(cols)  # snapshots still iterating, in the order of the local arrays
         z, w = Zt[:, live], W[:, live]
@@ -407,7 +419,7 @@ class BlockSolver:
                 if dropped:
                     c[~on] = 0.0
                 rhs = np.vstack([rhs - c_grad, c])
-            sol = self._solve_k0(rhs)
+            sol = self.setup.solve_k0(rhs)
             woodbury(self, sol, live, group_of, groups)
             step = np.abs(sol[:nx]).max(axis=0)
             sol = accel.step(sol, nx)
@@ -434,7 +446,7 @@ class BlockSolver:
 
     def _residuals(self, Z, avail, groups, single, out: BlockResult) -> None:
         model = self.model
-        idx = self._idx
+        idx = self.setup.idx
         ok = np.flatnonzero(~single)
         if ok.size == 0:
             return
