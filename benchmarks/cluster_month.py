@@ -31,9 +31,10 @@ import pandas as pd
 
 import calibra  # noqa: F401  (single-threaded BLAS)
 from calibra.cluster import ClusterEngine, start_local_cluster
-from calibra.cluster.period import prepare_period
 from calibra.estimation.engine import LocalEngine
+from calibra.estimation.week import SolverSettings
 from calibra.io import load_site
+from calibra.review_period import select_period
 
 START = pd.Timestamp("2026-06-01")
 TIMEZONE = "Europe/Oslo"
@@ -95,7 +96,7 @@ def run(folder: Path, workers: int) -> None:
     from distributed import Client
 
     (site, t_load) = _timed(lambda: load_site(folder))
-    period, t_prep = _timed(lambda: prepare_period(site, None, None))
+    period, t_prep = _timed(lambda: select_period(site))
     k, m = period.z.shape
     print(f"site: {len(site.network.buses)} buses, {m} analog points, {k:,} snapshots "
           f"({site.snapshots.index[0]:%Y-%m-%d} to {site.snapshots.index[-1]:%Y-%m-%d} UTC); "
@@ -105,11 +106,11 @@ def run(folder: Path, workers: int) -> None:
     table: list[tuple[str, str, float, int]] = []
     reference = {}
     for n_proc in (1, 2):
-        engine = LocalEngine(period.estimator, period.z, period.in_service, period.index,
-                             workers=n_proc)
+        engine = LocalEngine(workers=n_proc)
         for label, _, block, tol in PASSES:
             result, sec = _timed(lambda e=engine, r=rows[label], b=block, t=tol:
-                                 e.estimate(r, none, b, t, 0.99))
+                                 e.estimate(period, r, none,
+                                            settings=SolverSettings(b, t, 0.99)))
             reference.setdefault(label, result)
             table.append((label, f"local, {n_proc} process{'es' * (n_proc > 1)}", sec,
                           len(rows[label])))
@@ -119,13 +120,15 @@ def run(folder: Path, workers: int) -> None:
     try:
         with Client(cluster) as client:
             client.wait_for_workers(workers, timeout=120)
-            engine, t_init = _timed(lambda: ClusterEngine(client, site))
+            engine = ClusterEngine(client)
+            period, t_init = _timed(lambda: select_period(site))
             print(f"cluster: {workers} worker processes on 127.0.0.1; client set-up "
                   f"{t_init:.1f} s")
             for attempt in ("first call, workers read the site", "second call"):
                 for label, _, block, tol in PASSES:
                     result, sec = _timed(lambda r=rows[label], b=block, t=tol:
-                                         engine.estimate(r, none, b, t, 0.99))
+                                         engine.estimate(period, r, none,
+                                                         settings=SolverSettings(b, t, 0.99)))
                     same = _same(reference[label], result)
                     table.append((label, f"cluster of {workers}, {attempt}"
                                   + ("" if same else " (DIFFERENT RESULTS)"), sec,

@@ -80,11 +80,11 @@ def _review(args: argparse.Namespace, site, settings, start, end, ledger):
     progress = terminal_progress()
     if args.cluster is None:
         return run_review(site, settings, start, end, ledger, progress)
-    from calibra.cluster import cluster_client, review_on_cluster
+    from calibra.cluster import ClusterEngine, cluster_client
 
     with cluster_client(args.cluster) as client:
-        return review_on_cluster(client, site, settings, start, end, ledger, progress,
-                                 args.worker_site)
+        engine = ClusterEngine(client, args.worker_site, progress)
+        return run_review(site, settings, start, end, ledger, progress, engine=engine)
 
 
 def _pdf_writer(review):

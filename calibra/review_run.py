@@ -16,16 +16,12 @@ import pandas as pd
 
 from calibra.diagnosis.findings import findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
-from calibra.ledger import Ledger, apply_corrections
+from calibra.estimation.engine import PeriodEngine
+from calibra.ledger import Ledger
 from calibra.model.availability import availability_lines
 from calibra.model.site import Site
 from calibra.model.times import for_machines, for_people
-from calibra.open_work import (
-    carried_findings,
-    judge_after_repairs,
-    reopened_evidence,
-    repairs_inside,
-)
+from calibra.open_work import carried_findings, reopened_evidence
 from calibra.progress import Progress
 from calibra.reports import (
     Sheet,
@@ -34,6 +30,7 @@ from calibra.reports import (
     write_safe_csv,
     write_work_orders_csv,
 )
+from calibra.review_period import period_for_review
 
 FINDINGS_FILE = "findings.csv"
 WORK_ORDERS_CSV = "work_orders.csv"
@@ -72,22 +69,16 @@ def run_review(
     end: pd.Timestamp | None = None,
     ledger: Ledger | None = None,
     progress: Progress | None = None,
-    engine=None,
+    engine: PeriodEngine | None = None,
 ) -> ReviewRun:
     """Review ``site`` between ``start`` and ``end`` with the ledger's software corrections
-    (``engine``: where the estimates run; default this machine)."""
+    (``engine``: where the estimates run, e.g. a :class:`calibra.cluster.ClusterEngine` the
+    caller built; default this machine)."""
     st = settings or ReviewSettings()
     t0 = time.perf_counter()
-    snaps = site.snapshots.loc[start:end]
-    if snaps.empty:
-        raise ValueError("no snapshots in the chosen period")
-    corrections, repairs = [], {}
-    if ledger is not None:
-        corrections = ledger.active_corrections((snaps.index[0], snaps.index[-1]))
-        snaps = apply_corrections(snaps, corrections, missing="ignore")
-        repairs = repairs_inside(ledger, snaps.index[0], snaps.index[-1])
-        snaps = judge_after_repairs(snaps, repairs)
-    result = review_site(site, st, snaps, progress, engine)
+    period = period_for_review(site, start, end, ledger)
+    corrections, repairs = list(period.corrections), dict(period.held_out)
+    result = review_site(site, st, period, progress, engine)
     table = findings_table(result.findings)
     table["in_this_review"] = True
     review_id = None
@@ -96,7 +87,7 @@ def run_review(
         unverifiable = {f.tag for f in result.findings if f.finding == "unverifiable"}
         judged = set(result.diagnoses) - unverifiable
         review_id = ledger.record_review(
-            result.findings, snaps.index[0], snaps.index[-1], settings_dict(st), summary,
+            result.findings, period.index[0], period.index[-1], settings_dict(st), summary,
             judged_from=repairs, not_judged=set(site.points.index.astype(str)) - judged)
         table = _with_ledger(table, ledger, corrections, site.timezone)
     else:

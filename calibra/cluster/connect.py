@@ -1,5 +1,7 @@
-"""Reaching a cluster: ``local:N`` for worker processes on this machine, or a scheduler address;
-and a review run through it."""
+"""Reaching a cluster: ``local:N`` for worker processes on this machine, or a scheduler address.
+
+A review runs through it with :class:`~calibra.cluster.engine.ClusterEngine` handed to
+:func:`calibra.review_run.run_review` by the caller (the command line)."""
 
 from __future__ import annotations
 
@@ -8,18 +10,10 @@ import re
 from collections.abc import Iterator
 from contextlib import contextmanager
 
-import pandas as pd
-
 import calibra
-from calibra.cluster.engine import ClusterEngine, distributed_module
+from calibra.cluster.engine import distributed_module
 from calibra.cluster.period import ClusterError
 from calibra.cluster.worker import worker_version
-from calibra.diagnosis.review import ReviewSettings
-from calibra.ledger import Ledger
-from calibra.model.site import Site
-from calibra.open_work import repairs_inside
-from calibra.progress import Progress
-from calibra.review_run import ReviewRun, run_review
 
 _LOCAL = re.compile(r"local:(\d+)")
 _REMOTE = re.compile(r"(tcp|tls|ucx|inproc|ws|wss)://\S+|[A-Za-z0-9_.\-\[\]:]+:\d+")
@@ -97,32 +91,3 @@ def cluster_client(address: str) -> Iterator[object]:
     with client:
         check_workers(client)
         yield client
-
-
-def engine_for_review(client, site: Site, start: pd.Timestamp | None = None,
-                      end: pd.Timestamp | None = None, ledger: Ledger | None = None,
-                      worker_site: str | None = None,
-                      progress: Progress | None = None) -> ClusterEngine:
-    """A :class:`ClusterEngine` for the period and the ledger's software corrections that
-    :func:`calibra.review_run.run_review` will use for the same arguments."""
-    snaps = site.snapshots.loc[start:end]
-    if snaps.empty:
-        raise ValueError("no snapshots in the chosen period")
-    corrections = [] if ledger is None else \
-        ledger.active_corrections((snaps.index[0], snaps.index[-1]))
-    held = {} if ledger is None else repairs_inside(ledger, snaps.index[0], snaps.index[-1])
-    return ClusterEngine(client, site, start, end, corrections, worker_site, progress,
-                         held_out=held)
-
-
-def review_on_cluster(client, site: Site, settings: ReviewSettings | None = None,
-                      start: pd.Timestamp | None = None, end: pd.Timestamp | None = None,
-                      ledger: Ledger | None = None, progress: Progress | None = None,
-                      worker_site: str | None = None) -> ReviewRun:
-    """:func:`calibra.review_run.run_review` with the estimates made on ``client``'s workers."""
-    engine = engine_for_review(client, site, start, end, ledger, worker_site, progress)
-    run = run_review(site, settings, start, end, ledger, progress, engine=engine)
-    if list(run.corrections) != engine.corrections:
-        raise ClusterError("the ledger's software corrections changed during the review; "
-                           "review again")
-    return run

@@ -13,18 +13,23 @@ from __future__ import annotations
 
 import time
 import uuid
-from collections.abc import Iterable
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from calibra.cluster.period import ClusterError, correction_records, day_starts, prepare_period
+from calibra.cluster.period import (
+    ClusterError,
+    DayDigests,
+    correction_records,
+    day_bounds,
+    day_starts,
+)
 from calibra.cluster.worker import DayJob, DayResult, estimate_day
 from calibra.estimation.engine import LocalEngine
-from calibra.estimation.week import PeriodResult
-from calibra.ledger import Correction
-from calibra.model.site import Site
+from calibra.estimation.period import PreparedPeriod
+from calibra.estimation.week import PeriodResult, SolverSettings
 from calibra.progress import Cancelled, Progress
 
 #: Seconds between looks at the cancel flag while waiting for the cluster.
@@ -41,91 +46,103 @@ def distributed_module():
     return distributed
 
 
-class ClusterEngine:
-    """Estimates a site's period on the workers of a Dask ``client``.
+@dataclass
+class _Plan:
+    """What the engine sends for one prepared period: where the workers read the site, the
+    period's bounds and corrections as plain data, its days and their digests."""
 
-    ``site`` is the client's site (loaded from its folder); ``start``/``end`` and
-    ``corrections`` select and correct the snapshots exactly as the review does
-    (:func:`calibra.review_run.run_review`). ``worker_site`` is the site folder as the workers
-    see it: a path or an fsspec URL (default: this folder's absolute path). ``progress``
-    reports days as they finish and cancels the outstanding ones.
+    period: PreparedPeriod
+    location: str
+    starts: np.ndarray
+    days: list[tuple[int, int, str]]
+    site_digest: str
+    records: tuple
+    held: tuple[tuple[str, int], ...]
+
+
+class ClusterEngine:
+    """Estimates a prepared period (:class:`~calibra.estimation.period.PreparedPeriod`) on the
+    workers of a Dask ``client``.
+
+    The workers read the period's site themselves and prepare the same period from it
+    (:func:`calibra.review_period.select_period` with the period's corrections).
+    ``worker_site`` is the site folder as the workers see it: a path or an fsspec URL (default:
+    the site's folder's absolute path). ``progress`` reports days as they finish and cancels
+    the outstanding ones.
     """
 
-    def __init__(self, client, site: Site, start: pd.Timestamp | None = None,
-                 end: pd.Timestamp | None = None, corrections: Iterable[Correction] = (),
-                 worker_site: str | None = None, progress: Progress | None = None,
-                 retries: int = 2, held_out: dict[str, pd.Timestamp] | None = None):
-        if worker_site is None and site.path is None:
-            raise ValueError("a cluster review needs a site read from a folder the workers see")
+    def __init__(self, client, worker_site: str | None = None,
+                 progress: Progress | None = None, retries: int = 2):
         self.client = client
-        self.corrections = list(corrections)
-        self.location = str(worker_site) if worker_site else str(Path(site.path).resolve())
+        self.worker_site = None if worker_site is None else str(worker_site)
         self.progress = progress
         self.retries = retries
-        self.held_out = dict(held_out or {})
-        period = prepare_period(site, start, end, self.corrections, self.held_out)
-        if len(period.index) == 0:
-            raise ValueError("no snapshots in the chosen period")
-        self._period = period
-        self.index = period.index
-        self._starts = day_starts(period.index)
-        bounds = period.day_bounds()
-        self._days = [(a, b, period.day_digest(a, b)) for a, b in bounds]
-        self._site_digest = period.site_digest
-        self.n_bus = period.estimator.model.network.n_bus  #: buses of the network
-        self.m = period.estimator.model.m  #: analog points (measurements)
-        self._records = correction_records(self.corrections)
-        self._held = tuple(sorted((t, int(at.value)) for t, at in self.held_out.items()))
+        self._plan: _Plan | None = None
         self._token = uuid.uuid4().hex[:8]
         #: Days estimated per worker address (the last call), for reports and tests.
         self.workers_used: dict[str, int] = {}
 
     # ------------------------------------------------------------------ PeriodEngine
-    def estimate(self, rows: np.ndarray, set_aside: np.ndarray, max_block: int,
-                 tolerance: float, confidence: float, progress=None,
-                 by_day: bool = True) -> PeriodResult:
-        """Estimate snapshots ``rows`` (positions in the period) without the set-aside points.
+    def estimate(self, period: PreparedPeriod, rows: np.ndarray, set_aside: np.ndarray, *,
+                 settings: SolverSettings, progress=None, by_day: bool = True) -> PeriodResult:
+        """Estimate snapshots ``rows`` (positions in ``period``) without the set-aside points.
 
         ``by_day=False`` (a thin sample whose blocks cross days, such as the screening's) is
         estimated here, from the period this client prepared: a handful of snapshots per day
         would cost the cluster more in transfers than it saves."""
         rows = np.asarray(rows, dtype=np.int64)
+        progress = progress or self.progress
         if not by_day:
-            period = self._period
-            return LocalEngine(period.estimator, period.z, period.in_service, period.index
-                               ).estimate(rows, set_aside, max_block, tolerance, confidence,
-                                          progress or self.progress, by_day=False)
-        k = len(self.index)
+            return LocalEngine().estimate(period, rows, set_aside, settings=settings,
+                                          progress=progress, by_day=False)
+        plan = self._planned(period)
+        k = len(period.index)
         if rows.size and (rows.min() < 0 or rows.max() >= k):
             raise IndexError(f"snapshot positions must lie in 0..{k - 1}")
         set_aside = np.asarray(set_aside, dtype=bool)
-        if set_aside.shape != (self.m,):
-            raise ValueError(f"set_aside needs one flag per point ({self.m})")
-        segments = self._segments(rows)
-        jobs = [self._job(rows[a:b], day, set_aside, max_block, tolerance, confidence)
-                for a, b, day in segments]
-        results = self._run(jobs, [b - a for a, b, _ in segments], progress or self.progress)
-        return self._assemble(rows, segments, results)
+        if set_aside.shape != (period.model.m,):
+            raise ValueError(f"set_aside needs one flag per point ({period.model.m})")
+        segments = self._segments(plan, rows)
+        jobs = [self._job(plan, rows[a:b], day, set_aside, settings) for a, b, day in segments]
+        results = self._run(jobs, [b - a for a, b, _ in segments], progress)
+        return self._assemble(period, rows, segments, results)
 
     # ------------------------------------------------------------------ pieces
-    def _segments(self, rows: np.ndarray) -> list[tuple[int, int, int]]:
+    def _planned(self, period: PreparedPeriod) -> _Plan:
+        """The plan of ``period``, made once (a review hands the same period to every pass)."""
+        if self._plan is not None and self._plan.period is period:
+            return self._plan
+        site = period.site
+        if self.worker_site is None and site.path is None:
+            raise ValueError("a cluster review needs a site read from a folder the workers see")
+        location = self.worker_site or str(Path(site.path).resolve())
+        digests = DayDigests(period)
+        days = [(a, b, digests.day(a, b)) for a, b in day_bounds(period.index)]
+        held = tuple(sorted((t, int(at.value)) for t, at in period.held_out.items()))
+        self._plan = _Plan(period, location, day_starts(period.index), days,
+                           digests.site_digest, correction_records(period.corrections), held)
+        return self._plan
+
+    @staticmethod
+    def _segments(plan: _Plan, rows: np.ndarray) -> list[tuple[int, int, int]]:
         """Maximal runs of consecutive requested rows within one day: (first, end, day number).
 
         The local engine breaks blocks wherever the day changes between consecutive rows, so
         these segments hold exactly its blocks, whatever the order of ``rows``."""
         if rows.size == 0:
             return []
-        day = np.searchsorted(self._starts, rows, side="right") - 1
+        day = np.searchsorted(plan.starts, rows, side="right") - 1
         cut = np.flatnonzero(np.r_[True, day[1:] != day[:-1]])
         ends = np.r_[cut[1:], rows.size]
         return [(int(a), int(b), int(day[a])) for a, b in zip(cut, ends, strict=True)]
 
-    def _job(self, rows: np.ndarray, day: int, set_aside: np.ndarray, max_block: int,
-             tolerance: float, confidence: float) -> DayJob:
-        first, end, digest = self._days[day]
-        return DayJob(self.location, int(self.index[0].value), int(self.index[-1].value),
-                      self._records, self._site_digest, first, end, digest, rows, set_aside,
-                      int(max_block), float(tolerance), float(confidence), self._held)
+    @staticmethod
+    def _job(plan: _Plan, rows: np.ndarray, day: int, set_aside: np.ndarray,
+             settings: SolverSettings) -> DayJob:
+        first, end, digest = plan.days[day]
+        index = plan.period.index
+        return DayJob(plan.location, int(index[0].value), int(index[-1].value), plan.records,
+                      plan.site_digest, first, end, digest, rows, set_aside, settings, plan.held)
 
     def _run(self, jobs: list[DayJob], sizes: list[int], progress) -> list[DayResult]:
         distributed = distributed_module()
@@ -169,13 +186,15 @@ class ClusterEngine:
             raise
         return results
 
-    def _assemble(self, rows: np.ndarray, segments, results: list[DayResult]) -> PeriodResult:
-        k = rows.size
-        idx = self.index[rows]
-        vm = np.full((k, self.n_bus), np.nan, np.float32)
-        va = np.full((k, self.n_bus), np.nan, np.float32)
-        res = np.full((k, self.m), np.nan, np.float32)
-        om = np.full((k, self.m), np.nan, np.float32)
+    @staticmethod
+    def _assemble(period: PreparedPeriod, rows: np.ndarray, segments,
+                  results: list[DayResult]) -> PeriodResult:
+        k, n, m = rows.size, period.model.network.n_bus, period.model.m
+        idx = period.index[rows]
+        vm = np.full((k, n), np.nan, np.float32)
+        va = np.full((k, n), np.nan, np.float32)
+        res = np.full((k, m), np.nan, np.float32)
+        om = np.full((k, m), np.nan, np.float32)
         frames = []
         for (a, b, _), r in zip(segments, results, strict=True):
             if len(r.outcomes) != b - a:

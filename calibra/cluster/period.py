@@ -1,27 +1,25 @@
 """The period a review estimates, prepared identically on the client and on every worker.
 
 A review estimates the snapshots of one period of a site with the ledger's software corrections
-applied. The client prepares that period once to know its days and a digest of each day's data;
-every worker prepares it again from the site folder it reads and checks the digest of each day
-before estimating it, so a worker that sees other files (a stale copy, another version of the
+applied. The review prepares that period once (:func:`calibra.review_period.select_period`) and the
+client takes from it its days and a digest of each day's data; every worker prepares it again
+with the same function from the site folder it reads and checks the digest of each day before
+estimating it, so a worker that sees other files (a stale copy, another version of the
 point list) stops with a clear error instead of returning different results.
 """
 
 from __future__ import annotations
 
 import hashlib
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 
-from calibra.estimation.model import MeasurementModel
-from calibra.estimation.site_estimate import checked_topology
-from calibra.estimation.wls import Estimator
-from calibra.ledger import Correction, apply_corrections
+from calibra.estimation.period import PreparedPeriod
+from calibra.ledger import Correction
 from calibra.model.site import Site
-from calibra.open_work import judge_after_repairs
 
 #: A software correction as plain data: tag, gain, bias, valid_from and valid_until as UTC
 #: nanoseconds (None = open).
@@ -76,49 +74,34 @@ def site_digest(site: Site) -> str:
     return h.hexdigest()
 
 
+def day_bounds(index: pd.DatetimeIndex) -> list[tuple[int, int]]:
+    """(first, end) positions of each day of a period's index."""
+    starts = day_starts(index)
+    return [(int(a), int(b)) for a, b in zip(starts, np.r_[starts[1:], len(index)], strict=True)]
+
+
+def day_digest(period: PreparedPeriod, a: int, b: int) -> str:
+    """Digest of snapshots a..b−1 of ``period``: times, per-unit values and branch status."""
+    h = hashlib.blake2b(digest_size=16)
+    h.update(period.index[a:b].asi8.tobytes())
+    h.update(np.ascontiguousarray(period.z[a:b]).tobytes())
+    h.update(np.packbits(period.in_service[a:b], axis=None).tobytes())
+    return h.hexdigest()
+
+
 @dataclass
-class PreparedPeriod:
-    """The per-unit telemetry of a period, its topology and the estimator for it."""
+class DayDigests:
+    """A prepared period's site digest and the digests of its days, each computed once."""
 
-    estimator: Estimator
-    z: np.ndarray  # k × m per unit, NaN = missing, corrections applied
-    in_service: np.ndarray  # k × branches
-    index: pd.DatetimeIndex
-    site_digest: str
-    _day_digests: dict[tuple[int, int], str] = field(default_factory=dict, repr=False)
+    period: PreparedPeriod
+    site_digest: str = ""
+    _days: dict[tuple[int, int], str] = field(default_factory=dict, repr=False)
 
-    def day_bounds(self) -> list[tuple[int, int]]:
-        """(first, end) positions of each day of the period."""
-        starts = day_starts(self.index)
-        return [(int(a), int(b)) for a, b in zip(starts, np.r_[starts[1:], len(self.index)],
-                                                  strict=True)]
+    def __post_init__(self) -> None:
+        self.site_digest = self.site_digest or site_digest(self.period.site)
 
-    def day_digest(self, a: int, b: int) -> str:
-        """Digest of snapshots a..b−1: times, per-unit values and branch status."""
-        key = (a, b)
-        if key not in self._day_digests:
-            h = hashlib.blake2b(digest_size=16)
-            h.update(self.index[a:b].asi8.tobytes())
-            h.update(np.ascontiguousarray(self.z[a:b]).tobytes())
-            h.update(np.packbits(self.in_service[a:b], axis=None).tobytes())
-            self._day_digests[key] = h.hexdigest()
-        return self._day_digests[key]
-
-
-def prepare_period(site: Site, start: pd.Timestamp | None, end: pd.Timestamp | None,
-                   corrections: Iterable[Correction] = (),
-                   held_out: Mapping[str, pd.Timestamp] | None = None) -> PreparedPeriod:
-    """The snapshots of ``site`` from ``start`` to ``end`` (inclusive) with ``corrections``
-    and the values of ``held_out`` points before their times left out (repairs judged on the
-    data after them), converted to per unit and checked for topology exactly as the week
-    review does (:func:`calibra.review_run.run_review`)."""
-    snaps = site.snapshots.loc[start:end]
-    corrections = list(corrections)
-    if corrections:
-        snaps = apply_corrections(snaps, corrections, missing="ignore")
-    snaps = judge_after_repairs(snaps, dict(held_out or {}))
-    model = MeasurementModel.from_points(site.network, site.points)
-    values = snaps.reindex(columns=model.tags).to_numpy(float)
-    z = model.to_per_unit(values)
-    in_service, _ = checked_topology(site, snaps)
-    return PreparedPeriod(Estimator(model), z, in_service, snaps.index, site_digest(site))
+    def day(self, a: int, b: int) -> str:
+        """:func:`day_digest` of snapshots a..b−1, computed once."""
+        if (a, b) not in self._days:
+            self._days[(a, b)] = day_digest(self.period, a, b)
+        return self._days[(a, b)]

@@ -25,25 +25,26 @@ import calibra
 from calibra.cluster.period import (
     ClusterError,
     CorrectionRecord,
-    PreparedPeriod,
+    DayDigests,
     corrections_from_records,
-    prepare_period,
 )
+from calibra.estimation.engine import LocalEngine
 from calibra.estimation.runtime import tune_allocator
-from calibra.estimation.week import estimate_period
+from calibra.estimation.week import SolverSettings
 from calibra.io import load_site
 from calibra.io.point_list import POINTS_FILE
 from calibra.io.site_config import SITE_FILE
 from calibra.io.site_folder import NETWORK_DIR
 from calibra.io.snapshots import SNAPSHOT_DIR
 from calibra.model.site import SiteLoadError
+from calibra.review_period import select_period
 
 #: What a worker reads of a site folder (the ledger and anything else is left alone).
 SITE_ENTRIES = (SITE_FILE, POINTS_FILE, NETWORK_DIR, SNAPSHOT_DIR)
 #: Prepared periods kept per worker process (a month of IEEE 118 is about 400 MB each).
 MAX_CACHED = 2
 
-_CACHE: OrderedDict[tuple, PreparedPeriod] = OrderedDict()
+_CACHE: OrderedDict[tuple, DayDigests] = OrderedDict()
 _LOCK = threading.Lock()
 
 
@@ -61,9 +62,7 @@ class DayJob:
     day_digest: str
     rows: np.ndarray  # snapshot positions in the period to estimate (all in this day)
     set_aside: np.ndarray  # bool per point
-    max_block: int
-    tolerance: float
-    confidence: float
+    settings: SolverSettings
     #: Points judged only after a time (a repair inside the period): (tag, UTC ns) pairs.
     held_out: tuple[tuple[str, int], ...] = ()
 
@@ -153,8 +152,8 @@ def _load(location: str, start: pd.Timestamp, end: pd.Timestamp):
         shutil.rmtree(folder, ignore_errors=True)
 
 
-def prepared_period(job: DayJob) -> PreparedPeriod:
-    """The job's period, from this worker's cache or read from the site."""
+def prepared_period(job: DayJob) -> DayDigests:
+    """The job's period (with its digests), from this worker's cache or read from the site."""
     key = (job.location, site_fingerprint(job.location), job.start_ns, job.end_ns,
            job.corrections, job.held_out)
     with _LOCK:
@@ -175,21 +174,26 @@ def prepared_period(job: DayJob) -> PreparedPeriod:
             raise ClusterError(f"worker {worker_name()} cannot read the site at "
                                f"{job.location}: {exc}") from None
         held = {tag: pd.Timestamp(ns, tz="UTC") for tag, ns in job.held_out}
-        prepared = prepare_period(site, start, end, corrections_from_records(job.corrections),
-                                  held)
+        if site.snapshots.loc[start:end].empty:
+            raise ClusterError(f"worker {worker_name()} reading {job.location}: the snapshots "
+                               f"of {start:%Y-%m-%d} (UTC) differ from the client's; every "
+                               "worker must see the same site folder")
+        prepared = DayDigests(select_period(site, start, end,
+                                            corrections_from_records(job.corrections), held))
         _CACHE[key] = prepared
         while len(_CACHE) > MAX_CACHED:
             _CACHE.popitem(last=False)
         return prepared
 
 
-def _check(job: DayJob, period: PreparedPeriod) -> None:
+def _check(job: DayJob, prepared: DayDigests) -> None:
     where = f"worker {worker_name()} reading {job.location}"
-    if period.site_digest != job.site_digest:
+    period = prepared.period
+    if prepared.site_digest != job.site_digest:
         raise ClusterError(f"{where}: the network or point list differs from the client's; "
                            "every worker must see the same site folder")
     k = len(period.index)
-    if job.day_end > k or period.day_digest(job.day_first, job.day_end) != job.day_digest:
+    if job.day_end > k or prepared.day(job.day_first, job.day_end) != job.day_digest:
         day = pd.Timestamp(job.start_ns, tz="UTC") if job.day_first >= k else \
             period.index[job.day_first]
         raise ClusterError(f"{where}: the snapshots of {day:%Y-%m-%d} (UTC) differ from the "
@@ -201,11 +205,9 @@ def _check(job: DayJob, period: PreparedPeriod) -> None:
 def estimate_day(job: DayJob) -> DayResult:
     """Estimate the job's snapshots exactly as :class:`~calibra.estimation.engine.LocalEngine`
     does (one process: the cluster gives the parallelism)."""
-    period = prepared_period(job)
-    _check(job, period)
-    rows = job.rows
-    z = np.where(job.set_aside[None, :], np.nan, period.z[rows])
-    result = estimate_period(period.estimator, z, period.in_service[rows], period.index[rows],
-                             job.max_block, job.confidence, None, job.tolerance, workers=1)
+    prepared = prepared_period(job)
+    _check(job, prepared)
+    result = LocalEngine(workers=1).estimate(
+        prepared.period, job.rows, job.set_aside, settings=job.settings)
     return DayResult(result.vm, result.va, result.residual, result.omega, result.outcomes,
                      worker_name())

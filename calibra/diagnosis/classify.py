@@ -91,103 +91,164 @@ def _confidence(e_model: np.ndarray, e_healthy: np.ndarray, noise: float) -> flo
     return float((np.abs(e_model[differ]) < np.abs(e_healthy[differ])).mean())
 
 
-def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) -> PointDiagnosis:
-    """Classify one point from its measured and implied series."""
-    st = settings or ClassifySettings()
-    valid = np.isfinite(ps.z) & np.isfinite(ps.y)
-    n = int(valid.sum())
-    if n < st.min_snapshots:
-        return PointDiagnosis("insufficient", n_used=n,
-                              reason=f"only {n} snapshots with a measured and an implied value")
-    t, z, y = ps.t_days[valid], ps.z[valid], ps.y[valid]
-    noise = float(np.hypot(ps.sigma, ps.sigma_implied))
-    limit = ps.class_limit * st.class_margin
+@dataclass
+class _Week:
+    """A point's valid snapshots and what every fault model is judged against."""
 
-    # Frozen values first: they would distort every other fit.
-    runs = find_stuck_runs(z, y, max(ps.resolution, 1e-9 * max(1.0, np.abs(z).max())),
-                           st.stuck_minutes, max(4 * noise, limit))
-    if runs:
-        frozen = np.zeros(n, bool)
-        for r in runs:
-            frozen[r.start:r.stop] = True
-        e_f = z[frozen] - y[frozen]
-        first, last = runs[0], runs[-1]
-        if np.median(np.abs(e_f)) > max(limit, 2 * noise):
-            return PointDiagnosis(
-                "stuck", confidence=float((np.abs(e_f) > noise).mean()), n_used=n,
-                params={"value": first.value, "onset_days": float(t[first.start]),
-                        "until_days": float(t[last.stop - 1]) if last.stop < n else None,
-                        "frozen_snapshots": int(frozen.sum()),
-                        "implied_min": float(y[frozen].min()),
-                        "implied_max": float(y[frozen].max())},
-                loss_healthy=float(np.median(np.abs(e_f))), loss_model=0.0,
-            )
+    ps: PointSeries
+    st: ClassifySettings
+    t: np.ndarray
+    z: np.ndarray
+    y: np.ndarray
+    noise: float  # σ of z − y when healthy (meter and implied value)
+    limit: float  # accuracy class limit × margin
+    e0: np.ndarray = field(init=False)  # z − y
+    loss0: float = field(init=False)  # its median |·|
 
-    e0 = z - y
-    loss0 = float(np.median(np.abs(e0)))
-    typical = float(np.median(np.abs(y)))
-    candidates: list[tuple[float, int, str, dict, np.ndarray]] = []
+    def __post_init__(self) -> None:
+        self.e0 = self.z - self.y
+        self.loss0 = float(np.median(np.abs(self.e0)))
 
-    def better(e_m: np.ndarray) -> bool:
-        return _improves(e_m, e0, noise, st.improvement, st.stuck_minutes)
+    @property
+    def n(self) -> int:
+        return int(self.z.size)
 
-    def mean_loss(e_m: np.ndarray, gain: float = 1.0) -> float:
-        # In units of the model's own noise: a gain k also scales the implied value's noise.
+    def better(self, e_m: np.ndarray) -> bool:
+        """Whether a model's errors explain the data clearly better than "healthy"."""
+        return _improves(e_m, self.e0, self.noise, self.st.improvement, self.st.stuck_minutes)
+
+    def mean_loss(self, e_m: np.ndarray, gain: float = 1.0) -> float:
+        """Mean |error| in units of the model's own noise: a gain k also scales the implied
+        value's noise."""
+        ps = self.ps
         return float(np.mean(np.abs(e_m))) / float(np.hypot(ps.sigma, gain * ps.sigma_implied))
 
-    # With implied values y = y_true + ε, the fitted gain shrinks toward 0 by Σy_true²/Σy²: a
-    # metered bus without load reads 0 while its implied value scatters by σ_implied, and
-    # "scale 0.001" would fit that scatter. A gain is only sought where y carries a signal.
+
+#: A fault model that explains the week: (mean loss, order, kind, parameters, its errors).
+Candidate = tuple[float, int, str, dict, np.ndarray]
+
+
+def _stuck(w: _Week) -> PointDiagnosis | None:
+    """Frozen values while the implied value moves (runs of at least ``stuck_minutes``)."""
+    ps, st, t, z, y, n = w.ps, w.st, w.t, w.z, w.y, w.n
+    runs = find_stuck_runs(z, y, max(ps.resolution, 1e-9 * max(1.0, np.abs(z).max())),
+                           st.stuck_minutes, max(4 * w.noise, w.limit))
+    if not runs:
+        return None
+    frozen = np.zeros(n, bool)
+    for r in runs:
+        frozen[r.start:r.stop] = True
+    e_f = z[frozen] - y[frozen]
+    first, last = runs[0], runs[-1]
+    if np.median(np.abs(e_f)) <= max(w.limit, 2 * w.noise):
+        return None
+    return PointDiagnosis(
+        "stuck", confidence=float((np.abs(e_f) > w.noise).mean()), n_used=n,
+        params={"value": first.value, "onset_days": float(t[first.start]),
+                "until_days": float(t[last.stop - 1]) if last.stop < n else None,
+                "frozen_snapshots": int(frozen.sum()),
+                "implied_min": float(y[frozen].min()),
+                "implied_max": float(y[frozen].max())},
+        loss_healthy=float(np.median(np.abs(e_f))), loss_model=0.0,
+    )
+
+
+def _gain(w: _Week) -> Candidate | None:
+    """z = k·y (reversed when k < 0), sought only where the implied values carry a signal.
+
+    With implied values y = y_true + ε, the fitted gain shrinks toward 0 by Σy_true²/Σy²: a
+    metered bus without load reads 0 while its implied value scatters by σ_implied, and
+    "scale 0.001" would fit that scatter."""
+    ps, st, z, y = w.ps, w.st, w.z, w.y
     signal = np.sqrt(max(float(np.mean(y * y)) - ps.sigma_implied ** 2, 0.0))
-    if signal >= st.gain_signal * ps.sigma_implied:
-        k = fit_gain(z, y, noise)
-        e_k = z - k * y
-        se_k = noise / max(np.sqrt(np.sum(y * y)), 1e-300)
-        if abs(k - 1) * typical > limit and abs(k - 1) > st.significance * se_k and better(e_k):
-            kind = "reversed" if k < 0 else "scale"
-            candidates.append((mean_loss(e_k, k), 0, kind, {"factor": k}, e_k))
+    if signal < st.gain_signal * ps.sigma_implied:
+        return None
+    k = fit_gain(z, y, w.noise)
+    e_k = z - k * y
+    se_k = w.noise / max(np.sqrt(np.sum(y * y)), 1e-300)
+    typical = float(np.median(np.abs(y)))
+    if abs(k - 1) * typical > w.limit and abs(k - 1) > st.significance * se_k and w.better(e_k):
+        kind = "reversed" if k < 0 else "scale"
+        return (w.mean_loss(e_k, k), 0, kind, {"factor": k}, e_k)
+    return None
 
-    c = float(np.median(e0))
-    e_c = e0 - c
-    se_c = 1.2533 * robust_scale(e0) / np.sqrt(n)
-    if abs(c) > limit and abs(c) > st.significance * se_c and better(e_c):
-        candidates.append((mean_loss(e_c), 1, "offset", {"offset": c}, e_c))
 
-    t0, a, _ = fit_drift(t, e0)
-    if np.isfinite(t0):
-        reach = abs(a) * (t.max() - t0)
-        ramp = np.maximum(t - t0, 0.0)
-        e_d = e0 - a * ramp
-        se_a = noise / max(np.sqrt(np.sum(ramp * ramp)), 1e-300)
-        if reach > limit and abs(a) > st.significance * se_a and better(e_d):
-            candidates.append((mean_loss(e_d), 2, "drift", {"drift_per_day": a, "onset_days": t0},
-                               e_d))
+def _offset(w: _Week) -> Candidate | None:
+    """z = y + c."""
+    c = float(np.median(w.e0))
+    e_c = w.e0 - c
+    se_c = 1.2533 * robust_scale(w.e0) / np.sqrt(w.n)
+    if abs(c) > w.limit and abs(c) > w.st.significance * se_c and w.better(e_c):
+        return (w.mean_loss(e_c), 1, "offset", {"offset": c}, e_c)
+    return None
 
-    if candidates:
-        # Lowest mean error wins; near-ties (within 10 %) go to the likelier explanation: a
-        # reversal or a gain with a known cause, then an offset, then any gain, then a drift.
-        best_loss = min(cand[0] for cand in candidates)
-        near = [cand for cand in candidates if cand[0] <= 1.1 * best_loss + 1e-12]
 
-        def prior(cand) -> int:
-            kind_c, params_c = cand[2], cand[3]
-            if kind_c == "reversed" and abs(params_c["factor"] + 1) < 0.05:
-                return 0
-            if kind_c in ("scale", "reversed") and ps.known_factor is not None \
-                    and ps.known_factor(params_c["factor"]):
-                return 0
-            return {"offset": 1, "scale": 2, "reversed": 2, "drift": 3}[kind_c]
+def _drift(w: _Week) -> Candidate | None:
+    """z = y + a·(t − t₀)⁺."""
+    t = w.t
+    t0, a, _ = fit_drift(t, w.e0)
+    if not np.isfinite(t0):
+        return None
+    reach = abs(a) * (t.max() - t0)
+    ramp = np.maximum(t - t0, 0.0)
+    e_d = w.e0 - a * ramp
+    se_a = w.noise / max(np.sqrt(np.sum(ramp * ramp)), 1e-300)
+    if reach > w.limit and abs(a) > w.st.significance * se_a and w.better(e_d):
+        return (w.mean_loss(e_d), 2, "drift", {"drift_per_day": a, "onset_days": t0}, e_d)
+    return None
 
-        _, _, kind, params, e_m = min(near, key=lambda cand: (prior(cand), cand[0]))
-        loss = float(np.median(np.abs(e_m)))
-        return PointDiagnosis(kind, _confidence(e_m, e0, noise), params, n, loss0, loss)
 
-    scatter = robust_scale(e0)
-    if scatter > st.noisy_factor * noise and scatter > ps.class_limit / 3.0 * st.noisy_factor:
+def _tie_break(candidates: list[Candidate], ps: PointSeries) -> Candidate:
+    """Lowest mean error wins; near-ties (within 10 %) go to the likelier explanation: a
+    reversal or a gain with a known cause, then an offset, then any gain, then a drift."""
+    best_loss = min(cand[0] for cand in candidates)
+    near = [cand for cand in candidates if cand[0] <= 1.1 * best_loss + 1e-12]
+
+    def prior(cand: Candidate) -> int:
+        kind_c, params_c = cand[2], cand[3]
+        if kind_c == "reversed" and abs(params_c["factor"] + 1) < 0.05:
+            return 0
+        if kind_c in ("scale", "reversed") and ps.known_factor is not None \
+                and ps.known_factor(params_c["factor"]):
+            return 0
+        return {"offset": 1, "scale": 2, "reversed": 2, "drift": 3}[kind_c]
+
+    return min(near, key=lambda cand: (prior(cand), cand[0]))
+
+
+def _noisy_or_healthy(w: _Week) -> PointDiagnosis:
+    """A scatter well beyond the expected noise → noisy; otherwise healthy."""
+    st, noise, loss0, n = w.st, w.noise, w.loss0, w.n
+    scatter = robust_scale(w.e0)
+    if scatter > st.noisy_factor * noise and scatter > w.ps.class_limit / 3.0 * st.noisy_factor:
         return PointDiagnosis(
             "noisy", confidence=float(min(1.0, 1 - st.noisy_factor * noise / scatter + 0.5)),
             params={"scatter": scatter, "expected": noise}, n_used=n, loss_healthy=loss0,
             loss_model=loss0,
         )
     return PointDiagnosis("healthy", n_used=n, loss_healthy=loss0, loss_model=loss0,
-                          params={"scatter": scatter, "bias": c})
+                          params={"scatter": scatter, "bias": float(np.median(w.e0))})
+
+
+def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) -> PointDiagnosis:
+    """Classify one point from its measured and implied series (rules in the module
+    docstring): insufficient data, stuck, the fault models and their tie-break, noisy or
+    healthy."""
+    st = settings or ClassifySettings()
+    valid = np.isfinite(ps.z) & np.isfinite(ps.y)
+    n = int(valid.sum())
+    if n < st.min_snapshots:
+        return PointDiagnosis("insufficient", n_used=n,
+                              reason=f"only {n} snapshots with a measured and an implied value")
+    w = _Week(ps, st, ps.t_days[valid], ps.z[valid], ps.y[valid],
+              float(np.hypot(ps.sigma, ps.sigma_implied)), ps.class_limit * st.class_margin)
+    # Frozen values first: they would distort every other fit.
+    stuck = _stuck(w)
+    if stuck is not None:
+        return stuck
+    candidates = [c for c in (_gain(w), _offset(w), _drift(w)) if c is not None]
+    if candidates:
+        _, _, kind, params, e_m = _tie_break(candidates, ps)
+        loss = float(np.median(np.abs(e_m)))
+        return PointDiagnosis(kind, _confidence(e_m, w.e0, w.noise), params, n, w.loss0, loss)
+    return _noisy_or_healthy(w)

@@ -24,13 +24,19 @@ from functools import partial
 import numpy as np
 import pandas as pd
 
-from calibra.diagnosis.suspects import PROBE_TOLERANCE, pick_suspects
+from calibra.diagnosis.suspects import (
+    PROBE_TOLERANCE,
+    ScreeningRound,
+    SuspectSettings,
+    pick_suspects,
+)
 from calibra.estimation.engine import LocalEngine, PeriodEngine
 from calibra.estimation.model import MeasurementModel
+from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.probes import ProbeSet
 from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_residuals
-from calibra.estimation.site_estimate import StatusConflict, checked_topology
-from calibra.estimation.week import PeriodResult
+from calibra.estimation.site_estimate import StatusConflict
+from calibra.estimation.week import PeriodResult, SolverSettings
 from calibra.estimation.wls import Estimator, SnapshotEstimate
 from calibra.model.points import CT_QUANTITIES, POWER_QUANTITIES
 from calibra.model.site import Site
@@ -179,28 +185,24 @@ def screening_sample(z: np.ndarray, in_service: np.ndarray, step: int) -> np.nda
 
 
 def gather_evidence(
-    site: Site,
+    period: PreparedPeriod,
     settings: EvidenceSettings | None = None,
-    snapshots: pd.DataFrame | None = None,
     progress: Progress | None = None,
+    *,
     initial_set_aside: np.ndarray | None = None,
     screen: bool = True,
     engine: PeriodEngine | None = None,
 ) -> WeekEvidence:
-    """Build the week evidence for every analog point of ``site``.
+    """Build the week evidence for every analog point of the period's site.
 
-    ``snapshots`` (default: the site's) are the values to review, already corrected for any
-    software corrections in force. ``initial_set_aside`` marks points to leave out from the
-    start; ``screen=False`` skips the screening rounds. ``engine`` estimates the period
-    (default: :class:`~calibra.estimation.engine.LocalEngine` on this machine).
+    ``period`` holds the values to review, already corrected for any software corrections in
+    force (:func:`calibra.review_period.select_period`). ``initial_set_aside`` marks points to
+    leave out from the start; ``screen=False`` skips the screening rounds. ``engine`` estimates
+    the period (default: :class:`~calibra.estimation.engine.LocalEngine` on this machine).
     """
     st = settings or EvidenceSettings()
-    snaps = site.snapshots if snapshots is None else snapshots
-    model = MeasurementModel.from_points(site.network, site.points)
-    estimator = Estimator(model)
-    values = snaps.reindex(columns=model.tags).to_numpy(float)
-    z = model.to_per_unit(values)
-    in_service, conflicts = checked_topology(site, snaps)
+    site, model, estimator = period.site, period.model, period.estimator
+    z, in_service = period.z, period.in_service
     k, m = z.shape
     base = np.isfinite(z).any(axis=0)
     set_aside = np.zeros(m, bool) if initial_set_aside is None else initial_set_aside.copy()
@@ -208,33 +210,36 @@ def gather_evidence(
     step = max(1, st.screening_step)
     sub = screening_sample(z, in_service, step)
     z_sub, ins_sub = z[sub], in_service[sub]
-    engine = engine or LocalEngine(estimator, z, in_service, snaps.index)
+    engine = engine or LocalEngine()
+    screening = SolverSettings(max(60, st.max_block // step), st.screening_tolerance,
+                               st.confidence)
     probe = np.unique(np.linspace(0, len(sub) - 1, min(st.probe_snapshots, len(sub))).astype(int))
     device_of, power = _device_index(site, model)
     for rnd in range(st.max_rounds if screen else 0):
         if progress is not None:
             progress.update(rnd, st.max_rounds + 2, f"screening round {rnd + 1}")
-        period = engine.estimate(sub, set_aside, max(60, st.max_block // step),
-                                 st.screening_tolerance, st.confidence,
-                                 _Stage(progress, f"screening round {rnd + 1}"), by_day=False)
-        stat = _quantile_over_snapshots(_normalized(period), st.screening_quantile)
+        screened = engine.estimate(period, sub, set_aside, settings=screening,
+                                   progress=_Stage(progress, f"screening round {rnd + 1}"),
+                                   by_day=False)
+        stat = _quantile_over_snapshots(_normalized(screened), st.screening_quantile)
         cand = np.flatnonzero((stat > st.normalized_threshold) & ~set_aside)
         rounds.append({
             "round": rnd + 1, "snapshots": len(sub),
-            "chi2_failed": int((~period.outcomes["chi2_passed"].astype(bool)).sum()),
+            "chi2_failed": int((~screened.outcomes["chi2_passed"].astype(bool)).sum()),
             "suspects": int(cand.size),
         })
         if cand.size == 0:
             break
-        starts = [(period.vm[j].astype(float), period.va[j].astype(float)) for j in probe]
+        starts = [(screened.vm[j].astype(float), screened.va[j].astype(float)) for j in probe]
         probes = ProbeSet(estimator, z_sub[probe], ins_sub[probe], set_aside, starts,
                           PROBE_TOLERANCE)
         # Residual correlations at the first probe snapshot, normalized by the screening's
         # residual variances there.
-        omega = period.omega[probe[0]].astype(float)
-        picked = pick_suspects(estimator, partial(probes.correlation, omega=omega), cand,
-                               stat, base, set_aside, probes, ins_sub[probe], device_of,
-                               st.normalized_threshold, power=power)
+        omega = screened.omega[probe[0]].astype(float)
+        picked = pick_suspects(
+            ScreeningRound(estimator, partial(probes.correlation, omega=omega), cand, stat,
+                           base, set_aside, probes, ins_sub[probe], device_of, power),
+            SuspectSettings(st.normalized_threshold))
         if not picked:
             break
         set_aside[picked] = True
@@ -242,17 +247,16 @@ def gather_evidence(
 
     if progress is not None:
         progress.update(st.max_rounds, st.max_rounds + 2, "estimating the full period")
-    period = engine.estimate(np.arange(k), set_aside, st.max_block, 1e-8, st.confidence,
-                             _Stage(progress, "estimating the full period"))
-    implied = _implied_values(model, z, period, set_aside, in_service, st.min_sensitivity)
+    full = engine.estimate(period, np.arange(k), set_aside,
+                           settings=SolverSettings(st.max_block, 1e-8, st.confidence),
+                           progress=_Stage(progress, "estimating the full period"))
+    implied = _implied_values(model, z, full, set_aside, in_service, st.min_sensitivity)
     rep = _representative(estimator, z, in_service, set_aside, st.confidence)
-    with np.errstate(over="ignore"):  # readings beyond float32 (bad data) are kept as ±inf
-        measured = values.astype(np.float32)
     return WeekEvidence(
-        index=snaps.index, model=model, measured=measured,
-        implied=implied, normalized=_normalized(period).astype(np.float32),
-        set_aside=set_aside, period=period, in_service=in_service, representative=rep,
-        rounds=rounds, status_conflicts=conflicts,
+        index=period.index, model=model, measured=period.measured,
+        implied=implied, normalized=_normalized(full).astype(np.float32),
+        set_aside=set_aside, period=full, in_service=in_service, representative=rep,
+        rounds=rounds, status_conflicts=period.status_conflicts,
     )
 
 

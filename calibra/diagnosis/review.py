@@ -21,6 +21,8 @@ from calibra.diagnosis.mismap import (
 )
 from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
 from calibra.estimation.block_parts import observability_counts
+from calibra.estimation.engine import PeriodEngine
+from calibra.estimation.period import PreparedPeriod, prepare_period
 from calibra.estimation.runtime import fork_map
 from calibra.model.points import analog_points
 from calibra.model.site import Site
@@ -176,15 +178,16 @@ def _not_observable(ev: WeekEvidence) -> dict[str, dict]:
 def review_site(
     site: Site,
     settings: ReviewSettings | None = None,
-    snapshots: pd.DataFrame | None = None,
+    period: PreparedPeriod | None = None,
     progress: Progress | None = None,
-    engine=None,
+    engine: PeriodEngine | None = None,
 ) -> ReviewResult:
-    """Review a period of a site (``snapshots``: the values to review, corrections applied;
-    ``engine``: where the estimates run, see :mod:`calibra.estimation.engine`)."""
+    """Review a period of a site (``period``: the values to review, corrections applied,
+    prepared once for every pass; default: all the site's snapshots as they are; ``engine``:
+    where the estimates run, see :mod:`calibra.estimation.engine`)."""
     st = settings or ReviewSettings()
-    snaps = site.snapshots if snapshots is None else snapshots
-    ev = gather_evidence(site, st.evidence, snaps, progress, engine=engine)
+    period = prepare_period(site) if period is None else period
+    ev = gather_evidence(period, st.evidence, progress, engine=engine)
     diagnoses = _classify_all(site, ev, st.classify)
     for _ in range(st.max_passes - 1):
         faulty = np.array([diagnoses[str(t)].kind not in ("healthy", "insufficient")
@@ -192,7 +195,7 @@ def review_site(
         extra = faulty & ~ev.set_aside
         if not extra.any():
             break
-        ev = gather_evidence(site, st.evidence, snaps, progress,
+        ev = gather_evidence(period, st.evidence, progress,
                              initial_set_aside=ev.set_aside | extra, screen=False,
                              engine=engine)
         diagnoses = _classify_all(site, ev, st.classify)
@@ -230,5 +233,5 @@ def review_site(
         "status_conflicts": [c.describe(site.timezone) for c in ev.status_conflicts],
         "rounds": ev.rounds,
     }
-    return ReviewResult(site.name, snaps.index[0], snaps.index[-1], ev, diagnoses, findings,
+    return ReviewResult(site.name, period.index[0], period.index[-1], ev, diagnoses, findings,
                         summary)

@@ -12,6 +12,9 @@ for the next round.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from dataclasses import dataclass
+
 import numpy as np
 
 from calibra.estimation.probes import ProbeSet
@@ -27,27 +30,52 @@ CLUSTER_CORRELATION = 0.02
 PROBE_TOLERANCE = 1e-6
 
 
-def pick_suspects(estimator: Estimator, correlation, candidates: np.ndarray, stat: np.ndarray,
-                  base: np.ndarray, set_aside: np.ndarray, probes: ProbeSet,
-                  probe_status: np.ndarray, device_of: np.ndarray, threshold: float,
-                  max_points: int = 32,
-                  power: np.ndarray | None = None) -> list[int]:
-    """Points to set aside this round (see the module docstring). ``correlation(i)``: the
-    residual correlation of point i with every point (None when unknown); ``probes``: the
-    probe snapshots with ``set_aside`` left out; ``device_of``: each point's device number
-    (−1: none); ``power``: which points are power channels."""
-    stat = np.nan_to_num(np.asarray(stat, float), nan=0.0, posinf=1e12)
+@dataclass(frozen=True)
+class ScreeningRound:
+    """What a screening round knows when it picks suspects.
+
+    ``correlation(i)``: the residual correlation of point i with every point (None when
+    unknown); ``stat``: each point's screening statistic; ``base``: points with any data;
+    ``probes``: the probe snapshots with ``set_aside`` left out and ``probe_in_service`` their
+    branches in service; ``device_of``: each point's device number (−1: none); ``power``: which
+    points are power channels (None: all)."""
+
+    estimator: Estimator
+    correlation: Callable[[int], np.ndarray | None]
+    candidates: np.ndarray
+    stat: np.ndarray
+    base: np.ndarray
+    set_aside: np.ndarray
+    probes: ProbeSet
+    probe_in_service: np.ndarray
+    device_of: np.ndarray
+    power: np.ndarray | None = None
+
+
+@dataclass(frozen=True)
+class SuspectSettings:
+    """``threshold``: the normalized-residual threshold of the screening; at most
+    ``max_points`` points set aside per round."""
+
+    threshold: float
+    max_points: int = 32
+
+
+def pick_suspects(screening: ScreeningRound, settings: SuspectSettings) -> list[int]:
+    """Points to set aside this round (see the module docstring)."""
+    r = screening
+    stat = np.nan_to_num(np.asarray(r.stat, float), nan=0.0, posinf=1e12)
     corr: dict[int, np.ndarray | None] = {}
 
     def corr_row(i: int) -> np.ndarray | None:
         if i not in corr:
-            corr[i] = correlation(i)
+            corr[i] = r.correlation(i)
         return corr[i]
 
-    status0 = probe_status[0] if len(probe_status) else None
+    in_service0 = r.probe_in_service[0] if len(r.probe_in_service) else None
     picked: list[int] = []
-    remaining = [int(i) for i in candidates[np.argsort(-stat[candidates])]]
-    while remaining and len(picked) < max_points:
+    remaining = [int(i) for i in r.candidates[np.argsort(-stat[r.candidates])]]
+    while remaining and len(picked) < settings.max_points:
         top = remaining[0]
         row = corr_row(top)
         cluster = [top]
@@ -55,15 +83,15 @@ def pick_suspects(estimator: Estimator, correlation, candidates: np.ndarray, sta
             rho = np.nan_to_num(row, nan=0.0, posinf=0.0, neginf=0.0)
             cluster += [j for j in remaining[1:]
                         if abs(rho[j]) > CLUSTER_CORRELATION][:CLUSTER_SIZE - 1]
-        units = _units(cluster, device_of, base & ~set_aside, power)
-        best = _eliminate(estimator, units, set_aside, picked, probes, base, status0)
+        units = _units(cluster, r.device_of, r.base & ~r.set_aside, r.power)
+        best = _eliminate(r.estimator, units, r.set_aside, picked, r.probes, r.base, in_service0)
         if best is None:
             remaining = remaining[1:]
             continue
         picked += [i for i in best if i not in picked]
         gone = set(best) | set(cluster)
         remaining = [j for j in remaining if j not in gone
-                     and not _explained(j, picked, stat, corr_row, threshold)]
+                     and not _explained(j, picked, stat, corr_row, settings.threshold)]
         if row is None:
             break  # without correlations, one unit per round
     return picked
@@ -93,18 +121,19 @@ def _units(cluster: list[int], device_of: np.ndarray, available: np.ndarray,
     return out
 
 
-def _eliminate(estimator, units, set_aside, picked, probes: ProbeSet, base, status0):
+def _eliminate(estimator, units, set_aside, picked, probes: ProbeSet, base, in_service0):
     """The unit whose removal lowers the probe objective most (smaller units win near-ties)."""
     trials = []
     before = set_aside.copy()
     before[picked] = True
     # A unit may be set aside only if every bus estimated now stays estimated, in no more
     # islands: partial observability is normal, losing more of it is not.
-    now = estimator.observability(base & ~before, status0) if status0 is not None else None
+    now = estimator.observability(base & ~before, in_service0) if in_service0 is not None else None
     for u in units:
         removed = before.copy()
         removed[u] = True
-        if now is not None and not estimator.observability(base & ~removed, status0).covers(now):
+        if now is not None and \
+                not estimator.observability(base & ~removed, in_service0).covers(now):
             continue
         if len(units) == 1:
             return u

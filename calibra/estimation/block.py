@@ -4,6 +4,8 @@ around one reference state (see :mod:`calibra.estimation.week` for the method)."
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pandas as pd
 import scipy.sparse as sp
@@ -22,6 +24,7 @@ from calibra.estimation.block_parts import (
     BlockResult,
     ColumnCache,
     MissingGroup,
+    ReferenceSetup,
     converged_reason,
     describe_error,
     nearest_in_time,
@@ -51,12 +54,12 @@ from calibra.estimation.wls import Estimator
 class BlockSolver:
     """Solves many snapshots of one topology around one reference state together."""
 
-    def __init__(self, estimator: Estimator, status: np.ndarray,
+    def __init__(self, estimator: Estimator, in_service: np.ndarray,
                  tolerance: float = BLOCK_TOLERANCE,
                  max_iterations: int = 40, partial: bool = False, statistics: bool = True):
         self.estimator = estimator
         self.model = estimator.model
-        self.status = status
+        self.in_service = in_service
         self.tolerance = tolerance
         self.max_iterations = max_iterations
         #: Accept a reference that is not fully observable (a block inside an RTU outage):
@@ -65,6 +68,15 @@ class BlockSolver:
         #: False: states, residuals and objectives only, no residual covariance Ω (no dense
         #: state covariance: what screening probes need on a large network).
         self.statistics = statistics
+        #: Set up at the reference state by each solve (None before).
+        self.setup: ReferenceSetup | None = None
+        # Per-solve working state of the block iteration.
+        self._columns: ColumnCache | None = None
+        self._cons_on: np.ndarray | None = None
+        self._diverged: np.ndarray | None = None
+        self._newton_last: dict[int, float] = {}
+        self._states: tuple[np.ndarray, np.ndarray] | None = None
+        self._small_woodbury = None
 
     # ------------------------------------------------------------------ public
     def solve(self, Z: np.ndarray, confidence: float = 0.99) -> BlockResult:
@@ -84,7 +96,7 @@ class BlockSolver:
         why = f"block iteration failed ({describe_error(exc)})"
         if k >= 2 * MIN_SPLIT:
             half = k // 2
-            parts = [BlockSolver(self.estimator, self.status, self.tolerance,
+            parts = [BlockSolver(self.estimator, self.in_service, self.tolerance,
                                  self.max_iterations, self.partial, self.statistics
                                  ).solve(Z[a:b], confidence)
                      for a, b in ((0, half), (half, k))]
@@ -133,7 +145,7 @@ class BlockSolver:
             blockable = [g for g in groups if g.factor is not None or g.missing.size == 0]
             for g in blockable:
                 if g.unusable is not None:  # rows its lost part makes unusable
-                    avail[np.ix_(g.members, self._idx[g.unusable])] = False
+                    avail[np.ix_(g.members, self.setup.idx[g.unusable])] = False
             if blockable:
                 done, iters = self._iterate(Z, avail, blockable, out)
                 for g in blockable:
@@ -145,8 +157,8 @@ class BlockSolver:
                         rows[i] = {"converged": True, "iterations": int(iters[i]),
                                    "method": "block", "reason": converged_reason(own),
                                    **outcome_of(own),
-                                   "dof": int(avail[i].sum()) - (self._nx - free)
-                                   + (self._cidx.size - off)}
+                                   "dof": int(avail[i].sum()) - (self.setup.nx - free)
+                                   + (self.setup.cidx.size - off)}
                     # Gauss-Newton on its own matrix did not converge either (its normal
                     # equations can stall at steps of 1e-5 on a stiff model): the single
                     # estimator, which finishes on the augmented matrix, takes it over.
@@ -172,7 +184,7 @@ class BlockSolver:
             members = rest[inverse.ravel() == g]
             if members.size < 4:
                 continue
-            sub = BlockSolver(self.estimator, self.status, self.tolerance, self.max_iterations,
+            sub = BlockSolver(self.estimator, self.in_service, self.tolerance, self.max_iterations,
                               partial=True, statistics=self.statistics
                               ).solve(Z[members], confidence)
             ok = sub.outcomes["method"].to_numpy() == "block"
@@ -192,7 +204,7 @@ class BlockSolver:
         base = avail.any(axis=0)
         if not base.any():
             return None
-        whole = self.estimator.observability(base, self.status)
+        whole = self.estimator.observability(base, self.in_service)
         if whole.n_islands == 0:
             return None
         # The block iterates around the reference's operating point: the snapshot nearest the
@@ -213,7 +225,7 @@ class BlockSolver:
         filled = nearest_in_time(Z) if not self.partial else Z
         for cand in order[:5]:
             # The block's tolerance is enough for a reference.
-            est = self.estimator.estimate(filled[cand], None, self.status,
+            est = self.estimator.estimate(filled[cand], None, self.in_service,
                                           tolerance=max(self.tolerance, 1e-8))
             if est.converged and (self.partial or est.observability.covers(whole)):
                 return est
@@ -222,7 +234,7 @@ class BlockSolver:
     def _prepare(self, ref, base: np.ndarray) -> None:
         """Iteration matrix K₀ at the reference state, K₀⁻¹'s state columns and Ωᵢᵢ of the
         base set."""
-        model, status = self.model, self.status
+        model, in_service = self.model, self.in_service
         funcs, cons = model.functions, model.constraints
         layout: StateLayout = ref.layout
         nx = layout.n_state
@@ -230,25 +242,21 @@ class BlockSolver:
         nc = cidx.size
         idx = np.flatnonzero(base)
         var = model.sigma_pu[idx] ** 2
-        H0 = funcs.jacobian(ref.vm, ref.va, layout, status)[idx].tocsr()
+        H0 = funcs.jacobian(ref.vm, ref.va, layout, in_service)[idx].tocsr()
         G0 = (H0.T @ sp.diags(1.0 / var) @ H0).tocsc()
-        C0 = cons.jacobian(ref.vm, ref.va, layout, status)[cidx]
+        C0 = cons.jacobian(ref.vm, ref.va, layout, in_service)[cidx]
         # Bus couplers make G₀ badly conditioned (near-parallel columns): work in variables
         # that separate their stiff differences (x = T x'), K₀⁻¹ = T_f K₀'⁻¹ T_fᵀ.
-        T = self._stiff = stiff_transform(model.network, layout, status)
+        T = stiff_transform(model.network, layout, in_service)
         Gn, Cn = (G0, sp.csr_matrix(C0)) if T is None else \
             ((T.T @ G0 @ T).tocsc(), sp.csr_matrix(C0) @ T)
-        self._solve_k0 = kkt_solver(G0, C0, T)
-        self._H0 = H0
-        self._C0 = sp.csr_matrix(C0)
-        self._g0_diag = G0.diagonal()
+        solve_k0 = kkt_solver(G0, C0, T)
         # A dense copy makes row access cheap; only when it stays small.
-        self._H0_dense = H0.toarray() if idx.size * nx <= 5_000_000 else None
-        self._var = var
-        self._idx = idx
-        self._layout, self._cidx, self._nx, self._ref = layout, cidx, nx, ref
-        self._omega_diag = self._P = self._Mt = None
+        H0_dense = H0.toarray() if idx.size * nx <= 5_000_000 else None
+        setup = ReferenceSetup(ref, layout, idx, cidx, nx, var, H0, sp.csr_matrix(C0), H0_dense,
+                               G0.diagonal(), T, solve_k0)
         if not self.statistics:
+            self.setup = setup
             return
         # Ωᵢᵢ = Rᵢᵢ − H₀ᵢ P H₀ᵢᵀ over the base list from the state covariance P (K₀⁻¹'s state
         # block, dense, once per block); the Woodbury updates need only solves with K₀.
@@ -259,13 +267,14 @@ class BlockSolver:
         if cols is None:
             E = np.zeros((nx + nc, nx))
             E[np.arange(nx), np.arange(nx)] = 1.0
-            K0_state = kkt_solver(Gn, Cn)(E) if T is not None else self._solve_k0(E)
+            K0_state = kkt_solver(Gn, Cn)(E) if T is not None else solve_k0(E)
             cols = (np.ascontiguousarray(K0_state[:nx]), K0_state[nx:])
         # K₀⁻¹[Hᵢᵀ; 0] for a missing row i is then a sum of a few columns of P and M: far
         # cheaper than a solve.
-        self._P, self._Mt = cols[0], np.ascontiguousarray(cols[1].T)
-        self._Hn = H0 if T is None else (H0 @ T).tocsr()
-        self._omega_diag = var - quadratic_diagonal(self._Hn, self._P)
+        P, Mt = cols[0], np.ascontiguousarray(cols[1].T)
+        Hn = H0 if T is None else (H0 @ T).tocsr()
+        self.setup = replace(setup, P=P, Mt=Mt, Hn=Hn,
+                             omega_diag=var - quadratic_diagonal(Hn, P))
 
     def _groups(self, avail: np.ndarray) -> list[MissingGroup]:
         """Group snapshots by the base measurements they miss; factorize each Ωₘₘ.
@@ -273,7 +282,7 @@ class BlockSolver:
         Groups with the same number of missing measurements are factorized together (stacked
         small matrices), which matters when most snapshots miss one or two samples.
         """
-        idx = self._idx
+        idx = self.setup.idx
         miss = ~avail[:, idx]
         keys = np.ascontiguousarray(np.packbits(miss, axis=1))
         keys = keys.view(np.dtype((np.void, keys.shape[1]))).ravel()
@@ -282,7 +291,7 @@ class BlockSolver:
         order = np.argsort(inverse, kind="stable")
         bounds = np.searchsorted(inverse[order], np.arange(first.size + 1))
         sets = [np.flatnonzero(miss[f]) for f in first]
-        groups = [MissingGroup(order[bounds[g]:bounds[g + 1]], sets[g], None, self._omega_diag)
+        groups = [MissingGroup(order[bounds[g]:bounds[g + 1]], sets[g], None, self.setup.omega_diag)
                   for g in range(first.size)]
         by_size: dict[int, list[int]] = {}
         for g, mset in enumerate(sets):
@@ -308,33 +317,36 @@ class BlockSolver:
         """Whether the block's pattern without the base rows ``missing`` estimates every bus
         of the block in as many islands."""
         avail = np.zeros(self.model.m, bool)
-        avail[self._idx] = True
-        avail[self._idx[missing]] = False
-        return self.estimator.observability(avail, self.status).covers(self._ref.observability)
+        setup = self.setup
+        avail[setup.idx] = True
+        avail[setup.idx[missing]] = False
+        return self.estimator.observability(avail, self.in_service).covers(
+            setup.ref.observability)
 
     def _k0_columns(self, rows: np.ndarray) -> np.ndarray:
         """K₀⁻¹[H₀ᵣᵀ; 0] ((nx + nc) × |rows|): from the sparse rows and K₀⁻¹'s state columns
         when the block has them (a few nonzeros per row), else by solves."""
-        if self._P is None:
+        if self.setup.P is None:
             h = self._H0_rows(rows)
-            return self._solve_k0(np.vstack([h.T, np.zeros((self._cidx.size, rows.size))]))
-        h = self._Hn[rows]
-        qx = np.asarray(h @ self._P).T
-        if self._stiff is not None:
-            qx = np.asarray(self._stiff @ qx)
-        return np.vstack([qx, np.asarray(h @ self._Mt).T])
+            return self.setup.solve_k0(np.vstack([h.T,
+                                                  np.zeros((self.setup.cidx.size, rows.size))]))
+        h = self.setup.Hn[rows]
+        qx = np.asarray(h @ self.setup.P).T
+        if self.setup.stiff is not None:
+            qx = np.asarray(self.setup.stiff @ qx)
+        return np.vstack([qx, np.asarray(h @ self.setup.Mt).T])
 
     def _H0_rows(self, rows: np.ndarray) -> np.ndarray:
-        if self._H0_dense is not None:
-            return self._H0_dense[rows]
-        return self._H0[rows].toarray()
+        if self.setup.H0_dense is not None:
+            return self.setup.H0_dense[rows]
+        return self.setup.H0[rows].toarray()
 
     # ------------------------------------------------------------------ block iteration
     def _iterate(self, Z: np.ndarray, avail: np.ndarray, groups: list[MissingGroup],
                  out: BlockResult):
         model = self.model
-        nc = self._cidx.size
-        ref = self._ref
+        nc = self.setup.cidx.size
+        ref = self.setup.ref
         k = Z.shape[0]
         inv_var = 1.0 / model.sigma_pu ** 2
         group_of = np.full(k, -1, np.int64)
@@ -358,7 +370,7 @@ class BlockSolver:
         pad_small_groups(self, k, groups)
         members = np.flatnonzero(group_of >= 0)
         self._diverged = np.zeros(k, bool)
-        self._newton_last: dict[int, float] = {}
+        self._newton_last = {}
         # Snapshots are independent: on a large network they go through in column chunks.
         width = max(8, COLUMN_CHUNK_BYTES // (16 * max(model.m, len(model.network.buses))))
         for c0 in range(0, members.size, width):
@@ -383,9 +395,9 @@ class BlockSolver:
         """The fixed-matrix iteration for the snapshots ``cols`` (results written back into
         vm, va, lam, done and iters). The chunk works on its own contiguous copies, from which
         converged columns are dropped, so an iteration indexes nothing."""
-        model, status, layout = self.model, self.status, self._layout
+        model, in_service, layout = self.model, self.in_service, self.setup.layout
         funcs, cons = model.functions, model.constraints
-        nx, cidx = self._nx, self._cidx
+        nx, cidx = self.setup.nx, self.setup.cidx
         nc = cidx.size
         live = np.asarray(cols)  # snapshots still iterating, in the order of the local arrays
         z, w = Zt[:, live], W[:, live]
@@ -397,17 +409,17 @@ class BlockSolver:
             if live.size == 0:
                 break
             phasors = unit_phasors(x_va)
-            _, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w), phasors)
+            _, rhs = funcs.evaluate_with_gradient(x_vm, x_va, layout, in_service, (z, w), phasors)
             if nc:
                 lam_rows = np.zeros((cons.m, live.size))
                 lam_rows[cidx] = x_lam
-                c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, status, layout, lam_rows,
+                c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, layout, in_service, lam_rows,
                                                         phasors)
                 c = -c[cidx]
                 if dropped:
                     c[~on] = 0.0
                 rhs = np.vstack([rhs - c_grad, c])
-            sol = self._solve_k0(rhs)
+            sol = self.setup.solve_k0(rhs)
             woodbury(self, sol, live, group_of, groups)
             step = np.abs(sol[:nx]).max(axis=0)
             sol = accel.step(sol, nx)
@@ -434,14 +446,14 @@ class BlockSolver:
 
     def _residuals(self, Z, avail, groups, single, out: BlockResult) -> None:
         model = self.model
-        idx = self._idx
+        idx = self.setup.idx
         ok = np.flatnonzero(~single)
         if ok.size == 0:
             return
         vm = self._states[0][:, ok]
         va = self._states[1][:, ok]
         h = model.functions.evaluate(np.nan_to_num(vm, nan=1.0), np.nan_to_num(va),
-                                     self.status).T
+                                     self.in_service).T
         out.residual[ok] = np.where(avail[ok], Z[ok] - h, np.nan)
         if not self.statistics:
             return
@@ -456,7 +468,7 @@ class BlockSolver:
     # ------------------------------------------------------------------ fallback
     def _single(self, i: int, z: np.ndarray, confidence: float, out: BlockResult) -> dict:
         try:
-            est = self.estimator.estimate(z, None, self.status, tolerance=self.tolerance)
+            est = self.estimator.estimate(z, None, self.in_service, tolerance=self.tolerance)
         except NUMERICAL_ERRORS as exc:
             return {"converged": False, "iterations": 0, "method": "single",
                     "reason": f"estimate failed: {describe_error(exc)}", "observable": False,

@@ -4,12 +4,15 @@ Woodbury downdate of Ω, a cache of K₀⁻¹ columns, Anderson mixing, outcome 
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 import scipy.linalg as la
+import scipy.sparse as sp
 
+from calibra.estimation.measurements import StateLayout
 from calibra.estimation.observability import Observability
 
 #: Largest number of missing measurements handled by the Woodbury update of Ω.
@@ -42,6 +45,30 @@ class BlockResult:
     residual: np.ndarray
     omega: np.ndarray
     outcomes: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class ReferenceSetup:
+    """What a block solve sets up once at its reference state: the base rows, K₀ (its solver,
+    H₀, C₀, G₀'s diagonal) and, with statistics, K₀⁻¹'s state columns and Ωᵢᵢ of the base set
+    (P, Mᵀ, H₀ in the stiff transform's variables; None without statistics)."""
+
+    ref: object  # the reference SnapshotEstimate
+    layout: StateLayout
+    idx: np.ndarray  # base rows (measurements any snapshot of the block has)
+    cidx: np.ndarray  # constraints used
+    nx: int
+    var: np.ndarray  # σ² of the base rows
+    H0: sp.csr_matrix
+    C0: sp.csr_matrix
+    H0_dense: np.ndarray | None
+    g0_diag: np.ndarray
+    stiff: sp.spmatrix | None  # the stiff transform T (x = T x'), None when not needed
+    solve_k0: Callable[[np.ndarray], np.ndarray]
+    P: np.ndarray | None = None
+    Mt: np.ndarray | None = None
+    Hn: sp.csr_matrix | None = None
+    omega_diag: np.ndarray | None = None
 
 
 @dataclass

@@ -47,19 +47,19 @@ def factorize_reduced(s: BlockSolver, g: MissingGroup) -> None:
     then appear in no row left, so the held values change nothing else: the iteration
     converges to the exact estimate of the observable part, and Woodbury gives K_s⁻¹
     from K₀⁻¹ with the capacitance −(C⁻¹ + UᵀK₀⁻¹U)."""
-    model, idx, ref = s.model, s._idx, s._ref
-    layout, nx, nc = s._layout, s._nx, s._cidx.size
+    model, idx, ref = s.model, s.setup.idx, s.setup.ref
+    layout, nx, nc = s.setup.layout, s.setup.nx, s.setup.cidx.size
     avail = np.zeros(model.m, bool)
     avail[idx] = True
     avail[idx[g.missing]] = False
-    obs = s.estimator.observability(avail, s.status)
+    obs = s.estimator.observability(avail, s.in_service)
     if obs.n_islands == 0:
         return
     unusable = np.flatnonzero(~obs.usable[idx] & avail[idx])
     removed = np.union1d(g.missing, unusable)
     if removed.size > MAX_WOODBURY:
         return
-    off = ~obs.constraints_usable[s._cidx]
+    off = ~obs.constraints_usable[s.setup.cidx]
     lost = ref.observability.estimated_buses & ~obs.estimated_buses
     pins = [layout.magnitude_column[lost], layout.angle_column[lost]]
     block_refs = set(ref.observability.references.tolist())
@@ -72,9 +72,9 @@ def factorize_reduced(s: BlockSolver, g: MissingGroup) -> None:
     dim = nx + nc
     h_rows = s._H0_rows(removed)
     cons_rows = np.flatnonzero(off)
-    C0 = s._C0
+    C0 = s.setup.C0
     blocks = [np.hstack([h_rows, np.zeros((removed.size, nc))])]
-    cinv = [np.diag(-s._var[removed])]
+    cinv = [np.diag(-s.setup.var[removed])]
     for j in cons_rows:
         pair = np.zeros((2, dim))
         pair[0, :nx] = C0[j].toarray().ravel()
@@ -85,12 +85,12 @@ def factorize_reduced(s: BlockSolver, g: MissingGroup) -> None:
         e = np.zeros((pins.size, dim))
         e[np.arange(pins.size), pins] = 1.0
         blocks.append(e)
-        cinv.append(np.diag(1.0 / np.maximum(s._g0_diag[pins], 1e-12)))
+        cinv.append(np.diag(1.0 / np.maximum(s.setup.g0_diag[pins], 1e-12)))
     Ut = np.vstack(blocks)  # r × dim
     Q = np.empty((dim, Ut.shape[0]))  # K₀⁻¹U
     Q[:, :removed.size] = s._columns.get(removed)
     if Ut.shape[0] > removed.size:
-        Q[:, removed.size:] = s._solve_k0(np.ascontiguousarray(Ut[removed.size:].T))
+        Q[:, removed.size:] = s.setup.solve_k0(np.ascontiguousarray(Ut[removed.size:].T))
     cap = -(la.block_diag(*cinv) + Ut @ Q)
     d = 1.0 / np.sqrt(np.maximum(np.abs(np.diag(cap)), 1e-300))
     scaled = cap * d[:, None] * d[None, :]
@@ -107,7 +107,7 @@ def factorize_reduced(s: BlockSolver, g: MissingGroup) -> None:
     g.observability, g.unusable, g.constraints_off, g.lost = obs, unusable, off, lost
     g.pins = pins
     if s.statistics:
-        g.omega_diag = downdated(s._omega_diag, -np.asarray(s._H0 @ Q[:nx]).T,
+        g.omega_diag = downdated(s.setup.omega_diag, -np.asarray(s.setup.H0 @ Q[:nx]).T,
                                   factor)
 
 
@@ -122,14 +122,14 @@ def factorize(s: BlockSolver, M: np.ndarray, groups: list[MissingGroup]) -> None
     # than products with the dense covariance on a large network).
     h_union = s._H0_rows(union)
     q_union = s._columns.get(union)
-    om_uu = np.diag(s._var[union]) - h_union @ q_union[:s._nx]
+    om_uu = np.diag(s.setup.var[union]) - h_union @ q_union[:s.setup.nx]
     om_mm = om_uu[pos[:, :, None], pos[:, None, :]]
     om_ma = None
     if s.statistics:  # rows of Ω over the base list: Rδ − H₀ K₀⁻¹[Hᵤᵀ; 0]
-        rows_u = -np.asarray(s._H0 @ q_union[:s._nx]).T
-        rows_u[np.arange(union.size), union] += s._var[union]
+        rows_u = -np.asarray(s.setup.H0 @ q_union[:s.setup.nx]).T
+        rows_u[np.arange(union.size), union] += s.setup.var[union]
         om_ma = rows_u[pos]  # (G, size, base)
-    scale = np.sqrt(s._var[M])
+    scale = np.sqrt(s.setup.var[M])
     S = om_mm / scale[:, :, None] / scale[:, None, :]
     try:
         L = np.linalg.cholesky(S)
@@ -159,21 +159,21 @@ def factorize(s: BlockSolver, M: np.ndarray, groups: list[MissingGroup]) -> None
         mset = M[g]
         grp = groups[g]
         grp.factor = inv[j]
-        grp.h_missing = np.hstack([h_union[pos[g]], np.zeros((mset.size, s._cidx.size))])
+        grp.h_missing = np.hstack([h_union[pos[g]], np.zeros((mset.size, s.setup.cidx.size))])
         grp.q_missing = q_union[:, pos[g]]
         if om_ma is not None:
-            grp.omega_diag = downdated(s._omega_diag, om_ma[g], inv[j])
+            grp.omega_diag = downdated(s.setup.omega_diag, om_ma[g], inv[j])
 
 
 def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, done, iters) -> None:
     """Gauss-Newton for snapshot i on its own matrix (its weights, the constraints it keeps,
     the states its pattern leaves free held), from its last iterate or, when the block
     iteration ran away, from the reference state."""
-    model, status, layout = s.model, s.status, s._layout
+    model, in_service, layout = s.model, s.in_service, s.setup.layout
     funcs, cons = model.functions, model.constraints
-    nx, cidx = s._nx, s._cidx
+    nx, cidx = s.setup.nx, s.setup.cidx
     nc = cidx.size
-    ref = s._ref
+    ref = s.setup.ref
     z, w = Zt[:, i:i + 1], W[:, i:i + 1]
     if s._diverged[i]:
         x_vm, x_va, x_lam = ref.vm[:, None].copy(), ref.va[:, None].copy(), \
@@ -185,7 +185,7 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
     on = s._cons_on[:, i]
     off = np.flatnonzero(~on)
     pins = g.pins if g.pins is not None else np.zeros(0, np.int64)
-    hold = sp.csr_matrix((s._g0_diag[pins] if pins.size else np.zeros(0),
+    hold = sp.csr_matrix((s.setup.g0_diag[pins] if pins.size else np.zeros(0),
                           (pins, pins)), shape=(nx, nx))
     D = sp.csr_matrix((np.ones(off.size), (off, off)), shape=(nc, nc)) if nc else None
     keep = sp.diags(on.astype(float)) if nc else None
@@ -197,12 +197,12 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
     steps: list[float] = []
     for it in range(1, s.max_iterations + 1):
         phasors = unit_phasors(x_va)
-        h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w), phasors)
+        h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, layout, in_service, (z, w), phasors)
         objective = float(np.sum(w * (z - h) ** 2))
         # Damped: a step that raised J is halved (up to four times), as the single
         # estimator does.
         halvings = 0
-        feasible = not nc or float(np.abs(cons.evaluate(x_vm, x_va, status)[cidx][on]).max(
+        feasible = not nc or float(np.abs(cons.evaluate(x_vm, x_va, in_service)[cidx][on]).max(
             initial=0.0)) < FEASIBLE
         while previous is not None and halvings < 4 and feasible and \
                 objective > objective_before * (1 + OVERSHOOT):
@@ -212,7 +212,7 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
             x_vm, x_va = layout.apply_step(p_vm, p_va, p_sol[:nx])
             x_lam = (p_lam + p_sol[nx:]) * on[:, None] if nc else p_lam
             phasors = unit_phasors(x_va)
-            h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, status, layout, (z, w),
+            h, rhs = funcs.evaluate_with_gradient(x_vm, x_va, layout, in_service, (z, w),
                                                   phasors)
             objective = float(np.sum(w * (z - h) ** 2))
             halvings += 1
@@ -224,7 +224,7 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
         if nc:
             lam_rows = np.zeros((cons.m, 1))
             lam_rows[cidx] = x_lam * on[:, None]
-            c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, status, layout, lam_rows,
+            c, c_grad = cons.evaluate_with_gradient(x_vm, x_va, layout, in_service, lam_rows,
                                                     phasors)
             c = -c[cidx]
             c[off] = 0.0
@@ -232,12 +232,12 @@ def newton_alone(s: BlockSolver, i: int, g: MissingGroup, Zt, W, vm, va, lam, do
         # The matrix is refactorized while the steps shrink slowly; once they contract
         # fast it is kept (the right-hand side is exact, so the fixed point is the same).
         if solver is None or uses >= REFRESH_ALONE or not step < CONTRACTION * last:
-            H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)
+            H = funcs.jacobian(x_vm[:, 0], x_va[:, 0], layout, in_service)
             G = (H.T @ sp.diags(w[:, 0]) @ H + hold).tocsc()
-            C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, status)[cidx] if nc \
+            C = keep @ cons.jacobian(x_vm[:, 0], x_va[:, 0], layout, in_service)[cidx] if nc \
                 else sp.csr_matrix((0, nx))
             try:
-                solver = kkt_solver(G, C, s._stiff, D, ORDERINGS_ALONE, dense=False)
+                solver = kkt_solver(G, C, s.setup.stiff, D, ORDERINGS_ALONE, dense=False)
             except NUMERICAL_ERRORS:
                 break
             uses = 0
@@ -307,7 +307,7 @@ def pad_small_groups(s: BlockSolver, k: int, groups: list[MissingGroup]) -> None
         s._small_woodbury = None
         return
     width = max(woodbury_rank(g) for g in small)
-    dim = s._nx + s._cidx.size
+    dim = s.setup.nx + s.setup.cidx.size
     h = np.zeros((len(small), width, dim))
     f = np.zeros((len(small), width, width))
     q = np.zeros((dim, len(small), width))

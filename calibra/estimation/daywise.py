@@ -23,8 +23,8 @@ import pandas as pd
 
 from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.site_estimate import checked_topology
-from calibra.estimation.week import PeriodResult, estimate_period
+from calibra.estimation.period import prepare_period
+from calibra.estimation.week import PeriodResult, SolverSettings, estimate_period
 from calibra.estimation.wls import Estimator
 from calibra.io.site_folder import open_history, resolve_period
 from calibra.model.availability import availability_lines
@@ -205,12 +205,11 @@ def estimate_by_day(
         snaps = site.snapshots
         if snaps.empty:
             continue
-        z = model.to_per_unit(snaps.reindex(columns=model.tags).to_numpy(float))
-        status, conflicts = checked_topology(site, snaps)
-        summary.conflicts += [c.describe(site.timezone) for c in conflicts]
-        result = estimate_period(estimator, z, status, snaps.index, confidence=confidence,
-                                 workers=workers)
-        del z, site
+        day = prepare_period(site, snaps, estimator=estimator)
+        summary.conflicts += [c.describe(site.timezone) for c in day.status_conflicts]
+        result = estimate_period(estimator, day.z, day.in_service, day.index,
+                                 settings=SolverSettings(confidence=confidence), workers=workers)
+        del day, site
         rn = normalized_residuals(result)
         summary.points.add(rn)
         summary.add_day(result)

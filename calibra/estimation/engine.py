@@ -12,37 +12,30 @@ from __future__ import annotations
 from typing import Protocol
 
 import numpy as np
-import pandas as pd
 
-from calibra.estimation.week import PeriodResult, estimate_period
-from calibra.estimation.wls import Estimator
+from calibra.estimation.period import PreparedPeriod
+from calibra.estimation.week import PeriodResult, SolverSettings, estimate_period
 
 
 class PeriodEngine(Protocol):
-    def estimate(self, rows: np.ndarray, set_aside: np.ndarray, max_block: int,
-                 tolerance: float, confidence: float, progress=None,
-                 by_day: bool = True) -> PeriodResult:
-        """Estimate snapshots ``rows`` (positions in the period) without the set-aside points.
+    def estimate(self, period: PreparedPeriod, rows: np.ndarray, set_aside: np.ndarray, *,
+                 settings: SolverSettings, progress=None, by_day: bool = True) -> PeriodResult:
+        """Estimate snapshots ``rows`` (positions in ``period``) without the set-aside points.
         ``by_day=False``: blocks may cross days (a thin sample such as the screening's, where
         one block per day would hold a handful of snapshots)."""
         ...
 
 
 class LocalEngine:
-    """Estimates on this machine from the period's values already in memory (per unit)."""
+    """Estimates on this machine from the period's values already in memory (per unit), in
+    ``workers`` processes (default: :func:`~calibra.estimation.runtime.default_workers`)."""
 
-    def __init__(self, estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
-                 index: pd.DatetimeIndex, workers: int | None = None):
-        self.estimator = estimator
-        self.z = z
-        self.in_service = in_service
-        self.index = index
+    def __init__(self, workers: int | None = None):
         self.workers = workers
 
-    def estimate(self, rows: np.ndarray, set_aside: np.ndarray, max_block: int,
-                 tolerance: float, confidence: float, progress=None,
-                 by_day: bool = True) -> PeriodResult:
-        z = np.where(set_aside[None, :], np.nan, self.z[rows])
-        return estimate_period(self.estimator, z, self.in_service[rows], self.index[rows],
-                               max_block, confidence, progress, tolerance, self.workers,
+    def estimate(self, period: PreparedPeriod, rows: np.ndarray, set_aside: np.ndarray, *,
+                 settings: SolverSettings, progress=None, by_day: bool = True) -> PeriodResult:
+        z = np.where(set_aside[None, :], np.nan, period.z[rows])
+        return estimate_period(period.estimator, z, period.in_service[rows], period.index[rows],
+                               settings=settings, progress=progress, workers=self.workers,
                                by_day=by_day)

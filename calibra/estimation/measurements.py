@@ -137,12 +137,13 @@ class MeasurementFunctions:
     def entry_admittances(self, in_service: np.ndarray | None = None) -> np.ndarray:
         """Admittance of every pattern entry for a topology (cached per topology)."""
         net = self.network
-        status = net.default_in_service() if in_service is None else np.asarray(in_service, bool)
-        key = status.tobytes()
+        in_service = net.default_in_service() if in_service is None else \
+            np.asarray(in_service, bool)
+        key = in_service.tobytes()
         cached = self._values_cache.get(key)
         if cached is not None:
             return cached
-        adm = net.branch_admittances(status)
+        adm = net.branch_admittances(in_service)
         tm = self.terminals
         y = np.zeros(len(tm.entry_row), complex)
         kind = tm.kind[tm.entry_row]
@@ -156,7 +157,7 @@ class MeasurementFunctions:
         y[b1 & ~own] = adm.ytf[elem[b1 & ~own]]
         inj = kind == 2
         if inj.any():
-            ybus, _, _ = net.admittance_matrices(status)
+            ybus, _, _ = net.admittance_matrices(in_service)
             y[inj] = np.asarray(ybus[elem[inj], tm.entry_col[inj]]).ravel()
         if len(self._values_cache) > 64:
             self._values_cache.clear()
@@ -185,10 +186,11 @@ class MeasurementFunctions:
         h[rows_v] = vm[bus_v]
         return h
 
-    def evaluate_with_gradient(self, vm: np.ndarray, va: np.ndarray, in_service, state,
-                               weights, phasors: np.ndarray | None = None,
+    def evaluate_with_gradient(self, vm: np.ndarray, va: np.ndarray, state: StateLayout,
+                               in_service, weights, phasors: np.ndarray | None = None,
                                ) -> tuple[np.ndarray, np.ndarray]:
-        """h(x) and Hᵀ·w in one pass (the terminal currents are computed once).
+        """h(x) and Hᵀ·w in one pass (the terminal currents are computed once); arguments in
+        the order of :meth:`jacobian` (state, layout, in-service branches), then the weights.
 
         ``weights`` is either an (m, k) array w, or a pair (z, ω) for the weighted residual
         w = ω ∘ (z − h(x)), which needs h first. ``phasors``: exp(jθ) when already known.

@@ -106,9 +106,9 @@ class ObservabilityStructure:
         self.network = network
         self.n = n = network.n_bus
         adm = network.branch_admittances(np.ones(network.n_branch, bool))
-        status = np.asarray(in_service, bool)
+        in_service = np.asarray(in_service, bool)
         self.f, self.t = adm.f, adm.t
-        self.on = status & (adm.f != adm.t)
+        self.on = in_service & (adm.f != adm.t)
         code = np.r_[np.asarray(code, np.int64), np.asarray(cons_code, np.int64)]
         element = np.r_[np.asarray(element, np.int64), np.asarray(cons_element, np.int64)]
         self.m = len(code) - len(cons_code)

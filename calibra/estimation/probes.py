@@ -34,7 +34,7 @@ class _Probe:
 
     z: np.ndarray  # measurements (m), 0 where not used
     w: np.ndarray  # weights 1/σ² of the used rows (m), 0 elsewhere
-    status: np.ndarray
+    in_service: np.ndarray
     layout: StateLayout
     cidx: np.ndarray  # constraints in use
     vm: np.ndarray
@@ -61,10 +61,10 @@ class ProbeSet:
             self.probes.append(self._settle(zj, np.asarray(in_service[j], bool), start))
 
     # ------------------------------------------------------------------ the base solution
-    def _settle(self, z: np.ndarray, status: np.ndarray, start) -> _Probe | None:
+    def _settle(self, z: np.ndarray, in_service: np.ndarray, start) -> _Probe | None:
         est, model = self.estimator, self.model
         avail = np.isfinite(z) & ~self.left_out
-        obs = est.observability(avail, status)
+        obs = est.observability(avail, in_service)
         if obs.n_islands == 0:
             return None
         layout = StateLayout.build(model.network.n_bus, obs.references, obs.estimated_buses)
@@ -72,7 +72,7 @@ class ProbeSet:
         cidx = np.flatnonzero(obs.constraints_usable) if model.constraints.m else \
             np.zeros(0, np.int64)
         if start is None or not np.isfinite(start[0][obs.estimated_buses]).all():
-            first = est.estimate(np.where(used, z, np.nan), None, status, keep_jacobian=False,
+            first = est.estimate(np.where(used, z, np.nan), None, in_service, keep_jacobian=False,
                                  tolerance=self.tolerance)
             if not first.converged:
                 return None
@@ -82,10 +82,10 @@ class ProbeSet:
         zz = np.where(used, z, 0.0)[:, None]
         w = np.where(used, 1.0 / model.sigma_pu ** 2, 0.0)[:, None]
         lam = np.zeros((cidx.size, 1))
-        T = stiff_transform(model.network, layout, status)
+        T = stiff_transform(model.network, layout, in_service)
         for _ in range(_NEWTON_ITERATIONS):
-            H, solve = self._factor(vm, va, w, status, layout, cidx, T)
-            rhs = self._gradient(vm, va, lam, zz, w, status, layout, cidx)
+            H, solve = self._factor(vm, va, w, in_service, layout, cidx, T)
+            rhs = self._gradient(vm, va, lam, zz, w, in_service, layout, cidx)
             sol = solve(rhs)
             step = float(np.abs(sol[:layout.n_state]).max())
             if not np.isfinite(step):
@@ -94,29 +94,29 @@ class ProbeSet:
                 sol *= _MAX_STEP / step
             vm, va, lam = self._apply(vm, va, lam, sol, layout)
             if step < self.tolerance:
-                H, solve = self._factor(vm, va, w, status, layout, cidx, T)
-                h = model.functions.evaluate(vm, va, status)
+                H, solve = self._factor(vm, va, w, in_service, layout, cidx, T)
+                h = model.functions.evaluate(vm, va, in_service)
                 objective = float(np.sum(w * (zz - h) ** 2))
-                return _Probe(zz[:, 0], w[:, 0], status, layout, cidx, vm, va, lam, solve, H,
+                return _Probe(zz[:, 0], w[:, 0], in_service, layout, cidx, vm, va, lam, solve, H,
                               objective)
         return None
 
-    def _factor(self, vm, va, w, status, layout, cidx, T):
+    def _factor(self, vm, va, w, in_service, layout, cidx, T):
         funcs, cons = self.model.functions, self.model.constraints
-        H = funcs.jacobian(vm[:, 0], va[:, 0], layout, status).tocsr()
+        H = funcs.jacobian(vm[:, 0], va[:, 0], layout, in_service).tocsr()
         G = (H.T @ sp.diags(w[:, 0]) @ H).tocsc()
-        C = cons.jacobian(vm[:, 0], va[:, 0], layout, status)[cidx] if cidx.size else \
+        C = cons.jacobian(vm[:, 0], va[:, 0], layout, in_service)[cidx] if cidx.size else \
             sp.csr_matrix((0, layout.n_state))
         return H, kkt_solver(G, C, T, None, _ORDERING, dense=False)
 
-    def _gradient(self, vm, va, lam, z, w, status, layout, cidx) -> np.ndarray:
+    def _gradient(self, vm, va, lam, z, w, in_service, layout, cidx) -> np.ndarray:
         funcs, cons = self.model.functions, self.model.constraints
         phasors = unit_phasors(va)
-        _, rhs = funcs.evaluate_with_gradient(vm, va, status, layout, (z, w), phasors)
+        _, rhs = funcs.evaluate_with_gradient(vm, va, layout, in_service, (z, w), phasors)
         if cidx.size:
             lam_rows = np.zeros((cons.m, vm.shape[1]))
             lam_rows[cidx] = lam
-            c, c_grad = cons.evaluate_with_gradient(vm, va, status, layout, lam_rows, phasors)
+            c, c_grad = cons.evaluate_with_gradient(vm, va, layout, in_service, lam_rows, phasors)
             rhs = np.vstack([rhs - c_grad, -c[cidx]])
         return rhs
 
@@ -203,7 +203,7 @@ class ProbeSet:
             if cols.size == 0:
                 break
             rhs = self._gradient(vm[:, cols], va[:, cols], lam[:, cols], z[:, cols], W[:, cols],
-                                 p.status, p.layout, p.cidx)
+                                 p.in_service, p.layout, p.cidx)
             sol = p.solve(rhs)
             for k, c in enumerate(cols):
                 if updates[c] is not None:
@@ -216,6 +216,6 @@ class ProbeSet:
             ok[cols[bad]] = False
             live[cols[bad | (step < self.tolerance)]] = False
         ok &= ~live  # still iterating after the budget: not converged
-        h = self.model.functions.evaluate(vm, va, p.status)
+        h = self.model.functions.evaluate(vm, va, p.in_service)
         objective = np.sum(W * (z - h) ** 2, axis=0)
         return objective, ok

@@ -21,7 +21,7 @@ import multiprocessing
 import os
 import sys
 import threading
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 
 # glibc mallopt parameters (malloc.h).
 _M_TRIM_THRESHOLD = -1
@@ -90,24 +90,39 @@ def fork_pool(workers: int):
     return multiprocessing.get_context("fork").Pool(workers, initializer=worker_setup)
 
 
-_TASK: dict = {}  # inherited by forked workers of fork_map: the function and the items
+_TASK: dict = {}  # inherited by forked workers of fork_imap: the function and the items
 
 
 def _call(i: int):
     return _TASK["fn"](_TASK["items"][i])
 
 
-def fork_map(fn: Callable, items: Iterable, workers: int | None = None) -> list:
-    """``[fn(x) for x in items]``, on forked worker processes where that is possible (see
-    :func:`can_fork`), else in this process. ``fn`` and the items are inherited by the workers,
-    not sent; only the results travel back (they must pickle). Same results either way."""
+def fork_imap(fn: Callable, items: Iterable, workers: int, *, ordered: bool = True,
+              chunksize: int = 1) -> Iterator:
+    """``fn(x)`` for each of ``items``, on ``workers`` forked processes where that is possible
+    (see :func:`can_fork`; in the order of the items, or as they finish unless ``ordered``),
+    else in this process in order. ``fn`` and the items are inherited by the workers, not
+    sent; only the results travel back (they must pickle). Same results either way."""
     items = list(items)
-    workers = min(default_workers() if workers is None else workers, len(items))
     if not can_fork(workers):
-        return [fn(x) for x in items]
+        yield from map(fn, items)
+        return
     _TASK.update(fn=fn, items=items)
+    pool = None
     try:
-        with fork_pool(workers) as pool:
-            return pool.map(_call, range(len(items)), chunksize=max(1, len(items) // (4 * workers)))
+        pool = fork_pool(workers)  # forked now: inherits _TASK
+        each = pool.imap if ordered else pool.imap_unordered
+        yield from each(_call, range(len(items)), chunksize)
     finally:
         _TASK.clear()
+        if pool is not None:
+            pool.terminate()
+            pool.join()
+
+
+def fork_map(fn: Callable, items: Iterable, workers: int | None = None) -> list:
+    """``[fn(x) for x in items]`` through :func:`fork_imap` (at most one worker per item)."""
+    items = list(items)
+    workers = min(default_workers() if workers is None else workers, len(items))
+    return list(fork_imap(fn, items, workers,
+                          chunksize=max(1, len(items) // (4 * max(workers, 1)))))

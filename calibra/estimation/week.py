@@ -26,7 +26,9 @@ operating point within the block is approximated (see DEVELOPERS.md for the meas
 from __future__ import annotations
 
 import mmap
+from contextlib import closing
 from dataclasses import dataclass
+from functools import partial
 
 import numpy as np
 import pandas as pd
@@ -37,7 +39,7 @@ from calibra.estimation.block_parts import (
     describe_error,
 )
 from calibra.estimation.residuals import chi_square_threshold
-from calibra.estimation.runtime import can_fork, default_workers, fork_pool, tune_allocator
+from calibra.estimation.runtime import can_fork, default_workers, fork_imap, tune_allocator
 from calibra.estimation.wls import Estimator
 
 
@@ -51,6 +53,16 @@ class PeriodResult:
     residual: np.ndarray
     omega: np.ndarray
     outcomes: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class SolverSettings:
+    """How a period's blocks are solved: the longest block, the largest state update accepted
+    as converged (pu / rad) and the chi-square test level."""
+
+    max_block: int = 360
+    tolerance: float = BLOCK_TOLERANCE
+    confidence: float = 0.99
 
 
 #: Longest time a block of consecutive snapshots spans: its operating points stay near its
@@ -94,22 +106,31 @@ def topology_runs(in_service: np.ndarray, max_block: int,
     return runs
 
 
-_WORK: dict = {}  # inherited by forked block workers: estimator, z, in_service, settings, out
+@dataclass(frozen=True)
+class _PeriodWork:
+    """What every block of a period needs (inherited by forked block workers, not sent), and
+    the period's output arrays (shared with them)."""
+
+    estimator: Estimator
+    z: np.ndarray
+    in_service: np.ndarray
+    settings: SolverSettings
+    out: tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]
+    index: pd.Index | None
 
 
-def _solve_run(run: tuple[int, int]) -> tuple[int, int, pd.DataFrame]:
+def _solve_run(w: _PeriodWork, run: tuple[int, int]) -> tuple[int, int, pd.DataFrame]:
     """Solve one block and write its arrays into the period's output (shared with the parent
     process when in a worker), returning only the outcomes table. Whatever goes wrong inside
     the block is an outcome of its snapshots, named with the block, never the period's end."""
     a, b = run
-    w = _WORK
-    vm, va, res, om = w["out"]
+    vm, va, res, om = w.out
     try:
-        solver = BlockSolver(w["estimator"], w["in_service"][a], tolerance=w["tolerance"])
-        block = solver.solve(w["z"][a:b], w["confidence"])
+        solver = BlockSolver(w.estimator, w.in_service[a], tolerance=w.settings.tolerance)
+        block = solver.solve(w.z[a:b], w.settings.confidence)
     except Exception as exc:  # noqa: BLE001 - reported per snapshot, with the block
         vm[a:b], va[a:b], res[a:b], om[a:b] = np.nan, np.nan, np.nan, np.nan
-        return a, b, failed_outcomes(b - a, block_label(w.get("index"), a, b), exc)
+        return a, b, failed_outcomes(b - a, block_label(w.index, a, b), exc)
     vm[a:b], va[a:b], res[a:b], om[a:b] = block.vm, block.va, block.residual, block.omega
     return a, b, block.outcomes
 
@@ -145,54 +166,47 @@ def estimate_period(
     z: np.ndarray,
     in_service: np.ndarray,
     index: pd.Index | None = None,
-    max_block: int = 360,
-    confidence: float = 0.99,
+    *,
+    settings: SolverSettings = SolverSettings(),
     progress=None,
-    tolerance: float = BLOCK_TOLERANCE,
     workers: int | None = None,
     by_day: bool = True,
 ) -> PeriodResult:
     """Estimate every snapshot of a period (k × m per unit) block by block.
 
-    Blocks hold one topology and at most ``max_block`` consecutive snapshots (6 h of one-minute
-    data by default), so the reference state of a block stays close to all its snapshots.
-    Blocks run in ``workers`` processes (default: :func:`default_workers`); each block is
-    solved the same way wherever it runs, so the results do not depend on the number of
-    workers. ``tolerance`` is the largest state update accepted as converged. Blocks break at
-    every UTC day unless ``by_day`` is False (a thin sample of the period).
+    Blocks hold one topology and at most ``settings.max_block`` consecutive snapshots (6 h of
+    one-minute data by default), so the reference state of a block stays close to all its
+    snapshots. Blocks run in ``workers`` processes (default: :func:`default_workers`); each
+    block is solved the same way wherever it runs, so the results do not depend on the number
+    of workers. ``settings.tolerance`` is the largest state update accepted as converged.
+    Blocks break at every UTC day unless ``by_day`` is False (a thin sample of the period).
     """
     tune_allocator()
     k, m = z.shape
     n = estimator.model.network.n_bus
-    runs = topology_runs(in_service, max_block, index if by_day else None)
+    runs = topology_runs(in_service, settings.max_block, index if by_day else None)
     workers = default_workers() if workers is None else workers
     parallel = len(runs) > 1 and can_fork(workers)
     # The runs cover every snapshot once, so every row of the outputs is written.
     vm, va = (_output_array((k, n), parallel) for _ in range(2))
     res, om = (_output_array((k, m), parallel) for _ in range(2))
     frames: dict[int, pd.DataFrame] = {}
-    _WORK.update(estimator=estimator, z=z, in_service=in_service, tolerance=tolerance,
-                 confidence=confidence, out=(vm, va, res, om), index=index)
-    pool = None
+    work = _PeriodWork(estimator, z, in_service, settings, (vm, va, res, om), index)
     done = 0
-    try:
-        pool = fork_pool(workers) if parallel else None  # forked now: inherits _WORK
-        results = pool.imap_unordered(_solve_run, runs) if pool else map(_solve_run, runs)
+    # closing: a cancel raised by the progress ends the workers at once.
+    with closing(fork_imap(partial(_solve_run, work), runs, workers if parallel else 1,
+                           ordered=False)) as results:
         for a, b, block_outcomes in results:
             frames[a] = block_outcomes
             done += b - a
             if progress is not None:
                 progress.update(done, k, "estimating snapshots")
-    finally:
-        _WORK.clear()
-        if pool is not None:
-            pool.terminate()
-            pool.join()
     outcomes = pd.concat([frames[a] for a in sorted(frames)], ignore_index=True) \
         if frames else pd.DataFrame()
     if len(outcomes):
         dof = outcomes["dof"].clip(lower=1)
-        outcomes["chi2_threshold"] = chi_square_threshold(confidence, dof.to_numpy(float))
+        outcomes["chi2_threshold"] = chi_square_threshold(settings.confidence,
+                                                          dof.to_numpy(float))
         outcomes["chi2_passed"] = outcomes["objective"] <= outcomes["chi2_threshold"]
         outcomes.loc[~outcomes["converged"].astype(bool), "chi2_passed"] = False
     idx = index if index is not None else pd.RangeIndex(k, name="snapshot")

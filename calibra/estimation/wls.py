@@ -129,8 +129,8 @@ class Estimator:
         avail = np.isfinite(z)
         if available is not None:
             avail &= np.asarray(available, bool)
-        status = self._default_status if in_service is None else np.asarray(in_service, bool)
-        obs = self.observability(avail, status)
+        in_service = self._default_status if in_service is None else np.asarray(in_service, bool)
+        obs = self.observability(avail, in_service)
         layout = StateLayout.build(n, obs.references, obs.estimated_buses)
         lost = ~obs.estimated_buses
         used = avail & obs.usable
@@ -168,19 +168,19 @@ class Estimator:
             history: list[float] = []
             steps: list[float] = []
             for it in range(1, opt.max_iterations + 1):
-                r = z0 - model.functions.evaluate(vm, va, status)
+                r = z0 - model.functions.evaluate(vm, va, in_service)
                 objective_now = float(np.sum((r[idx] / sigma) ** 2 * w_used))
                 # Damped Gauss-Newton: once the zero injections hold, a step that raised J is
                 # halved (up to four times); near a flat direction plain steps can cycle.
                 # (While they do not hold yet, J may rightly rise towards them.)
                 halvings = 0
-                feasible = _violation(cons, cidx, vm, va, status) < FEASIBLE
+                feasible = _violation(cons, cidx, vm, va, in_service) < FEASIBLE
                 while (previous is not None and not opt.robust and halvings < 4 and feasible
                        and objective_now > objective_before * (1 + OVERSHOOT)):
                     dx_prev = previous[2] * 0.5
                     vm, va = layout.apply_step(previous[0], previous[1], dx_prev)
                     previous = (previous[0], previous[1], dx_prev)
-                    r = z0 - model.functions.evaluate(vm, va, status)
+                    r = z0 - model.functions.evaluate(vm, va, in_service)
                     objective_now = float(np.sum((r[idx] / sigma) ** 2 * w_used))
                     halvings += 1
                 history.append(objective_now)
@@ -191,13 +191,13 @@ class Estimator:
                 if opt.robust and it > 1:
                     w_used = _huber_weights(r[idx] / sigma, opt.huber_k)
                     weights[idx] = w_used
-                H = model.functions.jacobian_triplets(vm, va, layout, status)
-                C = _constraint_rows(cons, cidx, vm, va, layout, status)
-                c = cons.evaluate(vm, va, status)[cidx] if cidx.size else np.zeros(0)
+                H = model.functions.jacobian_triplets(vm, va, layout, in_service)
+                C = _constraint_rows(cons, cidx, vm, va, layout, in_service)
+                c = cons.evaluate(vm, va, in_service)[cidx] if cidx.size else np.zeros(0)
                 dx = None
                 if normal and last_step > NORMAL_UNTIL:
                     dx, stiff = _normal_step(H, C, weights * inv_sigma ** 2, r, c, layout,
-                                             stiff, net, status)
+                                             stiff, net, in_service)
                     normal = dx is not None
                 if dx is None:
                     if system is None:
@@ -232,15 +232,16 @@ class Estimator:
             if not obs.observable:
                 reason += " on the observable part; " + obs.reason
 
-        h_all = model.functions.evaluate(vm, va, status)
+        h_all = model.functions.evaluate(vm, va, in_service)
         residual = np.full(model.m, np.nan)
         residual[idx] = z[idx] - h_all[idx]
         objective = float(np.sum((residual[idx] / model.sigma_pu[idx]) ** 2))
-        mismatch = float(np.abs(cons.evaluate(vm, va, status)[cidx]).max()) if cidx.size else 0.0
+        mismatch = float(np.abs(cons.evaluate(vm, va, in_service)[cidx]).max()) \
+            if cidx.size else 0.0
         if converged and keep_jacobian:
             # The Jacobian at the converged state, restricted to the rows used.
-            H = model.functions.jacobian(vm, va, layout, status)[idx]
-            C = cons.jacobian(vm, va, layout, status)[cidx]
+            H = model.functions.jacobian(vm, va, layout, in_service)[idx]
+            C = cons.jacobian(vm, va, layout, in_service)[cidx]
         else:
             H = C = None
         vm_out, va_out = vm.copy(), va.copy()
@@ -249,7 +250,7 @@ class Estimator:
             vm=vm_out, va=va_out, converged=converged, iterations=it, reason=reason, used=used,
             weights=weights, h=h_all, residual=residual, objective=objective,
             dof=int(idx.size - layout.n_state + cidx.size), observability=obs, layout=layout,
-            constraints_used=cons_used, constraint_mismatch=mismatch, in_service=status,
+            constraints_used=cons_used, constraint_mismatch=mismatch, in_service=in_service,
             jacobian=H if keep_jacobian else None,
             constraint_jacobian=C if keep_jacobian else None,
         )
@@ -279,10 +280,10 @@ FEASIBLE = 1e-9
 OVERSHOOT = 1e-6
 
 
-def _violation(cons: MeasurementFunctions, cidx: np.ndarray, vm, va, status) -> float:
+def _violation(cons: MeasurementFunctions, cidx: np.ndarray, vm, va, in_service) -> float:
     if cidx.size == 0:
         return 0.0
-    return float(np.abs(cons.evaluate(vm, va, status)[cidx]).max())
+    return float(np.abs(cons.evaluate(vm, va, in_service)[cidx]).max())
 
 
 def objective_stationary(steps: list[float], objectives: list[float]) -> bool:
@@ -316,7 +317,7 @@ NORMAL_UNTIL = 1e-3
 
 
 def _normal_step(H, C, w: np.ndarray, r: np.ndarray, c: np.ndarray, layout: StateLayout,
-                 stiff, network, status: np.ndarray):
+                 stiff, network, in_service: np.ndarray):
     """Gauss-Newton step from the constrained normal equations (in the variables of the stiff
     transform where bus couplers are in the state); (None, …) when it fails numerically.
     ``stiff``: the transform (False: not built yet), returned for the next step."""
@@ -328,7 +329,7 @@ def _normal_step(H, C, w: np.ndarray, r: np.ndarray, c: np.ndarray, layout: Stat
     Cm = sp.csr_matrix((C[2], (C[0], C[1])), shape=(c.size, nx))
     G = (Hm.T @ sp.diags(w) @ Hm).tocsc()
     if stiff is False:
-        stiff = stiff_transform(network, layout, status)
+        stiff = stiff_transform(network, layout, in_service)
     rhs = np.r_[Hm.T @ (w * r), -c]
     try:
         sol = kkt_solver(G, Cm, stiff, orderings=("MMD_AT_PLUS_A",), dense=False)(rhs)
@@ -343,11 +344,11 @@ def _huber_weights(u: np.ndarray, k: float) -> np.ndarray:
     return np.where(a <= k, 1.0, k / np.maximum(a, 1e-300))
 
 
-def _constraint_rows(cons: MeasurementFunctions, cidx: np.ndarray, vm, va, layout, status):
+def _constraint_rows(cons: MeasurementFunctions, cidx: np.ndarray, vm, va, layout, in_service):
     """Triplets of the constraint Jacobian for the constraints in use, renumbered 0..len-1."""
     if cidx.size == 0:
         return np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0)
-    r, c, v = cons.jacobian_triplets(vm, va, layout, status)
+    r, c, v = cons.jacobian_triplets(vm, va, layout, in_service)
     new_row = np.full(cons.m, -1, np.int64)
     new_row[cidx] = np.arange(cidx.size)
     keep = new_row[r] >= 0

@@ -17,7 +17,9 @@ import pytest
 from calibra.cluster import start_local_cluster
 from calibra.estimation.engine import LocalEngine
 from calibra.estimation.model import MeasurementModel
+from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.site_estimate import checked_topology
+from calibra.estimation.week import SolverSettings
 from calibra.estimation.wls import Estimator
 from calibra.io import load_site
 from calibra.ledger import apply_corrections
@@ -64,16 +66,28 @@ def client(local_review):
         yield client
 
 
-def local_engine(site, corrections=()):
-    """A single-process LocalEngine over the window, its inputs built the way the week review
-    builds them (calibra.diagnosis.evidence.gather_evidence), independently of calibra.cluster."""
+def local_period(site, corrections=()) -> PreparedPeriod:
+    """The window prepared for a single-process LocalEngine, its inputs built the way the week
+    review builds them (calibra.diagnosis.evidence.gather_evidence), independently of
+    calibra.cluster and calibra.review_period."""
     snaps = site.snapshots.loc[START:END]
     if corrections:
         snaps = apply_corrections(snaps, corrections, missing="ignore")
     model = MeasurementModel.from_points(site.network, site.points)
-    z = model.to_per_unit(snaps.reindex(columns=model.tags).to_numpy(float))
+    values = snaps.reindex(columns=model.tags).to_numpy(float)
     in_service, _ = checked_topology(site, snaps)
-    return LocalEngine(Estimator(model), z, in_service, snaps.index, workers=1)
+    return PreparedPeriod(site, snaps.index, Estimator(model), values.astype(np.float32),
+                          model.to_per_unit(values), in_service, corrections=tuple(corrections))
+
+
+#: The reference engine: this machine, one process.
+LOCAL = LocalEngine(workers=1)
+
+
+def estimate(engine, period, rows, set_aside, max_block, tolerance):
+    """``engine.estimate`` with the review's confidence level."""
+    return engine.estimate(period, rows, set_aside,
+                           settings=SolverSettings(max_block, tolerance, 0.99))
 
 
 #: Points set aside in the engine checks: two known faulty ones (truth faults 8 and 9), as a
@@ -81,16 +95,16 @@ def local_engine(site, corrections=()):
 SET_ASIDE = ("BRN.110.MRG1.MW", "QLN.110.BRN1.MW")
 
 
-def set_aside_flags(engine) -> np.ndarray:
-    return np.isin(engine.estimator.model.tags, SET_ASIDE)
+def set_aside_flags(period) -> np.ndarray:
+    return np.isin(period.model.tags, SET_ASIDE)
 
 
 @pytest.fixture(scope="session")
 def local_full(sample_site):
-    """The window estimated at full resolution by one local process: (engine, rows, result)."""
-    engine = local_engine(sample_site)
-    rows = np.arange(len(engine.index))
-    return engine, rows, engine.estimate(rows, set_aside_flags(engine), 360, 1e-8, 0.99)
+    """The window estimated at full resolution by one local process: (period, rows, result)."""
+    period = local_period(sample_site)
+    rows = np.arange(len(period.index))
+    return period, rows, estimate(LOCAL, period, rows, set_aside_flags(period), 360, 1e-8)
 
 
 def assert_same_period(a, b) -> None:

@@ -18,14 +18,18 @@ pytest.importorskip("distributed")
 
 from calibra.cluster import ClusterEngine, ClusterError  # noqa: E402
 from calibra.cluster.worker import SITE_ENTRIES  # noqa: E402
+from calibra.estimation.week import SolverSettings  # noqa: E402
 from calibra.ledger import Correction  # noqa: E402
 from calibra.progress import Cancelled, Progress  # noqa: E402
+from calibra.review_period import select_period  # noqa: E402
 from tests.cluster.conftest import (  # noqa: E402
     END,
+    LOCAL,
     SAMPLE,
     START,
     assert_same_period,
-    local_engine,
+    estimate,
+    local_period,
     set_aside_flags,
 )
 
@@ -33,12 +37,12 @@ from tests.cluster.conftest import (  # noqa: E402
 def test_screening_same_as_local_engine(client, sample_site):
     """Every 10th snapshot, blocks of 36, tolerance 1e-6: a screening round of the week review
     (calibra.diagnosis.evidence)."""
-    local = local_engine(sample_site)
+    local = local_period(sample_site)
     rows = np.arange(0, len(local.index), 10)
     set_aside = set_aside_flags(local)
-    engine = ClusterEngine(client, sample_site, START, END)
-    here = local.estimate(rows, set_aside, 36, 1e-6, 0.99)
-    there = engine.estimate(rows, set_aside, 36, 1e-6, 0.99)
+    engine = ClusterEngine(client)
+    here = estimate(LOCAL, local, rows, set_aside, 36, 1e-6)
+    there = estimate(engine, select_period(sample_site, START, END), rows, set_aside, 36, 1e-6)
     assert_same_period(here, there)
     assert there.outcomes["converged"].all()
 
@@ -46,23 +50,23 @@ def test_screening_same_as_local_engine(client, sample_site):
 def test_full_resolution_same_as_local_engine(client, sample_site, local_full):
     """Every snapshot, blocks of 360, tolerance 1e-8: the review's final estimate."""
     local, rows, here = local_full
-    engine = ClusterEngine(client, sample_site, START, END)
-    there = engine.estimate(rows, set_aside_flags(local), 360, 1e-8, 0.99)
+    there = estimate(ClusterEngine(client), select_period(sample_site, START, END), rows,
+                     set_aside_flags(local), 360, 1e-8)
     assert_same_period(here, there)
     assert there.outcomes["converged"].all()
 
 
 def test_rows_in_any_order_and_none(client, sample_site):
-    local = local_engine(sample_site)
-    engine = ClusterEngine(client, sample_site, START, END)
+    local = local_period(sample_site)
+    engine, period = ClusterEngine(client), select_period(sample_site, START, END)
     none = np.zeros(local.estimator.model.m, bool)
     rows = np.arange(len(local.index) - 1, -1, -25)  # backwards in time
-    assert_same_period(local.estimate(rows, none, 36, 1e-6, 0.99),
-                       engine.estimate(rows, none, 36, 1e-6, 0.99))
-    empty = engine.estimate(np.zeros(0, int), none, 36, 1e-6, 0.99)
+    assert_same_period(estimate(LOCAL, local, rows, none, 36, 1e-6),
+                       estimate(engine, period, rows, none, 36, 1e-6))
+    empty = estimate(engine, period, np.zeros(0, int), none, 36, 1e-6)
     assert empty.vm.shape == (0, local.estimator.model.network.n_bus) and len(empty.index) == 0
     with pytest.raises(IndexError):
-        engine.estimate(np.array([len(local.index)]), none, 36, 1e-6, 0.99)
+        estimate(engine, period, np.array([len(local.index)]), none, 36, 1e-6)
 
 
 def test_software_corrections_reach_the_workers(client, sample_site):
@@ -71,15 +75,17 @@ def test_software_corrections_reach_the_workers(client, sample_site):
            Correction("QLN.110.BRN1.MW", 1.0, -4.0,
                       valid_from=pd.Timestamp("2027-03-03 12:00", tz="UTC"),
                       valid_until=pd.Timestamp("2027-03-04 06:30", tz="UTC"))]
-    local = local_engine(sample_site, fix)
+    local = local_period(sample_site, fix)
     rows = np.arange(0, len(local.index), 10)
     none = np.zeros(local.estimator.model.m, bool)
-    engine = ClusterEngine(client, sample_site, START, END, corrections=fix)
-    assert_same_period(local.estimate(rows, none, 36, 1e-6, 0.99),
-                       engine.estimate(rows, none, 36, 1e-6, 0.99))
+    engine = ClusterEngine(client)
+    assert_same_period(estimate(LOCAL, local, rows, none, 36, 1e-6),
+                       estimate(engine, select_period(sample_site, START, END, fix), rows, none,
+                                36, 1e-6))
     # Without the corrections the workers' estimates differ (the check can fail).
-    plain = ClusterEngine(client, sample_site, START, END).estimate(rows, none, 36, 1e-6, 0.99)
-    assert not np.array_equal(plain.residual, local.estimate(rows, none, 36, 1e-6, 0.99).residual,
+    plain = estimate(engine, select_period(sample_site, START, END), rows, none, 36, 1e-6)
+    assert not np.array_equal(plain.residual,
+                              estimate(LOCAL, local, rows, none, 36, 1e-6).residual,
                               equal_nan=True)
 
 
@@ -98,27 +104,29 @@ def test_workers_read_a_url_and_refuse_other_data(client, sample_site, tmp_path)
     """The workers read the site through an fsspec URL (here file://, as s3:// would be); a copy
     whose snapshots differ in one value is refused with the day named."""
     copy = _copy_site(tmp_path / "site")
-    local = local_engine(sample_site)
+    local = local_period(sample_site)
+    period = select_period(sample_site, START, END)
     rows = np.arange(0, len(local.index), 10)
     none = np.zeros(local.estimator.model.m, bool)
-    engine = ClusterEngine(client, sample_site, START, END, worker_site=copy.as_uri())
-    assert_same_period(local.estimate(rows, none, 36, 1e-6, 0.99),
-                       engine.estimate(rows, none, 36, 1e-6, 0.99))
+    engine = ClusterEngine(client, worker_site=copy.as_uri())
+    assert_same_period(estimate(LOCAL, local, rows, none, 36, 1e-6),
+                       estimate(engine, period, rows, none, 36, 1e-6))
 
     day_file = copy / "snapshots" / "2027-03-04.parquet"  # local day: 03-03 23:00 to 03-04 23:00
     table = pd.read_parquet(day_file)
     table.loc[800, "VSM.220.EBB1.MW"] += 1.0  # 2027-03-04 12:20 UTC
     table.to_parquet(day_file)
-    changed = ClusterEngine(client, sample_site, START, END, worker_site=str(copy))
+    changed = ClusterEngine(client, worker_site=str(copy))
     with pytest.raises(ClusterError, match="2027-03-04"):
-        changed.estimate(rows, none, 36, 1e-6, 0.99)
+        estimate(changed, period, rows, none, 36, 1e-6)
 
 
 def test_a_site_the_workers_cannot_read(client, sample_site, tmp_path):
-    engine = ClusterEngine(client, sample_site, START, END, worker_site=str(tmp_path / "none"))
-    none = np.zeros(engine.m, bool)
+    engine = ClusterEngine(client, worker_site=str(tmp_path / "none"))
+    period = select_period(sample_site, START, END)
+    none = np.zeros(period.model.m, bool)
     with pytest.raises(ClusterError, match="cannot load the site"):
-        engine.estimate(np.arange(0, 100), none, 36, 1e-6, 0.99)
+        estimate(engine, period, np.arange(0, 100), none, 36, 1e-6)
 
 
 def _calibra_tasks(client) -> list[str]:
@@ -127,13 +135,13 @@ def _calibra_tasks(client) -> list[str]:
 
 
 def test_cancel_stops_outstanding_days(client, sample_site):
-    engine = ClusterEngine(client, sample_site, START, END)
+    engine, period = ClusterEngine(client), select_period(sample_site, START, END)
     seen = []
     progress = Progress(lambda done, total, msg: seen.append(done) or progress.cancel())
     with pytest.raises(Cancelled):
-        engine.estimate(np.arange(len(engine.index)), np.zeros(engine.m, bool), 360, 1e-8,
-                        0.99, progress)
-    assert len(seen) == 1 and seen[0] < len(engine.index)
+        engine.estimate(period, np.arange(len(period.index)), np.zeros(period.model.m, bool),
+                        settings=SolverSettings(360, 1e-8, 0.99), progress=progress)
+    assert len(seen) == 1 and seen[0] < len(period.index)
     deadline = time.monotonic() + 30
     while _calibra_tasks(client) and time.monotonic() < deadline:
         time.sleep(0.2)

@@ -13,7 +13,7 @@ import pytest
 pytest.importorskip("distributed")
 
 from calibra.cli import main  # noqa: E402
-from calibra.cluster import engine_for_review  # noqa: E402
+from calibra.cluster import ClusterEngine  # noqa: E402
 from calibra.diagnosis.review import ReviewSettings  # noqa: E402
 from calibra.ledger import Ledger  # noqa: E402
 from calibra.review_run import (  # noqa: E402
@@ -28,7 +28,7 @@ KEY_COLUMNS = ["tag", "finding", "factor", "offset", "drift_per_day", "onset"]
 
 @pytest.fixture(scope="module")
 def cluster_review(client, sample_site):
-    engine = engine_for_review(client, sample_site, START, END)
+    engine = ClusterEngine(client)
     run = run_review(sample_site, start=START, end=END, engine=engine)
     return run, engine
 

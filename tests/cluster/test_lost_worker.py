@@ -14,11 +14,14 @@ import pytest
 pytest.importorskip("distributed")
 
 from calibra.cluster import ClusterEngine  # noqa: E402
+from calibra.estimation.week import SolverSettings  # noqa: E402
 from calibra.progress import Progress  # noqa: E402
+from calibra.review_period import select_period  # noqa: E402
 from tests.cluster.conftest import (  # noqa: E402
     END,
     START,
     assert_same_period,
+    estimate,
     running_cluster,
     set_aside_flags,
 )
@@ -37,9 +40,9 @@ def test_worker_killed_mid_run(own_client, sample_site, local_full):
     local, rows, reference = local_full
     set_aside = set_aside_flags(local)
     pids = client.run(os.getpid)
-    engine = ClusterEngine(client, sample_site, START, END)
+    engine, period = ClusterEngine(client), select_period(sample_site, START, END)
     # Warm the workers (each reads the site once) so the kill lands in an estimate.
-    engine.estimate(np.arange(0, len(engine.index), 60), set_aside, 36, 1e-6, 0.99)
+    estimate(engine, period, np.arange(0, len(period.index), 60), set_aside, 36, 1e-6)
     killed: dict[str, list] = {}
 
     def kill_a_busy_worker(done: int, total: int, message: str) -> None:
@@ -51,7 +54,8 @@ def test_worker_killed_mid_run(own_client, sample_site, local_full):
             killed[victim] = list(busy[victim])
             os.kill(pids[victim], signal.SIGKILL)
 
-    result = engine.estimate(rows, set_aside, 360, 1e-8, 0.99, Progress(kill_a_busy_worker))
+    result = engine.estimate(period, rows, set_aside, settings=SolverSettings(360, 1e-8, 0.99),
+                             progress=Progress(kill_a_busy_worker))
     assert killed, "no worker was busy after the first day finished"
     victim = next(iter(killed))
     assert victim not in client.scheduler_info()["workers"]

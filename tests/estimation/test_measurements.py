@@ -158,7 +158,7 @@ def test_gradient_matches_jacobian_and_finite_differences(case57_solved):
     vm = case.vm[:, None] + rng.normal(0, 0.01, (net.n_bus, k))
     va = case.va[:, None] + rng.normal(0, 0.02, (net.n_bus, k))
     w = rng.normal(0, 1.0, (model.m, k))
-    h, g = model.functions.evaluate_with_gradient(vm, va, None, layout, w)
+    h, g = model.functions.evaluate_with_gradient(vm, va, layout, None, w)
     assert np.allclose(h, model.functions.evaluate(vm, va), rtol=0, atol=1e-12)
     for j in range(k):
         H = model.functions.jacobian(vm[:, j], va[:, j], layout)
@@ -168,6 +168,6 @@ def test_gradient_matches_jacobian_and_finite_differences(case57_solved):
     # The weighted-residual form: w = ω ∘ (z − h(x)).
     z = h + rng.normal(0, 0.01, h.shape)
     omega = rng.uniform(1, 10, h.shape)
-    _, g2 = model.functions.evaluate_with_gradient(vm, va, None, layout, (z, omega))
-    _, g3 = model.functions.evaluate_with_gradient(vm, va, None, layout, omega * (z - h))
+    _, g2 = model.functions.evaluate_with_gradient(vm, va, layout, None, (z, omega))
+    _, g3 = model.functions.evaluate_with_gradient(vm, va, layout, None, omega * (z - h))
     assert np.array_equal(g2, g3)

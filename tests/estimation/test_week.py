@@ -129,7 +129,7 @@ def test_two_workers_give_the_results_of_one_to_the_bit():
 
     from calibra.estimation.runtime import can_fork
     from calibra.estimation.site_estimate import topology_per_snapshot
-    from calibra.estimation.week import estimate_period
+    from calibra.estimation.week import SolverSettings, estimate_period
     from calibra.io import load_site
 
     sample = Path(__file__).resolve().parents[2] / "sample_site"
@@ -137,10 +137,10 @@ def test_two_workers_give_the_results_of_one_to_the_bit():
     model = MeasurementModel.from_points(site.network, site.points)
     z = model.to_per_unit(site.snapshots.reindex(columns=model.tags).to_numpy(float))
     status = topology_per_snapshot(site)
-    one = estimate_period(Estimator(model), z, status, site.snapshots.index, max_block=90,
-                          workers=1)
-    two = estimate_period(Estimator(model), z, status, site.snapshots.index, max_block=90,
-                          workers=2)
+    one = estimate_period(Estimator(model), z, status, site.snapshots.index,
+                          settings=SolverSettings(max_block=90), workers=1)
+    two = estimate_period(Estimator(model), z, status, site.snapshots.index,
+                          settings=SolverSettings(max_block=90), workers=2)
     assert can_fork(2) and len(z) == 360
     for a, b in ((one.vm, two.vm), (one.va, two.va), (one.residual, two.residual),
                  (one.omega, two.omega)):
