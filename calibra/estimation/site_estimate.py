@@ -1,4 +1,4 @@
-"""Estimate the snapshots of a loaded site: telemetry to per unit, topology from status points."""
+"""Branch topology per snapshot from a site's status points, cross-checked with its flow meters."""
 
 from __future__ import annotations
 
@@ -7,12 +7,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.estimation.batch import BatchEstimate, estimate_many
-from calibra.estimation.model import MeasurementModel
-from calibra.estimation.wls import Estimator, EstimatorOptions
 from calibra.model.points import status_points
 from calibra.model.site import Site
-from calibra.progress import Progress
 
 
 def topology_per_snapshot(site: Site, snapshots: pd.DataFrame | None = None) -> np.ndarray:
@@ -94,51 +90,3 @@ def checked_topology(site: Site, snapshots: pd.DataFrame | None = None,
                                         snaps.index[idx[-1]], int(idx.size),
                                         tuple(str(t) for t in meters.index)))
     return status, conflicts
-
-
-@dataclass
-class SiteEstimate:
-    """Estimates of a site's snapshots with the measurement model they were made with."""
-
-    model: MeasurementModel
-    batch: BatchEstimate
-    in_service: np.ndarray
-
-    def summary(self) -> dict:
-        out = self.batch.outcomes
-        conv = out["converged"]
-        res = {
-            "snapshots": len(out),
-            "converged": int(conv.sum()),
-            "not_converged": int((~conv).sum()),
-            "not_fully_observable": int((~out["observable"]).sum()),
-            "mean_iterations": float(out.loc[conv, "iterations"].mean()) if conv.any() else np.nan,
-        }
-        if "chi2_passed" in out:
-            passed = out.loc[conv, "chi2_passed"].astype(bool)
-            res["chi2_failed"] = int((~passed).sum())
-        reasons = out.loc[~conv, "reason"].value_counts()
-        res["failure_reasons"] = reasons.to_dict()
-        return res
-
-
-def estimate_site(
-    site: Site,
-    options: EstimatorOptions | None = None,
-    start: pd.Timestamp | None = None,
-    end: pd.Timestamp | None = None,
-    analyse: bool = True,
-    confidence: float = 0.99,
-    progress: Progress | None = None,
-) -> SiteEstimate:
-    """Estimate every snapshot of ``site`` between ``start`` and ``end`` (inclusive)."""
-    snaps = site.snapshots
-    if start is not None or end is not None:
-        snaps = snaps.loc[start:end]
-    model = MeasurementModel.from_points(site.network, site.points)
-    values = snaps.reindex(columns=model.tags).to_numpy(float)
-    z = model.to_per_unit(values)
-    in_service = topology_per_snapshot(site, snaps)
-    batch = estimate_many(Estimator(model, options), z, in_service, snaps.index, analyse,
-                          confidence, progress)
-    return SiteEstimate(model, batch, in_service)

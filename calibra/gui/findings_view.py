@@ -201,14 +201,6 @@ def neighbour(ids: list[str], current: str | None, step: int) -> str | None:
     return ids[(ids.index(current) + step) % len(ids)]
 
 
-def summary_counts(table: pd.DataFrame) -> dict[str, int]:
-    """Findings per kind, for the list's header line."""
-    if table.empty:
-        return {}
-    counts = table["finding"].value_counts()
-    return {str(k): int(v) for k, v in counts.items() if int(v) > 0 and k}
-
-
 def confidence_text(value: float) -> str:
     """A confidence as the list shows it."""
     return "" if value is None or not np.isfinite(value) else f"{value:.2f}"

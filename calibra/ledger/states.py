@@ -35,7 +35,6 @@ CORRECTION_ACTIONS = {"mark_reversed": "reversed", "apply_scale": "scale", "appl
 TAG_ACTIONS = (*CORRECTION_ACTIONS, "mark_repaired")
 #: Actions written by the review itself (user "calibra").
 AUTOMATIC_ACTIONS = ("found", "verify", "reopen")
-ACTION_KINDS = ("confirm", "dismiss", "note", "undo", *TAG_ACTIONS, *AUTOMATIC_ACTIONS)
 #: Actions an undo may not target: the first sighting of a finding, and undos themselves.
 NOT_UNDOABLE = ("found", "undo")
 
