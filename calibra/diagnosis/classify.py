@@ -25,6 +25,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from calibra.diagnosis.findings import DiagnosisKind
 from calibra.diagnosis.fits import find_stuck_runs, fit_drift, fit_gain, robust_scale
 
 
@@ -63,7 +64,7 @@ class PointSeries:
 
 @dataclass
 class PointDiagnosis:
-    kind: str  # healthy, reversed, scale, offset, drift, stuck, noisy, insufficient
+    kind: DiagnosisKind
     confidence: float = 0.0
     params: dict = field(default_factory=dict)
     n_used: int = 0
@@ -97,7 +98,7 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
     valid = np.isfinite(ps.z) & np.isfinite(ps.y)
     n = int(valid.sum())
     if n < st.min_snapshots:
-        return PointDiagnosis("insufficient", n_used=n,
+        return PointDiagnosis(DiagnosisKind.INSUFFICIENT, n_used=n,
                               reason=f"only {n} snapshots with a measured and an implied value")
     t, z, y = ps.t_days[valid], ps.z[valid], ps.y[valid]
     noise = float(np.hypot(ps.sigma, ps.sigma_implied))
@@ -114,7 +115,7 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
         first, last = runs[0], runs[-1]
         if np.median(np.abs(e_f)) > max(limit, 2 * noise):
             return PointDiagnosis(
-                "stuck", confidence=float((np.abs(e_f) > noise).mean()), n_used=n,
+                DiagnosisKind.STUCK, confidence=float((np.abs(e_f) > noise).mean()), n_used=n,
                 params={"value": first.value, "onset_days": float(t[first.start]),
                         "until_days": float(t[last.stop - 1]) if last.stop < n else None,
                         "frozen_snapshots": int(frozen.sum()),
@@ -126,7 +127,7 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
     e0 = z - y
     loss0 = float(np.median(np.abs(e0)))
     typical = float(np.median(np.abs(y)))
-    candidates: list[tuple[float, int, str, dict, np.ndarray]] = []
+    candidates: list[tuple[float, int, DiagnosisKind, dict, np.ndarray]] = []
 
     def better(e_m: np.ndarray) -> bool:
         return _improves(e_m, e0, noise, st.improvement, st.stuck_minutes)
@@ -144,14 +145,14 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
         e_k = z - k * y
         se_k = noise / max(np.sqrt(np.sum(y * y)), 1e-300)
         if abs(k - 1) * typical > limit and abs(k - 1) > st.significance * se_k and better(e_k):
-            kind = "reversed" if k < 0 else "scale"
+            kind = DiagnosisKind.REVERSED if k < 0 else DiagnosisKind.SCALE
             candidates.append((mean_loss(e_k, k), 0, kind, {"factor": k}, e_k))
 
     c = float(np.median(e0))
     e_c = e0 - c
     se_c = 1.2533 * robust_scale(e0) / np.sqrt(n)
     if abs(c) > limit and abs(c) > st.significance * se_c and better(e_c):
-        candidates.append((mean_loss(e_c), 1, "offset", {"offset": c}, e_c))
+        candidates.append((mean_loss(e_c), 1, DiagnosisKind.OFFSET, {"offset": c}, e_c))
 
     t0, a, _ = fit_drift(t, e0)
     if np.isfinite(t0):
@@ -160,8 +161,8 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
         e_d = e0 - a * ramp
         se_a = noise / max(np.sqrt(np.sum(ramp * ramp)), 1e-300)
         if reach > limit and abs(a) > st.significance * se_a and better(e_d):
-            candidates.append((mean_loss(e_d), 2, "drift", {"drift_per_day": a, "onset_days": t0},
-                               e_d))
+            candidates.append((mean_loss(e_d), 2, DiagnosisKind.DRIFT,
+                               {"drift_per_day": a, "onset_days": t0}, e_d))
 
     if candidates:
         # Lowest mean error wins; near-ties (within 10 %) go to the likelier explanation: a
@@ -171,12 +172,13 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
 
         def prior(cand) -> int:
             kind_c, params_c = cand[2], cand[3]
-            if kind_c == "reversed" and abs(params_c["factor"] + 1) < 0.05:
+            if kind_c == DiagnosisKind.REVERSED and abs(params_c["factor"] + 1) < 0.05:
                 return 0
-            if kind_c in ("scale", "reversed") and ps.known_factor is not None \
-                    and ps.known_factor(params_c["factor"]):
+            if kind_c in (DiagnosisKind.SCALE, DiagnosisKind.REVERSED) \
+                    and ps.known_factor is not None and ps.known_factor(params_c["factor"]):
                 return 0
-            return {"offset": 1, "scale": 2, "reversed": 2, "drift": 3}[kind_c]
+            return {DiagnosisKind.OFFSET: 1, DiagnosisKind.SCALE: 2, DiagnosisKind.REVERSED: 2,
+                    DiagnosisKind.DRIFT: 3}[kind_c]
 
         _, _, kind, params, e_m = min(near, key=lambda cand: (prior(cand), cand[0]))
         loss = float(np.median(np.abs(e_m)))
@@ -185,9 +187,10 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
     scatter = robust_scale(e0)
     if scatter > st.noisy_factor * noise and scatter > ps.class_limit / 3.0 * st.noisy_factor:
         return PointDiagnosis(
-            "noisy", confidence=float(min(1.0, 1 - st.noisy_factor * noise / scatter + 0.5)),
+            DiagnosisKind.NOISY,
+            confidence=float(min(1.0, 1 - st.noisy_factor * noise / scatter + 0.5)),
             params={"scatter": scatter, "expected": noise}, n_used=n, loss_healthy=loss0,
             loss_model=loss0,
         )
-    return PointDiagnosis("healthy", n_used=n, loss_healthy=loss0, loss_model=loss0,
+    return PointDiagnosis(DiagnosisKind.HEALTHY, n_used=n, loss_healthy=loss0, loss_model=loss0,
                           params={"scatter": scatter, "bias": c})

@@ -12,6 +12,7 @@ from calibra.diagnosis.causes import known_scale_cause
 from calibra.diagnosis.classify import ClassifySettings, PointDiagnosis, PointSeries, classify_point
 from calibra.diagnosis.describe import build_findings
 from calibra.diagnosis.evidence import EvidenceSettings, WeekEvidence, gather_evidence
+from calibra.diagnosis.findings import NO_FAULT, DiagnosisKind
 from calibra.diagnosis.mismap import (
     QuantityEvaluator,
     best_match,
@@ -97,14 +98,15 @@ def _propagate_device(site: Site, ev: WeekEvidence, diagnoses: dict) -> None:
     tags = ev.model.tags
     for device, group in pts.loc[tags].groupby("device"):
         found = [diagnoses[t] for t in group.index
-                 if diagnoses[t].kind in ("reversed", "scale") and diagnoses[t].confidence >= 0.9]
+                 if diagnoses[t].kind in (DiagnosisKind.REVERSED, DiagnosisKind.SCALE)
+                 and diagnoses[t].confidence >= 0.9]
         if not found:
             continue
         k = float(np.median([d.params["factor"] for d in found]))
-        kind = "reversed" if k < 0 else "scale"
+        kind = DiagnosisKind.REVERSED if k < 0 else DiagnosisKind.SCALE
         for tag in group.index:
             d = diagnoses[tag]
-            if d.kind != "healthy":
+            if d.kind != DiagnosisKind.HEALTHY:
                 continue
             i = tags.get_loc(tag)
             z, y = ev.measured[:, i].astype(float), ev.implied[:, i].astype(float)
@@ -124,7 +126,7 @@ def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
     """Check suspicious points against the other quantities of their substation."""
     pts = site.points
     suspicious = [t for t, d in diagnoses.items()
-                  if d.kind not in ("healthy", "insufficient")]
+                  if d.kind not in NO_FAULT]
     out: dict[str, dict] = {}
     by_sub: dict[str, list[str]] = {}
     bus_sub = site.network.buses["substation"].astype(str).to_numpy()
@@ -153,7 +155,8 @@ def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
             # Reading another quantity needs no fitted parameter: it wins when it explains the
             # point about as well as the best fault model, at noise level, where the point's
             # own quantity does not.
-            standard = (d.kind == "reversed" and abs(d.params.get("factor", 0) + 1) <= 0.1)
+            standard = (d.kind == DiagnosisKind.REVERSED
+                        and abs(d.params.get("factor", 0) + 1) <= 0.1)
             clearly_better = match.loss < 0.5 * rival
             if ((clearly_better or (not standard and match.loss <= 1.1 * rival))
                     and match.loss < 2.0 * sigma and d.loss_healthy > 3.0 * match.loss):
@@ -187,7 +190,7 @@ def review_site(
     ev = gather_evidence(site, st.evidence, snaps, progress, engine=engine)
     diagnoses = _classify_all(site, ev, st.classify)
     for _ in range(st.max_passes - 1):
-        faulty = np.array([diagnoses[str(t)].kind not in ("healthy", "insufficient")
+        faulty = np.array([diagnoses[str(t)].kind not in NO_FAULT
                            for t in ev.model.tags])
         extra = faulty & ~ev.set_aside
         if not extra.any():
@@ -205,7 +208,7 @@ def review_site(
         for i, advice in suggest_meters(site, ev, np.flatnonzero(rep.critical)).items():
             unverifiable[str(ev.model.tags[i])] = advice
     for tag, d in diagnoses.items():
-        if d.kind == "insufficient" and tag not in unverifiable:
+        if d.kind == DiagnosisKind.INSUFFICIENT and tag not in unverifiable:
             i = ev.model.tags.get_loc(tag)
             measured = int(np.isfinite(ev.measured[:, i]).sum())
             need = st.classify.min_snapshots
