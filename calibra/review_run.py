@@ -14,9 +14,10 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.diagnosis.findings import findings_table
+from calibra.diagnosis.findings import FindingKind, findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.ledger import Ledger, apply_corrections
+from calibra.ledger.states import FindingState
 from calibra.model.availability import availability_lines
 from calibra.model.site import Site
 from calibra.model.times import for_machines, for_people
@@ -93,14 +94,14 @@ def run_review(
     review_id = None
     if ledger is not None:
         summary = {k: v for k, v in result.summary.items() if k != "rounds"}
-        unverifiable = {f.tag for f in result.findings if f.finding == "unverifiable"}
+        unverifiable = {f.tag for f in result.findings if f.finding == FindingKind.UNVERIFIABLE}
         judged = set(result.diagnoses) - unverifiable
         review_id = ledger.record_review(
             result.findings, snaps.index[0], snaps.index[-1], settings_dict(st), summary,
             judged_from=repairs, not_judged=set(site.points.index.astype(str)) - judged)
         table = _with_ledger(table, ledger, corrections, site.timezone)
     else:
-        table["state"] = "new"
+        table["state"] = FindingState.NEW
     run = ReviewRun(result, table, review_id, corrections, time.perf_counter() - t0)
     run.repairs_judged = repairs
     return run
@@ -111,7 +112,7 @@ def _with_ledger(table: pd.DataFrame, ledger: Ledger, corrections: list,
     """The review's findings with their ledger state (and reopen reason), followed by the
     findings the ledger still holds open for the field that the review did not see."""
     known = ledger.findings()
-    for name, fill in (("state", "new"), ("reopened", ""), ("repaired_at", pd.NaT)):
+    for name, fill in (("state", FindingState.NEW), ("reopened", ""), ("repaired_at", pd.NaT)):
         table[name] = table["finding_id"].map(known[name]).fillna(fill) if len(known) else fill
     carried = carried_findings(ledger, table["finding_id"], corrections, timezone)
     if len(carried):

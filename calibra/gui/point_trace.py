@@ -13,6 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from calibra.diagnosis.findings import DiagnosisKind, FindingKind
 from calibra.diagnosis.mismap import QuantityEvaluator, substation_quantities
 from calibra.diagnosis.review import ReviewResult
 from calibra.model.site import Site
@@ -114,7 +115,7 @@ def _add_followed(site: Site, result: ReviewResult, trace: PointTrace, i: int) -
     """For a mismapped point, the estimate of the quantity it reads instead (with the sign
     it follows), evaluated from the period's estimated states."""
     matched = next((f.matched for f in result.findings
-                    if f.tag == trace.tag and f.finding == "mismapped" and f.matched), "")
+                    if f.tag == trace.tag and f.finding == FindingKind.MISMAPPED and f.matched), "")
     if not matched:
         return
     ev = result.evidence
@@ -141,25 +142,25 @@ def _class_limit(pt: pd.Series) -> float:
     return float(acc) / 100.0 * float(full)
 
 
-def _add_model(trace: PointTrace, kind: str, params: dict, t_days: np.ndarray) -> None:
+def _add_model(trace: PointTrace, kind: DiagnosisKind, params: dict, t_days: np.ndarray) -> None:
     """The fitted fault model as a scatter line and as an error over time."""
     trace.kind = kind
     y = trace.implied
-    if kind in ("reversed", "scale") and "factor" in params:
+    if kind in (DiagnosisKind.REVERSED, DiagnosisKind.SCALE) and "factor" in params:
         k = float(params["factor"])
         trace.slope, trace.intercept = k, 0.0
         trace.model_residual = (k - 1.0) * y
         trace.model_label = f"fit: measured = {k:.3f} × implied"
-    elif kind == "offset" and "offset" in params:
+    elif kind == DiagnosisKind.OFFSET and "offset" in params:
         c = float(params["offset"])
         trace.slope, trace.intercept = 1.0, c
         trace.model_residual = np.full_like(y, c)
         trace.model_label = f"fit: measured = implied {c:+.3g} {trace.unit}"
-    elif kind == "drift" and "drift_per_day" in params:
+    elif kind == DiagnosisKind.DRIFT and "drift_per_day" in params:
         a, t0 = float(params["drift_per_day"]), float(params["onset_days"])
         trace.model_residual = a * np.maximum(t_days - t0, 0.0)
         trace.model_label = f"fit: drift {a:+.3g} {trace.unit}/day"
-    elif kind == "stuck" and "value" in params:
+    elif kind == DiagnosisKind.STUCK and "value" in params:
         start = float(params["onset_days"])
         until = params.get("until_days")
         stop = float(until) if until is not None else float(t_days[-1]) if t_days.size else start

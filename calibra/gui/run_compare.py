@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from calibra.ledger.states import AWAITING_ACTION_STATES
 from calibra.review_run import ReviewRun
 
 
@@ -29,7 +30,7 @@ def run_figures(run: ReviewRun) -> RunFigures:
     s = run.result.summary
     first = s["rounds"][0] if s.get("rounds") else None
     table = run.findings
-    open_ = int(table["state"].isin(("new", "confirmed")).sum()) if len(table) else 0
+    open_ = int(table["state"].isin(AWAITING_ACTION_STATES).sum()) if len(table) else 0
     return RunFigures(
         snapshots=int(s["snapshots"]), converged=int(s["converged"]),
         chi2_failed_all_in=None if first is None else int(first["chi2_failed"]),
