@@ -8,7 +8,7 @@ import pandas as pd
 from calibra.diagnosis.causes import likely_scale_cause
 from calibra.diagnosis.classify import PointDiagnosis
 from calibra.diagnosis.findings import FACTOR_KINDS, NO_FAULT, Finding, FindingKind
-from calibra.model.points import POWER_QUANTITIES, quantity_of_words
+from calibra.model.points import POWER_QUANTITIES, class_limit, quantity_of_words
 from calibra.model.site import Site
 from calibra.model.times import for_people
 
@@ -118,7 +118,7 @@ def build_findings(site: Site, ev, diagnoses: dict[str, PointDiagnosis], mismaps
             kind = FindingKind(d.kind)
         pt = pts.loc[tag]
         unit = str(pt["unit"])
-        limit = float(pt["accuracy_pct"]) / 100.0 * float(pt["full_scale"])
+        limit = class_limit(pt)
         z = ev.measured[:, i].astype(float)
         y = ev.implied[:, i].astype(float)
         f = Finding(

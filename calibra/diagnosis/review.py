@@ -23,7 +23,7 @@ from calibra.diagnosis.mismap import (
 from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
 from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.runtime import fork_map
-from calibra.model.points import analog_points
+from calibra.model.points import analog_points, class_limit
 from calibra.model.site import Site
 from calibra.progress import Progress
 
@@ -55,7 +55,7 @@ def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSe
     tag = model.tags[i]
     pt = site.points.loc[tag]
     sigma = float(model.sigma_pu[i] / model.to_pu[i])
-    limit = float(pt["accuracy_pct"]) / 100.0 * float(pt["full_scale"])
+    limit = class_limit(pt)
     sig_y = 0.0
     rep = ev.representative
     if rep is not None and np.isfinite(rep.sigma_implied[i]):

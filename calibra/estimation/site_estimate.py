@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import status_points
+from calibra.model.points import class_limit, status_points
 from calibra.model.site import Site
 
 
@@ -77,8 +77,7 @@ def checked_topology(site: Site, snapshots: pd.DataFrame | None = None,
         meters = flows[flows["element"].astype(str) == branch]
         if meters.empty:
             continue
-        limit = (meters["accuracy_pct"].astype(float) / 100
-                 * meters["full_scale"].astype(float)).to_numpy()
+        limit = class_limit(meters).to_numpy()
         values = np.abs(snaps[meters.index].to_numpy(float))
         flowing = np.nan_to_num(values > factor * limit[None, :]).any(axis=1)
         clash = says_open & flowing

@@ -16,6 +16,7 @@ import pandas as pd
 from calibra.diagnosis.findings import DiagnosisKind, FindingKind
 from calibra.diagnosis.mismap import QuantityEvaluator, substation_quantities
 from calibra.diagnosis.review import ReviewResult
+from calibra.model.points import class_limit
 from calibra.model.site import Site
 
 _BRANCH_QUANTITIES = ("p_flow", "q_flow", "i_magnitude", "branch_status")
@@ -96,7 +97,7 @@ def point_trace(site: Site, result: ReviewResult, tag: str) -> PointTrace | None
     buses = ev.model.functions.buses_of(i)
     covered = np.isfinite(ev.period.vm[:, buses]).all(axis=1)
     estimated = outcomes["converged"].astype(bool).to_numpy() & covered
-    limit = _class_limit(pt)
+    limit = class_limit(pt)
     trace = PointTrace(
         tag=str(tag), unit=str(pt["unit"]), x=wall_clock_seconds(ev.index, site.timezone),
         measured=measured, implied=implied, raw=raw, band=limit,
@@ -133,13 +134,6 @@ def _add_followed(site: Site, result: ReviewResult, trace: PointTrace, i: int) -
     sign = -1.0 if np.median(np.abs(z + y)) < np.median(np.abs(z - y)) else 1.0
     trace.followed = sign * values
     trace.followed_label = ("−" if sign < 0 else "") + matched
-
-
-def _class_limit(pt: pd.Series) -> float:
-    acc, full = pt.get("accuracy_pct"), pt.get("full_scale")
-    if acc is None or full is None or pd.isna(acc) or pd.isna(full):
-        return float("nan")
-    return float(acc) / 100.0 * float(full)
 
 
 def _add_model(trace: PointTrace, kind: DiagnosisKind, params: dict, t_days: np.ndarray) -> None:

@@ -85,13 +85,28 @@ OPTIONAL_POINT_COLUMNS = ["rtu", "channel", "ct_ratio", "vt_ratio", "sigma", "no
 POINT_COLUMNS = REQUIRED_POINT_COLUMNS + OPTIONAL_POINT_COLUMNS
 
 
+def class_limit(points: pd.DataFrame | pd.Series) -> pd.Series | float:
+    """The accuracy-class limit in the point's own unit: ``accuracy_pct/100 × full_scale``.
+
+    For a point list, a Series by tag; for one point's row, a float (NaN where the point has
+    no class or full scale, as status points). Multiply by the point's per-unit factor for the
+    limit in per unit.
+    """
+    if isinstance(points, pd.DataFrame):
+        return points["accuracy_pct"].astype(float) / 100.0 * points["full_scale"].astype(float)
+    acc, full = points.get("accuracy_pct"), points.get("full_scale")
+    if acc is None or full is None or pd.isna(acc) or pd.isna(full):
+        return float("nan")
+    return float(acc) / 100.0 * float(full)
+
+
 def default_sigma(points: pd.DataFrame) -> pd.Series:
     """Standard deviation of each point in its own unit.
 
-    ``accuracy_pct/100 × full_scale / 3`` — the accuracy-class limit taken as 3σ
-    (common practice, no source); a ``sigma`` given in the point list overrides it.
+    The accuracy-class limit (:func:`class_limit`) taken as 3σ (common practice, no source);
+    a ``sigma`` given in the point list overrides it.
     """
-    sigma = points["accuracy_pct"].astype(float) / 100.0 * points["full_scale"].astype(float) / 3.0
+    sigma = class_limit(points) / 3.0
     if "sigma" in points:
         given = pd.to_numeric(points["sigma"], errors="coerce")
         sigma = given.where(given.notna() & (given > 0), sigma)
