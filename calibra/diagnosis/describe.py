@@ -180,7 +180,7 @@ def _merge_devices(findings: list[Finding], pts: pd.DataFrame) -> None:
                     f.cause = f.cause or "one ratio error on the device's CT or VT"
         elif kinds == {FindingKind.MISMAPPED}:
             read = {t: quantity_of_words(f.matched) for t, f in found.items()}
-            crossed = all(read[t] in ("p_flow", "q_flow", "p_injection", "q_injection")
+            crossed = all(read[t] in POWER_QUANTITIES
                           and read[t][0] != f.quantity[0] for t, f in found.items())
             if crossed:
                 for f in found.values():

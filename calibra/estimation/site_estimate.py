@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import class_limit, status_points
+from calibra.model.points import FLOW_QUANTITIES, class_limit, status_points
 from calibra.model.site import Site
 
 
@@ -65,7 +65,7 @@ def checked_topology(site: Site, snapshots: pd.DataFrame | None = None,
     status = topology_per_snapshot(site, snaps)
     net = site.network
     pts = site.points
-    flows = pts[pts["quantity"].isin(("p_flow", "q_flow")) & pts.index.isin(snaps.columns)]
+    flows = pts[pts["quantity"].isin(FLOW_QUANTITIES) & pts.index.isin(snaps.columns)]
     conflicts: list[StatusConflict] = []
     stat = status_points(pts)
     for tag, row in stat[stat.index.isin(snaps.columns)].iterrows():

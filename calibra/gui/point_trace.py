@@ -16,10 +16,9 @@ import pandas as pd
 from calibra.diagnosis.findings import DiagnosisKind, FindingKind
 from calibra.diagnosis.mismap import QuantityEvaluator, substation_quantities
 from calibra.diagnosis.review import ReviewResult
-from calibra.model.points import class_limit
+from calibra.model.points import BRANCH_QUANTITIES, class_limit
 from calibra.model.site import Site
 
-_BRANCH_QUANTITIES = ("p_flow", "q_flow", "i_magnitude", "branch_status")
 MAX_SCATTER = 3000  #: scatter points drawn at most (an even subsample beyond)
 
 
@@ -86,7 +85,7 @@ def point_trace(site: Site, result: ReviewResult, tag: str) -> PointTrace | None
         if not np.allclose(received[both], measured[both], rtol=1e-5, atol=1e-4):
             raw = received
     out = np.zeros(len(ev.index), bool)
-    if str(pt["quantity"]) in _BRANCH_QUANTITIES:
+    if str(pt["quantity"]) in BRANCH_QUANTITIES:
         branches = site.network.branches.index
         element = str(pt["element"])
         if element in branches:

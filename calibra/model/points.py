@@ -8,24 +8,45 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-#: Quantities a point can measure, with the element it refers to and the units allowed.
+#: Quantities a point can measure: the element it refers to, whether it is measured at one
+#: end of a branch, the units allowed, and what it measures (the family a mismapped point is
+#: compared within). Every group of quantities below is derived from this table.
 QUANTITIES: dict[str, dict] = {
-    "p_flow": {"element": "branch", "end": True, "units": ("MW",)},
-    "q_flow": {"element": "branch", "end": True, "units": ("Mvar",)},
-    "i_magnitude": {"element": "branch", "end": True, "units": ("A",)},
-    "branch_status": {"element": "branch", "end": False, "units": ("status",)},
-    "p_injection": {"element": "bus", "end": False, "units": ("MW",)},
-    "q_injection": {"element": "bus", "end": False, "units": ("Mvar",)},
-    "v_magnitude": {"element": "bus", "end": False, "units": ("kV",)},
+    "p_flow": {"element": "branch", "end": True, "units": ("MW",), "family": "power"},
+    "q_flow": {"element": "branch", "end": True, "units": ("Mvar",), "family": "power"},
+    "i_magnitude": {"element": "branch", "end": True, "units": ("A",), "family": "current"},
+    "branch_status": {"element": "branch", "end": False, "units": ("status",),
+                      "family": "status"},
+    "p_injection": {"element": "bus", "end": False, "units": ("MW",), "family": "power"},
+    "q_injection": {"element": "bus", "end": False, "units": ("Mvar",), "family": "power"},
+    "v_magnitude": {"element": "bus", "end": False, "units": ("kV",), "family": "voltage"},
 }
+
+
+def _quantities(**spec) -> tuple[str, ...]:
+    """The quantities of :data:`QUANTITIES` whose entries have each value of ``spec`` (a
+    tuple value: any of its values), in the table's order."""
+    def fits(entry: dict) -> bool:
+        return all(entry[k] in v if isinstance(v, tuple) else entry[k] == v
+                   for k, v in spec.items())
+    return tuple(q for q, entry in QUANTITIES.items() if fits(entry))
+
+
 #: The status quantity: a breaker's open/closed state, not an analog measurement. Its points
 #: may leave ``device`` empty and ``full_scale``/``accuracy_pct`` empty (NaN).
 STATUS_QUANTITY = "branch_status"
 ANALOG_QUANTITIES = tuple(q for q in QUANTITIES if q != STATUS_QUANTITY)
-#: Quantities measured from a CT and a VT together (power), and those a CT (VT) feeds.
-POWER_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection")
-CT_QUANTITIES = (*POWER_QUANTITIES, "i_magnitude")
-VT_QUANTITIES = (*POWER_QUANTITIES, "v_magnitude")
+#: Quantities of a branch (status included), of one branch end (flows and current), of a bus.
+BRANCH_QUANTITIES = _quantities(element="branch")
+BRANCH_END_QUANTITIES = _quantities(element="branch", end=True)
+BUS_QUANTITIES = _quantities(element="bus")
+#: Quantities measured from a CT and a VT together (power): at a branch end (flows) and at a
+#: bus (injections); and those a CT (power, current) or a VT (power, voltage) feeds.
+POWER_QUANTITIES = _quantities(family="power")
+FLOW_QUANTITIES = _quantities(family="power", element="branch")
+INJECTION_QUANTITIES = _quantities(family="power", element="bus")
+CT_QUANTITIES = _quantities(family=("power", "current"))
+VT_QUANTITIES = _quantities(family=("power", "voltage"))
 ENDS = ("from", "to")
 
 #: Quantities as an engineer names them: the one vocabulary of every text a person reads

@@ -14,13 +14,18 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import default_sigma, parse_ratio
+from calibra.model.points import (
+    ANALOG_QUANTITIES,
+    BRANCH_END_QUANTITIES,
+    FLOW_QUANTITIES,
+    INJECTION_QUANTITIES,
+    default_sigma,
+    parse_ratio,
+)
 from calibra.simulate.faults import FAULT_KINDS, FaultSpec
 from calibra.simulate.pointlist import CT_SECONDARY_A, MULTI_RATIO_CT_TAPS
 
 DEFAULT_MIX = FAULT_KINDS
-_FLOW_END = ("p_flow", "q_flow", "i_magnitude")
-_ANALOG = _FLOW_END + ("p_injection", "q_injection", "v_magnitude")
 
 
 def _round2(x: float) -> float:
@@ -52,7 +57,7 @@ class _Picker:
         self.points = points
         self.rng = rng
         self.sigma = default_sigma(points)
-        analog = points.index[points["quantity"].isin(_ANALOG)]
+        analog = points.index[points["quantity"].isin(ANALOG_QUANTITIES)]
         vals = values[analog.intersection(values.columns)]
         self.level = vals.abs().median()
         self.spread = vals.std()
@@ -123,7 +128,7 @@ def random_faults(
 def _pick_one(pick: _Picker, kind: str, variant: int, onset, index) -> FaultSpec | None:
     sig = pick.sigma
     if kind == "mismapped":
-        for _, g in pick.devices(("p_flow", "q_flow")):
+        for _, g in pick.devices(FLOW_QUANTITIES):
             p, q = g.index[g["quantity"] == "p_flow"][0], g.index[g["quantity"] == "q_flow"][0]
             gap = (pick.level[p] - pick.level[q]) if p in pick.level else 0.0
             if pick.free([p, q]) and abs(gap) >= 10 * max(sig[p], sig[q]):
@@ -137,7 +142,7 @@ def _pick_one(pick: _Picker, kind: str, variant: int, onset, index) -> FaultSpec
         return None
     if kind == "scale":
         return _scale(pick, variant % 2) or _scale(pick, (variant + 1) % 2)
-    for tag in pick.tags_of(_ANALOG):
+    for tag in pick.tags_of(ANALOG_QUANTITIES):
         if not pick.free([tag]) or tag not in pick.level:
             continue
         s = sig[tag]
@@ -161,12 +166,12 @@ def _pick_one(pick: _Picker, kind: str, variant: int, onset, index) -> FaultSpec
 
 def _reversed(pick: _Picker, variant: int) -> FaultSpec | None:
     if variant == 1:
-        for tag in pick.tags_of(("p_flow", "q_flow")):
+        for tag in pick.tags_of(FLOW_QUANTITIES):
             if pick.free([tag]) and pick.significant(tag):
                 return FaultSpec("reversed", (tag,), factor=-1.0,
                                  detail="one channel wired with reversed polarity")
         return None
-    quantities = ("p_flow", "q_flow") if variant == 0 else ("p_injection", "q_injection")
+    quantities = FLOW_QUANTITIES if variant == 0 else INJECTION_QUANTITIES
     for _, g in pick.devices(quantities):
         tags = list(g.index[g["quantity"].isin(quantities)])
         p = g.index[g["quantity"] == quantities[0]][0]
@@ -186,8 +191,8 @@ def _scale(pick: _Picker, variant: int) -> FaultSpec | None:
                     "VT connected line-to-neutral, configured line-to-line")
                 return FaultSpec("scale", (tag,), factor=factor, detail=what)
         return None
-    for _, g in pick.devices(("p_flow", "q_flow")):
-        tags = list(g.index[g["quantity"].isin(_FLOW_END)])
+    for _, g in pick.devices(FLOW_QUANTITIES):
+        tags = list(g.index[g["quantity"].isin(BRANCH_END_QUANTITIES)])
         p = g.index[g["quantity"] == "p_flow"][0]
         pairs = wrong_ct_taps(str(g["ct_ratio"].iloc[0]))
         if not pairs or not pick.free(tags):

@@ -20,14 +20,13 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import default_sigma
+from calibra.model.points import ANALOG_QUANTITIES, default_sigma
 
 FAULT_KINDS = ("reversed", "scale", "offset", "drift", "stuck", "noisy", "mismapped")
 TRUTH_COLUMNS = [
     "fault", "tag", "device", "kind", "factor", "offset", "drift_per_day", "onset",
     "noise_factor", "swapped_with", "detail",
 ]
-_ANALOG = ("p_flow", "q_flow", "i_magnitude", "p_injection", "q_injection", "v_magnitude")
 
 
 @dataclass(frozen=True)
@@ -66,7 +65,7 @@ def _check(spec: FaultSpec, points: pd.DataFrame) -> None:
     if unknown:
         raise KeyError(f"{spec.kind} fault names tags not in the point list: {unknown}")
     qty = points.loc[list(spec.tags), "quantity"]
-    if not qty.isin(_ANALOG).all():
+    if not qty.isin(ANALOG_QUANTITIES).all():
         raise ValueError(f"{spec.kind} fault on a status point: {list(spec.tags)}")
     if spec.kind == "mismapped":
         pair = set(qty.str[:2])

@@ -25,6 +25,7 @@ import numpy as np
 import pandas as pd
 
 from calibra.model.network import Network
+from calibra.model.points import FLOW_QUANTITIES, INJECTION_QUANTITIES
 from calibra.simulate.case import GridCase
 from calibra.simulate.faultmix import wrong_ct_taps
 from calibra.simulate.faults import FaultSpec
@@ -211,7 +212,7 @@ def _device_tags(points: pd.DataFrame, element: str, end: str, quantities) -> tu
 
 def sample_faults(points: pd.DataFrame) -> list[FaultSpec]:
     """The seeded faults of the sample week (most of them at the Norrance commissioning)."""
-    pq = ("p_flow", "q_flow")
+    pq = FLOW_QUANTITIES
     ct = _device_tags(points, "NRC-T2", "to", pq + ("i_magnitude",))
     configured, wired = min(
         wrong_ct_taps(points.at[ct[0], "ct_ratio"], (1.3, 2.5)),
@@ -222,7 +223,7 @@ def sample_faults(points: pd.DataFrame) -> list[FaultSpec]:
                   detail="CT polarity reversed at the new line bay"),
         FaultSpec("reversed", (_tag(points, "q_flow", "NRC-T1", "from"),), factor=-1.0,
                   detail="reactive power channel wired with reversed polarity"),
-        FaultSpec("reversed", _device_tags(points, "NRC_33A", "", ("p_injection", "q_injection")),
+        FaultSpec("reversed", _device_tags(points, "NRC_33A", "", INJECTION_QUANTITIES),
                   factor=-1.0, detail="feeder metered with the load sign convention"),
         FaultSpec("scale", ct, factor=configured / wired,
                   detail=f"CT wired on the {wired}:{CT_SECONDARY_A} tap, "
@@ -267,7 +268,7 @@ def _first(points: pd.DataFrame, quantity: str, candidates) -> str | None:
 
 def _first_device(points: pd.DataFrame, candidates) -> tuple[str, ...]:
     for element, end in candidates:
-        tags = _device_tags(points, element, end, ("p_flow", "q_flow"))
+        tags = _device_tags(points, element, end, FLOW_QUANTITIES)
         if len(tags) == 2:
             return tags
     return ()
