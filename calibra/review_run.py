@@ -16,6 +16,7 @@ import pandas as pd
 
 from calibra.diagnosis.findings import FindingKind, findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
+from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.ledger import Ledger, apply_corrections
 from calibra.ledger.states import FindingState
 from calibra.model.availability import availability_lines
@@ -93,7 +94,7 @@ def run_review(
     table["in_this_review"] = True
     review_id = None
     if ledger is not None:
-        summary = {k: v for k, v in result.summary.items() if k != "rounds"}
+        summary = result.summary.as_dict(rounds=False)
         unverifiable = {f.tag for f in result.findings if f.finding == FindingKind.UNVERIFIABLE}
         judged = set(result.diagnoses) - unverifiable
         review_id = ledger.record_review(
@@ -180,7 +181,7 @@ def work_order_lines(sheets: Iterable[Sheet]) -> list[str]:
 
 
 def _json_summary(run: ReviewRun) -> dict:
-    s = dict(run.result.summary)
+    s = run.result.summary.as_dict()
     s["seconds"] = round(run.seconds, 1)
     s["review_id"] = run.review_id
     s["corrections_applied"] = [asdict(c) for c in run.corrections]
@@ -188,14 +189,14 @@ def _json_summary(run: ReviewRun) -> dict:
     return s
 
 
-def observability_text(s: dict, n_bus: int) -> str:
+def observability_text(s: ReviewSummary, n_bus: int) -> str:
     """'; partly observable 1,008 (up to 3 of 89 buses not estimated); …' or ''."""
     parts = []
-    if s.get("partly_observable"):
-        parts.append(f"partly observable {s['partly_observable']:,} (up to "
-                     f"{s['most_buses_not_estimated']:,} of {n_bus:,} buses not estimated)")
-    if s.get("not_observable"):
-        parts.append(f"not observable at all {s['not_observable']:,}")
+    if s.partly_observable:
+        parts.append(f"partly observable {s.partly_observable:,} (up to "
+                     f"{s.most_buses_not_estimated:,} of {n_bus:,} buses not estimated)")
+    if s.not_observable:
+        parts.append(f"not observable at all {s.not_observable:,}")
     return "".join(f"; {p}" for p in parts)
 
 
@@ -207,18 +208,18 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     lines = [
         f"site {site.name}: review of {for_people(r.period_start, tz)} to "
         f"{for_people(r.period_end, tz)} ({tz}) in {run.seconds:.1f} s",
-        f"snapshots: {s['snapshots']:,}, estimated {s['converged']:,}"
+        f"snapshots: {s.snapshots:,}, estimated {s.converged:,}"
         + observability_text(s, site.network.n_bus),
     ]
-    lines += [f"not estimated: {why}" for why in s.get("estimation_failures", [])]
+    lines += [f"not estimated: {why}" for why in s.estimation_failures]
     lines += availability_lines(site)
-    lines += [f"status point contradicted: {c}" for c in s.get("status_conflicts", [])]
-    first = s["rounds"][0] if s["rounds"] else None
+    lines += [f"status point contradicted: {c}" for c in s.status_conflicts]
+    first = s.rounds[0] if s.rounds else None
     if first:
         lines.append(f"chi-square failures with every point in: {first['chi2_failed']} of "
                      f"{first['snapshots']} sampled snapshots")
-    lines.append(f"chi-square failures with the {s['set_aside']} suspect point(s) set aside: "
-                 f"{s['chi2_failed']:,} of {s['converged']:,} snapshots")
+    lines.append(f"chi-square failures with the {s.set_aside} suspect point(s) set aside: "
+                 f"{s.chi2_failed:,} of {s.converged:,} snapshots")
     if run.corrections:
         lines.append(f"software corrections applied: {len(run.corrections)} "
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")

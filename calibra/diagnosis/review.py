@@ -21,6 +21,7 @@ from calibra.diagnosis.mismap import (
     unit_family,
 )
 from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
+from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.runtime import fork_map
 from calibra.model.points import analog_points, class_limit
@@ -47,7 +48,7 @@ class ReviewResult:
     evidence: WeekEvidence
     diagnoses: dict[str, PointDiagnosis]
     findings: list
-    summary: dict
+    summary: ReviewSummary
 
 
 def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSeries:
@@ -220,18 +221,18 @@ def review_site(
     findings = build_findings(site, ev, diagnoses, mismaps, unverifiable)
     outcomes = ev.period.outcomes
     conv = outcomes["converged"].astype(bool)
-    summary = {
-        "snapshots": int(len(outcomes)),
-        "converged": int(conv.sum()),
-        "chi2_failed": int((~outcomes.loc[conv, "chi2_passed"].astype(bool)).sum()),
+    summary = ReviewSummary(
+        snapshots=int(len(outcomes)),
+        converged=int(conv.sum()),
+        chi2_failed=int((~outcomes.loc[conv, "chi2_passed"].astype(bool)).sum()),
         **observability_counts(outcomes),
-        "estimation_failures": sorted(set(
+        estimation_failures=sorted(set(
             outcomes.loc[outcomes["method"] == "failed", "reason"].astype(str))),
-        "points": int(len(analog_points(site.points))),
-        "set_aside": int(ev.set_aside.sum()),
-        "findings": len(findings),
-        "status_conflicts": [c.describe(site.timezone) for c in ev.status_conflicts],
-        "rounds": ev.rounds,
-    }
+        points=int(len(analog_points(site.points))),
+        set_aside=int(ev.set_aside.sum()),
+        findings=len(findings),
+        status_conflicts=[c.describe(site.timezone) for c in ev.status_conflicts],
+        rounds=ev.rounds,
+    )
     return ReviewResult(site.name, snaps.index[0], snaps.index[-1], ev, diagnoses, findings,
                         summary)

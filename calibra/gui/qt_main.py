@@ -311,7 +311,7 @@ class MainWindow(QMainWindow):
         self.details.show_runs(before, self.figures[-1])
         s = run.result.summary
         text = (f"Review done in {run.seconds:.1f} s: {len(run.findings)} finding(s), "
-                f"{s['chi2_failed']:,} chi-square failure(s) of {s['converged']:,} "
+                f"{s.chi2_failed:,} chi-square failure(s) of {s.converged:,} "
                 f"estimated snapshots")
         if before is not None:
             after = self.figures[-1]
