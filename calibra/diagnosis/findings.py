@@ -33,8 +33,6 @@ CORRECTABLE_KINDS = (FindingKind.REVERSED, FindingKind.SCALE, FindingKind.OFFSET
 FACTOR_KINDS = (FindingKind.REVERSED, FindingKind.SCALE)
 
 
-
-
 class DiagnosisKind(StrEnum):
     """What the classification of one point's own week concludes (``classify.py``): healthy,
     too little data, or a fault whose finding kind has the same name. Mismapped and
