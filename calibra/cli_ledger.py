@@ -13,14 +13,13 @@ from pathlib import Path
 import pandas as pd
 
 from calibra.cli import EXIT_OK, EXIT_UNUSABLE, UsageError
+from calibra.diagnosis.findings import CORRECTABLE_KINDS, FACTOR_KINDS, FindingKind
 from calibra.io.problems import ProblemLog
 from calibra.io.site_config import read_site_config
 from calibra.ledger import Ledger, LedgerError
-from calibra.ledger.states import OPEN_STATES
+from calibra.ledger.states import OPEN_STATES, FindingState
 from calibra.model.times import for_people, read_local
 
-#: Finding kinds a software correction can undo, and the ledger action for each.
-CORRECTABLE = ("reversed", "scale", "offset")
 ACTIONS = ("confirm", "correct", "repaired", "dismiss", "note", "undo", "history")
 
 
@@ -114,16 +113,16 @@ def _correct(ledger: Ledger, rows: pd.DataFrame, args, tz: str) -> list[str]:
     valid_from = read_local(args.valid_from, tz) if args.valid_from else None
     done = []
     for tag, group in rows.groupby("tag", sort=True):
-        kinds = [k for k in group["finding"] if k in CORRECTABLE]
+        kinds = [k for k in group["finding"] if k in CORRECTABLE_KINDS]
         if not kinds:
             raise UsageError(f"{tag}: {', '.join(group['finding'])} cannot be corrected in "
                              "software (only reversed, scale and offset findings); confirm it "
                              "for the field work")
         r = group[group["finding"] == kinds[0]].iloc[0]
-        if kinds[0] == "reversed" and args.factor is None:
+        if kinds[0] == FindingKind.REVERSED and args.factor is None:
             ledger.mark_reversed(tag, args.user, valid_from, args.note)
             done.append(f"{tag}: corrected in software (sign reversed)")
-        elif kinds[0] in ("reversed", "scale"):
+        elif kinds[0] in FACTOR_KINDS:
             factor = args.factor if args.factor is not None else r["factor"]
             if pd.isna(factor):
                 raise UsageError(f"{tag}: no fitted factor; give --factor")
@@ -200,10 +199,10 @@ def _run(ledger: Ledger, args: argparse.Namespace, tz: str) -> int:
         return EXIT_OK
     rows = resolve(ledger.findings(), args.item, open_only=action not in ("note", "dismiss"))
     if action == "confirm":
-        for fid in rows.index[rows["state"].isin(("new",))]:
+        for fid in rows.index[rows["state"] == FindingState.NEW]:
             ledger.confirm(fid, args.user, args.note)
             print(f"{fid}: confirmed")
-        if not rows["state"].isin(("new",)).any():
+        if not (rows["state"] == FindingState.NEW).any():
             states = ", ".join(sorted(set(rows["state"])))
             print(f"{args.item}: nothing to confirm (already {states})")
     elif action == "correct":

@@ -14,19 +14,22 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from calibra.diagnosis.findings import FACTOR_KINDS, FindingKind
 from calibra.ledger import Ledger
 from calibra.ledger.corrections import Correction
+from calibra.ledger.states import FindingState
 from calibra.model.times import for_people
 
 #: Ledger states whose findings stay on the field work when the review does not see them.
-CARRIED_STATES = ("confirmed", "corrected")
-_CORRECTION_WORDS = {"reversed": "sign reversed", "scale": "scaled", "offset": "offset removed"}
+CARRIED_STATES = (FindingState.CONFIRMED, FindingState.CORRECTED)
+_CORRECTION_WORDS = {FindingKind.REVERSED: "sign reversed", FindingKind.SCALE: "scaled",
+                     FindingKind.OFFSET: "offset removed"}
 
 
 def repairs_inside(ledger: Ledger, start: pd.Timestamp,
                    end: pd.Timestamp) -> dict[str, pd.Timestamp]:
     """Tags with a finding marked repaired at a time inside (start, end]: tag → repair time."""
-    repaired = ledger.findings(state="repaired")
+    repaired = ledger.findings(state=FindingState.REPAIRED)
     out: dict[str, pd.Timestamp] = {}
     for tag, at in zip(repaired["tag"], repaired["repaired_at"], strict=True):
         if pd.notna(at) and start < at <= end:
@@ -47,7 +50,7 @@ def judge_after_repairs(snaps: pd.DataFrame, repairs: dict[str, pd.Timestamp]) -
 
 def _correction_text(c: Correction, applied: pd.Timestamp | None, timezone: str) -> str:
     what = _CORRECTION_WORDS.get(c.kind, "corrected")
-    detail = (f"gain {c.gain:g}" if c.kind in ("reversed", "scale") else f"bias {c.bias:g}")
+    detail = (f"gain {c.gain:g}" if c.kind in FACTOR_KINDS else f"bias {c.bias:g}")
     when = f", entered {for_people(applied, timezone)}" if applied is not None else ""
     if c.valid_from is not None:
         return f"corrected in software since {for_people(c.valid_from, timezone)} ({what}, " \
@@ -72,11 +75,11 @@ def carried_findings(ledger: Ledger, seen: pd.Series, corrections: list[Correcti
     notes = []
     for tag, state, evidence in zip(rows["tag"], rows["state"], rows["evidence"], strict=True):
         fixes = by_tag.get(str(tag), [])
-        if state == "corrected" and fixes:
+        if state == FindingState.CORRECTED and fixes:
             head = "; ".join(_correction_text(c, entered.get(c.source_action), timezone)
                              for c in fixes)
             notes.append(f"{head}: the field fix is still due (when last found: {evidence})")
-        elif state == "corrected":
+        elif state == FindingState.CORRECTED:
             notes.append(f"corrected in software: the field fix is still due (when last found: "
                          f"{evidence})")
         else:

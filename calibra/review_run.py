@@ -14,10 +14,12 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.diagnosis.findings import findings_table
+from calibra.diagnosis.findings import FindingKind, findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
+from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.estimation.engine import PeriodEngine
 from calibra.ledger import Ledger
+from calibra.ledger.states import FindingState
 from calibra.model.availability import availability_lines
 from calibra.model.site import Site
 from calibra.model.times import for_machines, for_people
@@ -83,15 +85,15 @@ def run_review(
     table["in_this_review"] = True
     review_id = None
     if ledger is not None:
-        summary = {k: v for k, v in result.summary.items() if k != "rounds"}
-        unverifiable = {f.tag for f in result.findings if f.finding == "unverifiable"}
+        summary = result.summary.as_dict(rounds=False)
+        unverifiable = {f.tag for f in result.findings if f.finding == FindingKind.UNVERIFIABLE}
         judged = set(result.diagnoses) - unverifiable
         review_id = ledger.record_review(
             result.findings, period.index[0], period.index[-1], settings_dict(st), summary,
             judged_from=repairs, not_judged=set(site.points.index.astype(str)) - judged)
         table = _with_ledger(table, ledger, corrections, site.timezone)
     else:
-        table["state"] = "new"
+        table["state"] = FindingState.NEW
     run = ReviewRun(result, table, review_id, corrections, time.perf_counter() - t0)
     run.repairs_judged = repairs
     return run
@@ -102,7 +104,7 @@ def _with_ledger(table: pd.DataFrame, ledger: Ledger, corrections: list,
     """The review's findings with their ledger state (and reopen reason), followed by the
     findings the ledger still holds open for the field that the review did not see."""
     known = ledger.findings()
-    for name, fill in (("state", "new"), ("reopened", ""), ("repaired_at", pd.NaT)):
+    for name, fill in (("state", FindingState.NEW), ("reopened", ""), ("repaired_at", pd.NaT)):
         table[name] = table["finding_id"].map(known[name]).fillna(fill) if len(known) else fill
     carried = carried_findings(ledger, table["finding_id"], corrections, timezone)
     if len(carried):
@@ -170,7 +172,7 @@ def work_order_lines(sheets: Iterable[Sheet]) -> list[str]:
 
 
 def _json_summary(run: ReviewRun) -> dict:
-    s = dict(run.result.summary)
+    s = run.result.summary.as_dict()
     s["seconds"] = round(run.seconds, 1)
     s["review_id"] = run.review_id
     s["corrections_applied"] = [asdict(c) for c in run.corrections]
@@ -178,14 +180,14 @@ def _json_summary(run: ReviewRun) -> dict:
     return s
 
 
-def observability_text(s: dict, n_bus: int) -> str:
+def observability_text(s: ReviewSummary, n_bus: int) -> str:
     """'; partly observable 1,008 (up to 3 of 89 buses not estimated); …' or ''."""
     parts = []
-    if s.get("partly_observable"):
-        parts.append(f"partly observable {s['partly_observable']:,} (up to "
-                     f"{s['most_buses_not_estimated']:,} of {n_bus:,} buses not estimated)")
-    if s.get("not_observable"):
-        parts.append(f"not observable at all {s['not_observable']:,}")
+    if s.partly_observable:
+        parts.append(f"partly observable {s.partly_observable:,} (up to "
+                     f"{s.most_buses_not_estimated:,} of {n_bus:,} buses not estimated)")
+    if s.not_observable:
+        parts.append(f"not observable at all {s.not_observable:,}")
     return "".join(f"; {p}" for p in parts)
 
 
@@ -197,18 +199,18 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     lines = [
         f"site {site.name}: review of {for_people(r.period_start, tz)} to "
         f"{for_people(r.period_end, tz)} ({tz}) in {run.seconds:.1f} s",
-        f"snapshots: {s['snapshots']:,}, estimated {s['converged']:,}"
+        f"snapshots: {s.snapshots:,}, estimated {s.converged:,}"
         + observability_text(s, site.network.n_bus),
     ]
-    lines += [f"not estimated: {why}" for why in s.get("estimation_failures", [])]
+    lines += [f"not estimated: {why}" for why in s.estimation_failures]
     lines += availability_lines(site)
-    lines += [f"status point contradicted: {c}" for c in s.get("status_conflicts", [])]
-    first = s["rounds"][0] if s["rounds"] else None
+    lines += [f"status point contradicted: {c}" for c in s.status_conflicts]
+    first = s.rounds[0] if s.rounds else None
     if first:
         lines.append(f"chi-square failures with every point in: {first['chi2_failed']} of "
                      f"{first['snapshots']} sampled snapshots")
-    lines.append(f"chi-square failures with the {s['set_aside']} suspect point(s) set aside: "
-                 f"{s['chi2_failed']:,} of {s['converged']:,} snapshots")
+    lines.append(f"chi-square failures with the {s.set_aside} suspect point(s) set aside: "
+                 f"{s.chi2_failed:,} of {s.converged:,} snapshots")
     if run.corrections:
         lines.append(f"software corrections applied: {len(run.corrections)} "
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")

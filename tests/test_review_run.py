@@ -24,7 +24,7 @@ def test_correct_then_repair_then_verify(reversed_site, tmp_path):
         found = first.findings.set_index("tag")
         assert set(tags) <= set(found.index)
         assert (found.loc[list(tags), "finding"] == "reversed").all()
-        chi2_before = first.result.summary["rounds"][0]["chi2_failed"]
+        chi2_before = first.result.summary.rounds[0]["chi2_failed"]
 
         for tag in tags:
             ledger.mark_reversed(tag, user="test")
@@ -38,7 +38,7 @@ def test_correct_then_repair_then_verify(reversed_site, tmp_path):
         assert kept["evidence"].str.contains("corrected in software since").all()
         assert kept["evidence"].str.contains("field fix is still due").all()
         # With the correction applied, far fewer snapshots fail with every point in.
-        assert second.result.summary["rounds"][0]["chi2_failed"] < 0.2 * chi2_before
+        assert second.result.summary.rounds[0]["chi2_failed"] < 0.2 * chi2_before
         states = ledger.findings().set_index("tag")
         assert (states.loc[list(tags), "state"] == "corrected").all()
 

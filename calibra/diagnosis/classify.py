@@ -25,6 +25,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from calibra.diagnosis.findings import DiagnosisKind
 from calibra.diagnosis.fits import find_stuck_runs, fit_drift, fit_gain, robust_scale
 
 
@@ -63,7 +64,7 @@ class PointSeries:
 
 @dataclass
 class PointDiagnosis:
-    kind: str  # healthy, reversed, scale, offset, drift, stuck, noisy, insufficient
+    kind: DiagnosisKind
     confidence: float = 0.0
     params: dict = field(default_factory=dict)
     n_used: int = 0
@@ -125,7 +126,7 @@ class _Week:
 
 
 #: A fault model that explains the week: (mean loss, order, kind, parameters, its errors).
-Candidate = tuple[float, int, str, dict, np.ndarray]
+Candidate = tuple[float, int, DiagnosisKind, dict, np.ndarray]
 
 
 def _stuck(w: _Week) -> PointDiagnosis | None:
@@ -143,7 +144,7 @@ def _stuck(w: _Week) -> PointDiagnosis | None:
     if np.median(np.abs(e_f)) <= max(w.limit, 2 * w.noise):
         return None
     return PointDiagnosis(
-        "stuck", confidence=float((np.abs(e_f) > w.noise).mean()), n_used=n,
+        DiagnosisKind.STUCK, confidence=float((np.abs(e_f) > w.noise).mean()), n_used=n,
         params={"value": first.value, "onset_days": float(t[first.start]),
                 "until_days": float(t[last.stop - 1]) if last.stop < n else None,
                 "frozen_snapshots": int(frozen.sum()),
@@ -168,7 +169,7 @@ def _gain(w: _Week) -> Candidate | None:
     se_k = w.noise / max(np.sqrt(np.sum(y * y)), 1e-300)
     typical = float(np.median(np.abs(y)))
     if abs(k - 1) * typical > w.limit and abs(k - 1) > st.significance * se_k and w.better(e_k):
-        kind = "reversed" if k < 0 else "scale"
+        kind = DiagnosisKind.REVERSED if k < 0 else DiagnosisKind.SCALE
         return (w.mean_loss(e_k, k), 0, kind, {"factor": k}, e_k)
     return None
 
@@ -179,7 +180,7 @@ def _offset(w: _Week) -> Candidate | None:
     e_c = w.e0 - c
     se_c = 1.2533 * robust_scale(w.e0) / np.sqrt(w.n)
     if abs(c) > w.limit and abs(c) > w.st.significance * se_c and w.better(e_c):
-        return (w.mean_loss(e_c), 1, "offset", {"offset": c}, e_c)
+        return (w.mean_loss(e_c), 1, DiagnosisKind.OFFSET, {"offset": c}, e_c)
     return None
 
 
@@ -194,7 +195,8 @@ def _drift(w: _Week) -> Candidate | None:
     e_d = w.e0 - a * ramp
     se_a = w.noise / max(np.sqrt(np.sum(ramp * ramp)), 1e-300)
     if reach > w.limit and abs(a) > w.st.significance * se_a and w.better(e_d):
-        return (w.mean_loss(e_d), 2, "drift", {"drift_per_day": a, "onset_days": t0}, e_d)
+        return (w.mean_loss(e_d), 2, DiagnosisKind.DRIFT, {"drift_per_day": a, "onset_days": t0},
+                e_d)
     return None
 
 
@@ -206,12 +208,13 @@ def _tie_break(candidates: list[Candidate], ps: PointSeries) -> Candidate:
 
     def prior(cand: Candidate) -> int:
         kind_c, params_c = cand[2], cand[3]
-        if kind_c == "reversed" and abs(params_c["factor"] + 1) < 0.05:
+        if kind_c == DiagnosisKind.REVERSED and abs(params_c["factor"] + 1) < 0.05:
             return 0
-        if kind_c in ("scale", "reversed") and ps.known_factor is not None \
+        if kind_c in (DiagnosisKind.SCALE, DiagnosisKind.REVERSED) and ps.known_factor is not None \
                 and ps.known_factor(params_c["factor"]):
             return 0
-        return {"offset": 1, "scale": 2, "reversed": 2, "drift": 3}[kind_c]
+        return {DiagnosisKind.OFFSET: 1, DiagnosisKind.SCALE: 2, DiagnosisKind.REVERSED: 2,
+                DiagnosisKind.DRIFT: 3}[kind_c]
 
     return min(near, key=lambda cand: (prior(cand), cand[0]))
 
@@ -222,11 +225,12 @@ def _noisy_or_healthy(w: _Week) -> PointDiagnosis:
     scatter = robust_scale(w.e0)
     if scatter > st.noisy_factor * noise and scatter > w.ps.class_limit / 3.0 * st.noisy_factor:
         return PointDiagnosis(
-            "noisy", confidence=float(min(1.0, 1 - st.noisy_factor * noise / scatter + 0.5)),
+            DiagnosisKind.NOISY,
+            confidence=float(min(1.0, 1 - st.noisy_factor * noise / scatter + 0.5)),
             params={"scatter": scatter, "expected": noise}, n_used=n, loss_healthy=loss0,
             loss_model=loss0,
         )
-    return PointDiagnosis("healthy", n_used=n, loss_healthy=loss0, loss_model=loss0,
+    return PointDiagnosis(DiagnosisKind.HEALTHY, n_used=n, loss_healthy=loss0, loss_model=loss0,
                           params={"scatter": scatter, "bias": float(np.median(w.e0))})
 
 
@@ -238,7 +242,7 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
     valid = np.isfinite(ps.z) & np.isfinite(ps.y)
     n = int(valid.sum())
     if n < st.min_snapshots:
-        return PointDiagnosis("insufficient", n_used=n,
+        return PointDiagnosis(DiagnosisKind.INSUFFICIENT, n_used=n,
                               reason=f"only {n} snapshots with a measured and an implied value")
     w = _Week(ps, st, ps.t_days[valid], ps.z[valid], ps.y[valid],
               float(np.hypot(ps.sigma, ps.sigma_implied)), ps.class_limit * st.class_margin)

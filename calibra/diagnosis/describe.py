@@ -7,8 +7,8 @@ import pandas as pd
 
 from calibra.diagnosis.causes import likely_scale_cause
 from calibra.diagnosis.classify import PointDiagnosis
-from calibra.diagnosis.findings import Finding
-from calibra.model.points import POWER_QUANTITIES, quantity_of_words
+from calibra.diagnosis.findings import FACTOR_KINDS, NO_FAULT, Finding, FindingKind
+from calibra.model.points import POWER_QUANTITIES, class_limit, quantity_of_words
 from calibra.model.site import Site
 from calibra.model.times import for_people
 
@@ -32,41 +32,40 @@ def _representative_pair(z: np.ndarray, y: np.ndarray) -> tuple[float, float]:
     return float(zz[j]), float(yy[j])
 
 
-def _evidence(kind: str, d: PointDiagnosis, z: np.ndarray, y: np.ndarray, unit: str,
+def _evidence(kind: FindingKind, d: PointDiagnosis, z: np.ndarray, y: np.ndarray, unit: str,
               limit: float, index: pd.DatetimeIndex, tz: str, extra: dict) -> str:
     n = f"{d.n_used:,}"
     share = f"{100 * d.confidence:.1f} %"
     p = d.params
-    if kind in ("reversed", "scale"):
+    if kind in FACTOR_KINDS:
         zr, yr = _representative_pair(z, y)
-        verb = "reads" if kind == "reversed" else "reads"
-        text = (f"{verb} {_fmt(zr, unit)} where the network implies {_fmt(yr, unit)}; "
+        text = (f"reads {_fmt(zr, unit)} where the network implies {_fmt(yr, unit)}; "
                 f"measured ≈ {p['factor']:.3f} × implied in {share} of {n} snapshots")
         return text
-    if kind == "offset":
+    if kind == FindingKind.OFFSET:
         return (f"reads {_fmt(p['offset'], unit)} off the implied value (class limit "
                 f"±{_fmt(limit, unit, False)}), consistent in {share} of {n} snapshots")
-    if kind == "drift":
+    if kind == FindingKind.DRIFT:
         onset = index[0] + pd.Timedelta(days=p["onset_days"])
         reach = p["drift_per_day"] * ((index[-1] - onset).total_seconds() / 86400)
         return (f"error grows {_fmt(p['drift_per_day'], unit)}/day from "
                 f"{_stamp(onset, tz)}, reaching {_fmt(reach, unit)} (class limit "
                 f"±{_fmt(limit, unit, False)}); {n} snapshots")
-    if kind == "stuck":
+    if kind == FindingKind.STUCK:
         onset = index[0] + pd.Timedelta(days=p["onset_days"])
         text = (f"frozen at {_fmt(p['value'], unit, False)} from {_stamp(onset, tz)} "
                 f"({p['frozen_snapshots']:,} snapshots) while the network implies "
                 f"{_fmt(p['implied_min'], unit)} … {_fmt(p['implied_max'], unit)}")
         return text
-    if kind == "noisy":
+    if kind == FindingKind.NOISY:
         return (f"scatters ±{_fmt(p['scatter'], unit, False)} (1σ) around the implied value, "
                 f"{p['scatter'] / max(p['expected'], 1e-12):.1f}× what its accuracy class and "
                 f"the network explain; {n} snapshots")
-    if kind == "mismapped":
+    if kind == FindingKind.MISMAPPED:
         return (f"follows {extra['matched']} (median difference "
                 f"{_fmt(extra['loss'], unit, False)}) rather than its own quantity "
                 f"(median difference {_fmt(d.loss_healthy, unit, False)}); {n} snapshots")
-    if kind == "unverifiable":
+    if kind == FindingKind.UNVERIFIABLE:
         if extra.get("reason"):
             return extra["reason"]
         sugg = extra.get("suggestion")
@@ -77,20 +76,22 @@ def _evidence(kind: str, d: PointDiagnosis, z: np.ndarray, y: np.ndarray, unit: 
 
 
 _ACTIONS = {
-    "reversed": "check CT polarity marks and secondary wiring; check the sign in the RTU/IED",
-    "scale": "check CT/VT ratio and tap against the point list; check transducer and RTU scaling",
-    "offset": "check transducer zero; calibrate",
-    "drift": "calibrate against a reference meter; replace if out of class",
-    "stuck": "check RTU/IED communication and the transducer output",
-    "noisy": "check wiring, shielding and earthing; check transducer health",
-    "mismapped": "check the point mapping in the RTU/IED against the point list",
-    "unverifiable": "check the point against a portable reference meter",
+    FindingKind.REVERSED:
+        "check CT polarity marks and secondary wiring; check the sign in the RTU/IED",
+    FindingKind.SCALE:
+        "check CT/VT ratio and tap against the point list; check transducer and RTU scaling",
+    FindingKind.OFFSET: "check transducer zero; calibrate",
+    FindingKind.DRIFT: "calibrate against a reference meter; replace if out of class",
+    FindingKind.STUCK: "check RTU/IED communication and the transducer output",
+    FindingKind.NOISY: "check wiring, shielding and earthing; check transducer health",
+    FindingKind.MISMAPPED: "check the point mapping in the RTU/IED against the point list",
+    FindingKind.UNVERIFIABLE: "check the point against a portable reference meter",
 }
 
 
-def _action(kind: str, extra: dict) -> str:
+def _action(kind: FindingKind, extra: dict) -> str:
     """What to do, in the words of the sheets: an unverifiable point names the meter to add."""
-    if kind == "unverifiable" and extra.get("suggestion"):
+    if kind == FindingKind.UNVERIFIABLE and extra.get("suggestion"):
         return (f"add {extra['suggestion']}; until then check the point against a portable "
                 "reference meter")
     return _ACTIONS[kind]
@@ -106,22 +107,24 @@ def build_findings(site: Site, ev, diagnoses: dict[str, PointDiagnosis], mismaps
     for i, tag in enumerate(model.tags):
         tag = str(tag)
         d = diagnoses[tag]
-        kind = d.kind
         extra: dict = {}
         if tag in mismaps:
-            kind, extra = "mismapped", mismaps[tag]
+            kind, extra = FindingKind.MISMAPPED, mismaps[tag]
         elif tag in unverifiable:
-            kind, extra = "unverifiable", unverifiable[tag]
-        if kind in ("healthy", "insufficient"):
+            kind, extra = FindingKind.UNVERIFIABLE, unverifiable[tag]
+        elif d.kind in NO_FAULT:
             continue
+        else:
+            kind = FindingKind(d.kind)
         pt = pts.loc[tag]
         unit = str(pt["unit"])
-        limit = float(pt["accuracy_pct"]) / 100.0 * float(pt["full_scale"])
+        limit = class_limit(pt)
         z = ev.measured[:, i].astype(float)
         y = ev.implied[:, i].astype(float)
         f = Finding(
             tag=tag, device=str(pt["device"]), substation=str(pt["substation"]), finding=kind,
-            confidence=round(float(d.confidence), 3) if kind != "unverifiable" else 1.0,
+            confidence=(round(float(d.confidence), 3) if kind != FindingKind.UNVERIFIABLE
+                        else 1.0),
             evidence=_evidence(kind, d, z, y, unit, limit, ev.index, tz, extra),
             quantity=str(pt["quantity"]), element=str(pt["element"]), end=str(pt["end"]),
             unit=unit, rtu=str(pt.get("rtu", "")), channel=str(pt.get("channel", "")),
@@ -129,20 +132,20 @@ def build_findings(site: Site, ev, diagnoses: dict[str, PointDiagnosis], mismaps
             share_supporting=round(float(d.confidence), 3),
         )
         p = d.params
-        if kind in ("reversed", "scale"):
+        if kind in FACTOR_KINDS:
             f.factor = round(float(p["factor"]), 4)
-            if kind == "scale":
+            if kind == FindingKind.SCALE:
                 f.cause = likely_scale_cause(p["factor"], f.quantity, str(pt.get("ct_ratio", "")))
-        elif kind == "offset":
+        elif kind == FindingKind.OFFSET:
             f.offset = float(p["offset"])
-        elif kind == "drift":
+        elif kind == FindingKind.DRIFT:
             f.drift_per_day = float(p["drift_per_day"])
             f.onset = ev.index[0] + pd.Timedelta(days=p["onset_days"])
-        elif kind == "stuck":
+        elif kind == FindingKind.STUCK:
             f.onset = ev.index[0] + pd.Timedelta(days=p["onset_days"])
             if p.get("until_days") is not None:
                 f.until = ev.index[0] + pd.Timedelta(days=p["until_days"])
-        elif kind == "mismapped":
+        elif kind == FindingKind.MISMAPPED:
             f.matched = extra["matched"]
             f.confidence = round(float(min(1.0, 1 - extra["loss"] / max(d.loss_healthy, 1e-12))), 3)
         findings.append(f)
@@ -165,19 +168,19 @@ def _merge_devices(findings: list[Finding], pts: pd.DataFrame) -> None:
         if set(found) != set(channels):
             continue
         kinds = {f.finding for f in found.values()}
-        if kinds == {"reversed"}:
+        if kinds == {FindingKind.REVERSED}:
             for f in found.values():
                 f.scope = "device"
                 f.cause = "CT polarity reversed: all power channels of the device read negated"
-        elif kinds == {"scale"}:
+        elif kinds == {FindingKind.SCALE}:
             factors = np.array([f.factor for f in found.values()], float)
             if np.ptp(factors) <= 0.03 * np.abs(factors).mean():
                 for f in found.values():
                     f.scope = "device"
                     f.cause = f.cause or "one ratio error on the device's CT or VT"
-        elif kinds == {"mismapped"}:
+        elif kinds == {FindingKind.MISMAPPED}:
             read = {t: quantity_of_words(f.matched) for t, f in found.items()}
-            crossed = all(read[t] in ("p_flow", "q_flow", "p_injection", "q_injection")
+            crossed = all(read[t] in POWER_QUANTITIES
                           and read[t][0] != f.quantity[0] for t, f in found.items())
             if crossed:
                 for f in found.values():

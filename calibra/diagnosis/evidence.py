@@ -6,11 +6,12 @@ Trans. PAS-94(2), 1975, applied to statistics over many snapshots):
 
 1. Screening rounds on a subsample of the period (every ``screening_step``-th snapshot):
    estimate, take each point's ``screening_quantile`` of normalized residuals over the
-   snapshots; points above the threshold are suspects. The strongest suspect is set aside, and
-   so is every further suspect whose residuals are not correlated with an already chosen one
-   (a bad meter inflates its neighbours' residuals; those recover once it is set aside).
-   Repeat until no suspect remains. A point is never set aside if that would leave part of the
-   network unobservable.
+   snapshots; points above the threshold are suspects. Which of them to set aside is decided
+   by elimination on a few probe snapshots (:func:`~calibra.diagnosis.suspects.pick_suspects`):
+   the unit whose removal lowers the objective most goes; suspects whose excess the units set
+   aside can explain (a bad meter inflates its neighbours' residuals) wait for the next round.
+   Repeat until no suspect remains. A point is never set aside if that would leave a bus
+   estimated now without an estimate, or split the estimated part into more islands.
 2. A full-resolution estimate without the set-aside points. The implied value of a point in
    the estimate is z − r/S (the value the other measurements imply: b̂ = r/S is the estimated
    error); for a point set aside it is h(x̂), an estimate made without it.

@@ -7,13 +7,49 @@ the columns of :data:`FINDING_COLUMNS`, in that order; further columns follow.
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
+from enum import StrEnum
 
 import pandas as pd
 
-#: Kinds of finding, in the words the findings file uses.
-FINDING_KINDS = (
-    "reversed", "scale", "offset", "drift", "stuck", "noisy", "mismapped", "unverifiable",
-)
+
+class FindingKind(StrEnum):
+    """Kinds of finding, in the words the findings file uses (members equal those strings)."""
+
+    REVERSED = "reversed"
+    SCALE = "scale"
+    OFFSET = "offset"
+    DRIFT = "drift"
+    STUCK = "stuck"
+    NOISY = "noisy"
+    MISMAPPED = "mismapped"
+    UNVERIFIABLE = "unverifiable"
+
+
+#: Every finding kind, in the order the findings file and the lists use.
+FINDING_KINDS = tuple(FindingKind)
+#: Kinds a software correction (a gain and a bias) can undo.
+CORRECTABLE_KINDS = (FindingKind.REVERSED, FindingKind.SCALE, FindingKind.OFFSET)
+#: Kinds with a fitted factor: measured ≈ factor × implied.
+FACTOR_KINDS = (FindingKind.REVERSED, FindingKind.SCALE)
+
+
+class DiagnosisKind(StrEnum):
+    """What the classification of one point's own week concludes (``classify.py``): healthy,
+    too little data, or a fault whose finding kind has the same name. Mismapped and
+    unverifiable are concluded by other steps (``mismap.py``, ``redundancy.py``)."""
+
+    HEALTHY = "healthy"
+    INSUFFICIENT = "insufficient"
+    REVERSED = FindingKind.REVERSED.value
+    SCALE = FindingKind.SCALE.value
+    OFFSET = FindingKind.OFFSET.value
+    DRIFT = FindingKind.DRIFT.value
+    STUCK = FindingKind.STUCK.value
+    NOISY = FindingKind.NOISY.value
+
+
+#: Diagnoses that make no finding.
+NO_FAULT = (DiagnosisKind.HEALTHY, DiagnosisKind.INSUFFICIENT)
 
 #: The stable leading columns of findings.csv.
 FINDING_COLUMNS = [
@@ -42,7 +78,7 @@ class Finding:
     tag: str
     device: str
     substation: str
-    finding: str
+    finding: FindingKind
     confidence: float
     evidence: str
     factor: float | None = None

@@ -18,7 +18,7 @@ full scale) at the point's typical reading to count as a fault.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -26,29 +26,11 @@ import numpy as np
 MAD_TO_SIGMA = 1.4826
 
 
-@dataclass
-class ModelFit:
-    """One fitted model: its name, parameters, and robust loss (median |error|)."""
-
-    name: str
-    loss: float
-    params: dict = field(default_factory=dict)
-    support: float = 0.0  # share of snapshots the model explains better than "healthy"
-
-
 def robust_scale(x: np.ndarray) -> float:
     """Gaussian-equivalent spread from the median absolute deviation."""
     if x.size == 0:
         return float("nan")
     return float(MAD_TO_SIGMA * np.median(np.abs(x - np.median(x))))
-
-
-def _support(e_model: np.ndarray, e_healthy: np.ndarray, floor: float) -> float:
-    """Share of snapshots where the model's error is clearly below the healthy model's."""
-    if e_model.size == 0:
-        return 0.0
-    better = np.abs(e_model) + floor < np.abs(e_healthy)
-    return float(better.mean())
 
 
 def fit_gain(z: np.ndarray, y: np.ndarray, noise: float, iterations: int = 8) -> float:

@@ -16,12 +16,15 @@ import pandas as pd
 from calibra.estimation.measurements import QUANTITY_CODE, MeasurementFunctions
 from calibra.estimation.model import SQRT3
 from calibra.model.network import Network
-from calibra.model.points import end_place, quantity_words
+from calibra.model.points import (
+    BRANCH_END_QUANTITIES,
+    BUS_QUANTITIES,
+    QUANTITIES,
+    end_place,
+    quantity_words,
+)
 
-_UNIT_FAMILY = {
-    "p_flow": "power", "q_flow": "power", "p_injection": "power", "q_injection": "power",
-    "v_magnitude": "voltage", "i_magnitude": "current",
-}
+_UNIT_FAMILY = {q: QUANTITIES[q]["family"] for q in (*BRANCH_END_QUANTITIES, *BUS_QUANTITIES)}
 
 
 @dataclass(frozen=True)
@@ -60,8 +63,7 @@ def substation_quantities(network: Network, substation: str) -> list[Quantity]:
     out: list[Quantity] = []
     entries = index.get(str(substation), [])
     for kind, element, end, place in sorted(entries, key=lambda e: e[0] == "bus"):
-        names = ("p_flow", "q_flow", "i_magnitude") if kind == "branch" else \
-            ("p_injection", "q_injection", "v_magnitude")
+        names = BRANCH_END_QUANTITIES if kind == "branch" else BUS_QUANTITIES
         out += [Quantity(q, element, end, place) for q in names]
     return out
 

@@ -32,7 +32,14 @@ from calibra.estimation.observability import (
     ObservabilityStructure,
     structure_for,
 )
-from calibra.model.points import ENDS, end_place, quantity_words
+from calibra.model.points import (
+    ENDS,
+    FLOW_QUANTITIES,
+    INJECTION_QUANTITIES,
+    STATUS_QUANTITY,
+    end_place,
+    quantity_words,
+)
 from calibra.model.site import Site
 
 #: Suggestions must lift Sᵢᵢ to at least this to count.
@@ -41,7 +48,7 @@ MIN_USEFUL_S = 0.05
 
 def _metered(site: Site) -> set[Quantity]:
     pts = site.points
-    analog = pts[pts["quantity"] != "branch_status"]
+    analog = pts[pts["quantity"] != STATUS_QUANTITY]
     ends = analog["end"].astype(str).str.strip().str.lower()
     return {Quantity(str(q), str(e), end if end in ("from", "to") else "")
             for q, e, end in zip(analog["quantity"], analog["element"], ends, strict=True)}
@@ -144,9 +151,9 @@ def _meter_text(net, kind: str, element: int, end: int = 0) -> str:
     if kind == "flow":
         branch = str(net.branches.index[element])
         place = end_place(buses, net.branches, branch, ENDS[end])
-        return f"a meter of the {quantity_words(('p_flow', 'q_flow'), branch, place)}"
+        return f"a meter of the {quantity_words(FLOW_QUANTITIES, branch, place)}"
     bus = str(buses.index[element])
-    what = ("p_injection", "q_injection") if kind == "injection" else "v_magnitude"
+    what = INJECTION_QUANTITIES if kind == "injection" else "v_magnitude"
     return (f"a meter of the {quantity_words(what, bus)} "
             f"(substation {buses.at[bus, 'substation']})")
 

@@ -12,6 +12,7 @@ from calibra.diagnosis.causes import known_scale_cause
 from calibra.diagnosis.classify import ClassifySettings, PointDiagnosis, PointSeries, classify_point
 from calibra.diagnosis.describe import build_findings
 from calibra.diagnosis.evidence import EvidenceSettings, WeekEvidence, gather_evidence
+from calibra.diagnosis.findings import NO_FAULT, DiagnosisKind
 from calibra.diagnosis.mismap import (
     QuantityEvaluator,
     best_match,
@@ -20,11 +21,12 @@ from calibra.diagnosis.mismap import (
     unit_family,
 )
 from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
+from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.engine import PeriodEngine
 from calibra.estimation.period import PreparedPeriod, prepare_period
 from calibra.estimation.runtime import fork_map
-from calibra.model.points import analog_points
+from calibra.model.points import analog_points, class_limit
 from calibra.model.site import Site
 from calibra.progress import Progress
 
@@ -48,7 +50,7 @@ class ReviewResult:
     evidence: WeekEvidence
     diagnoses: dict[str, PointDiagnosis]
     findings: list
-    summary: dict
+    summary: ReviewSummary
 
 
 def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSeries:
@@ -56,7 +58,7 @@ def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSe
     tag = model.tags[i]
     pt = site.points.loc[tag]
     sigma = float(model.sigma_pu[i] / model.to_pu[i])
-    limit = float(pt["accuracy_pct"]) / 100.0 * float(pt["full_scale"])
+    limit = class_limit(pt)
     sig_y = 0.0
     rep = ev.representative
     if rep is not None and np.isfinite(rep.sigma_implied[i]):
@@ -99,14 +101,15 @@ def _propagate_device(site: Site, ev: WeekEvidence, diagnoses: dict) -> None:
     tags = ev.model.tags
     for device, group in pts.loc[tags].groupby("device"):
         found = [diagnoses[t] for t in group.index
-                 if diagnoses[t].kind in ("reversed", "scale") and diagnoses[t].confidence >= 0.9]
+                 if diagnoses[t].kind in (DiagnosisKind.REVERSED, DiagnosisKind.SCALE)
+                 and diagnoses[t].confidence >= 0.9]
         if not found:
             continue
         k = float(np.median([d.params["factor"] for d in found]))
-        kind = "reversed" if k < 0 else "scale"
+        kind = DiagnosisKind.REVERSED if k < 0 else DiagnosisKind.SCALE
         for tag in group.index:
             d = diagnoses[tag]
-            if d.kind != "healthy":
+            if d.kind != DiagnosisKind.HEALTHY:
                 continue
             i = tags.get_loc(tag)
             z, y = ev.measured[:, i].astype(float), ev.implied[:, i].astype(float)
@@ -126,7 +129,7 @@ def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
     """Check suspicious points against the other quantities of their substation."""
     pts = site.points
     suspicious = [t for t, d in diagnoses.items()
-                  if d.kind not in ("healthy", "insufficient")]
+                  if d.kind not in NO_FAULT]
     out: dict[str, dict] = {}
     by_sub: dict[str, list[str]] = {}
     bus_sub = site.network.buses["substation"].astype(str).to_numpy()
@@ -155,7 +158,8 @@ def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
             # Reading another quantity needs no fitted parameter: it wins when it explains the
             # point about as well as the best fault model, at noise level, where the point's
             # own quantity does not.
-            standard = (d.kind == "reversed" and abs(d.params.get("factor", 0) + 1) <= 0.1)
+            standard = (d.kind == DiagnosisKind.REVERSED
+                        and abs(d.params.get("factor", 0) + 1) <= 0.1)
             clearly_better = match.loss < 0.5 * rival
             if ((clearly_better or (not standard and match.loss <= 1.1 * rival))
                     and match.loss < 2.0 * sigma and d.loss_healthy > 3.0 * match.loss):
@@ -190,7 +194,7 @@ def review_site(
     ev = gather_evidence(period, st.evidence, progress, engine=engine)
     diagnoses = _classify_all(site, ev, st.classify)
     for _ in range(st.max_passes - 1):
-        faulty = np.array([diagnoses[str(t)].kind not in ("healthy", "insufficient")
+        faulty = np.array([diagnoses[str(t)].kind not in NO_FAULT
                            for t in ev.model.tags])
         extra = faulty & ~ev.set_aside
         if not extra.any():
@@ -208,7 +212,7 @@ def review_site(
         for i, advice in suggest_meters(site, ev, np.flatnonzero(rep.critical)).items():
             unverifiable[str(ev.model.tags[i])] = advice
     for tag, d in diagnoses.items():
-        if d.kind == "insufficient" and tag not in unverifiable:
+        if d.kind == DiagnosisKind.INSUFFICIENT and tag not in unverifiable:
             i = ev.model.tags.get_loc(tag)
             measured = int(np.isfinite(ev.measured[:, i]).sum())
             need = st.classify.min_snapshots
@@ -220,18 +224,18 @@ def review_site(
     findings = build_findings(site, ev, diagnoses, mismaps, unverifiable)
     outcomes = ev.period.outcomes
     conv = outcomes["converged"].astype(bool)
-    summary = {
-        "snapshots": int(len(outcomes)),
-        "converged": int(conv.sum()),
-        "chi2_failed": int((~outcomes.loc[conv, "chi2_passed"].astype(bool)).sum()),
+    summary = ReviewSummary(
+        snapshots=int(len(outcomes)),
+        converged=int(conv.sum()),
+        chi2_failed=int((~outcomes.loc[conv, "chi2_passed"].astype(bool)).sum()),
         **observability_counts(outcomes),
-        "estimation_failures": sorted(set(
+        estimation_failures=sorted(set(
             outcomes.loc[outcomes["method"] == "failed", "reason"].astype(str))),
-        "points": int(len(analog_points(site.points))),
-        "set_aside": int(ev.set_aside.sum()),
-        "findings": len(findings),
-        "status_conflicts": [c.describe(site.timezone) for c in ev.status_conflicts],
-        "rounds": ev.rounds,
-    }
+        points=int(len(analog_points(site.points))),
+        set_aside=int(ev.set_aside.sum()),
+        findings=len(findings),
+        status_conflicts=[c.describe(site.timezone) for c in ev.status_conflicts],
+        rounds=ev.rounds,
+    )
     return ReviewResult(site.name, period.index[0], period.index[-1], ev, diagnoses, findings,
                         summary)

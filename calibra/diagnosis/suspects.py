@@ -3,11 +3,13 @@
 With several gross errors, or one large enough to bend the AC estimate, the largest normalized
 residual can sit on an innocent neighbour (Mili, Phaniraj & Rousseeuw, IEEE TPWRS 6(2), 1991:
 normalized-residual tests break down with interacting bad data). So suspects are tested by
-elimination: for the strongest suspect and the strongest of its correlated neighbours, each
-candidate *unit* — the point alone, or every power channel of its device together — is left
-out of a few probe snapshots, which are estimated again; the unit whose removal lowers the
-objective J(x̂) most is set aside. Neighbours whose excess the chosen units can explain wait
-for the next round.
+elimination: for the strongest suspect and up to three of its correlated neighbours, each
+candidate *unit* — the point alone, the power channels of its device together (a reversed CT
+turns P and Q), or all channels its CT feeds together (a wrong CT ratio scales P, Q and |I|) —
+is left out of a few probe snapshots, which are estimated again; the unit whose removal lowers
+the objective J(x̂) most is set aside (a smaller unit wins a near-tie). Then the next strongest
+suspect not yet explained is taken the same way; suspects whose excess the units set aside can
+explain (|ρ| × statistic) wait for the next round.
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""Estimate the snapshots of a loaded site: telemetry to per unit, topology from status points."""
+"""Branch topology per snapshot from a site's status points, cross-checked with its flow meters."""
 
 from __future__ import annotations
 
@@ -7,12 +7,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.estimation.batch import BatchEstimate, estimate_many
-from calibra.estimation.model import MeasurementModel
-from calibra.estimation.wls import Estimator, EstimatorOptions
-from calibra.model.points import status_points
+from calibra.model.points import FLOW_QUANTITIES, class_limit, status_points
 from calibra.model.site import Site
-from calibra.progress import Progress
 
 
 def topology_per_snapshot(site: Site, snapshots: pd.DataFrame | None = None) -> np.ndarray:
@@ -69,7 +65,7 @@ def checked_topology(site: Site, snapshots: pd.DataFrame | None = None,
     status = topology_per_snapshot(site, snaps)
     net = site.network
     pts = site.points
-    flows = pts[pts["quantity"].isin(("p_flow", "q_flow")) & pts.index.isin(snaps.columns)]
+    flows = pts[pts["quantity"].isin(FLOW_QUANTITIES) & pts.index.isin(snaps.columns)]
     conflicts: list[StatusConflict] = []
     stat = status_points(pts)
     for tag, row in stat[stat.index.isin(snaps.columns)].iterrows():
@@ -81,8 +77,7 @@ def checked_topology(site: Site, snapshots: pd.DataFrame | None = None,
         meters = flows[flows["element"].astype(str) == branch]
         if meters.empty:
             continue
-        limit = (meters["accuracy_pct"].astype(float) / 100
-                 * meters["full_scale"].astype(float)).to_numpy()
+        limit = class_limit(meters).to_numpy()
         values = np.abs(snaps[meters.index].to_numpy(float))
         flowing = np.nan_to_num(values > factor * limit[None, :]).any(axis=1)
         clash = says_open & flowing
@@ -94,51 +89,3 @@ def checked_topology(site: Site, snapshots: pd.DataFrame | None = None,
                                         snaps.index[idx[-1]], int(idx.size),
                                         tuple(str(t) for t in meters.index)))
     return status, conflicts
-
-
-@dataclass
-class SiteEstimate:
-    """Estimates of a site's snapshots with the measurement model they were made with."""
-
-    model: MeasurementModel
-    batch: BatchEstimate
-    in_service: np.ndarray
-
-    def summary(self) -> dict:
-        out = self.batch.outcomes
-        conv = out["converged"]
-        res = {
-            "snapshots": len(out),
-            "converged": int(conv.sum()),
-            "not_converged": int((~conv).sum()),
-            "not_fully_observable": int((~out["observable"]).sum()),
-            "mean_iterations": float(out.loc[conv, "iterations"].mean()) if conv.any() else np.nan,
-        }
-        if "chi2_passed" in out:
-            passed = out.loc[conv, "chi2_passed"].astype(bool)
-            res["chi2_failed"] = int((~passed).sum())
-        reasons = out.loc[~conv, "reason"].value_counts()
-        res["failure_reasons"] = reasons.to_dict()
-        return res
-
-
-def estimate_site(
-    site: Site,
-    options: EstimatorOptions | None = None,
-    start: pd.Timestamp | None = None,
-    end: pd.Timestamp | None = None,
-    analyse: bool = True,
-    confidence: float = 0.99,
-    progress: Progress | None = None,
-) -> SiteEstimate:
-    """Estimate every snapshot of ``site`` between ``start`` and ``end`` (inclusive)."""
-    snaps = site.snapshots
-    if start is not None or end is not None:
-        snaps = snaps.loc[start:end]
-    model = MeasurementModel.from_points(site.network, site.points)
-    values = snaps.reindex(columns=model.tags).to_numpy(float)
-    z = model.to_per_unit(values)
-    in_service = topology_per_snapshot(site, snaps)
-    batch = estimate_many(Estimator(model, options), z, in_service, snaps.index, analyse,
-                          confidence, progress)
-    return SiteEstimate(model, batch, in_service)

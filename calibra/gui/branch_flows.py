@@ -7,6 +7,7 @@ import numpy as np
 
 from calibra.diagnosis.mismap import Quantity, QuantityEvaluator
 from calibra.diagnosis.review import ReviewResult
+from calibra.model.points import FLOW_QUANTITIES
 from calibra.model.site import Site
 from calibra.model.times import for_people
 
@@ -24,7 +25,7 @@ def branch_flow_texts(site: Site, result: ReviewResult, branches: list[str]) -> 
         return {}
     k = int(np.flatnonzero(covered)[-1])
     quantities = [Quantity(q, b, end) for b in known for end in ("from", "to")
-                  for q in ("p_flow", "q_flow")]
+                  for q in FLOW_QUANTITIES]
     values = QuantityEvaluator(net, quantities).evaluate(
         ev.period.vm[k:k + 1], ev.period.va[k:k + 1], ev.in_service[k:k + 1])[0]
     when = for_people(ev.index[k], site.timezone, weekday=True)

@@ -14,9 +14,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from calibra.model.points import BRANCH_END_QUANTITIES, BUS_QUANTITIES
 from calibra.model.site import Site
-
-_BRANCH_END = ("p_flow", "q_flow", "i_magnitude")
 
 
 @dataclass
@@ -235,7 +234,7 @@ def _meters(site: Site, diagram: Diagram, lines: dict[str, BranchLine]) -> list[
     for tag, pt in pts[drawn].iterrows():
         q = str(pt["quantity"])
         element, end = str(pt["element"]), str(pt.get("end", "") or "")
-        if q in _BRANCH_END and element in lines and end in ("from", "to"):
+        if q in BRANCH_END_QUANTITIES and element in lines and end in ("from", "to"):
             line = lines[element]
             bus_id = net.branches.at[element, f"{end}_bus"]
             here, there = (line.a, line.b) if end == "from" else (line.b, line.a)
@@ -243,7 +242,7 @@ def _meters(site: Site, diagram: Diagram, lines: dict[str, BranchLine]) -> list[
             xy = p + END_SHARE * (r - p) + lane_offset(pos[line.a], pos[line.b], line.lane)
             key = (str(pt["device"]), element, end)
             bus = pos_of[bus_id]
-        elif q in ("p_injection", "q_injection", "v_magnitude") and element in pos_of:
+        elif q in BUS_QUANTITIES and element in pos_of:
             bus = pos_of[element]
             xy = pos[bus] + (np.array([0.0, 0.055]) if q == "v_magnitude"
                              else np.array([0.0, -0.055]))
@@ -253,6 +252,6 @@ def _meters(site: Site, diagram: Diagram, lines: dict[str, BranchLine]) -> list[
         mark = marks.get(key)
         if mark is None:
             mark = marks[key] = MeterMark(str(pt["device"]), [], bus, float(xy[0]), float(xy[1]),
-                                          element if q in _BRANCH_END else "", end)
+                                          element if q in BRANCH_END_QUANTITIES else "", end)
         mark.tags.append(str(tag))
     return list(marks.values())

@@ -12,6 +12,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from calibra.ledger.states import AWAITING_ACTION_STATES
+
 #: Columns the list needs (a subset of findings.csv plus ``state`` and ``in_review``).
 LIST_COLUMNS = ["finding_id", "tag", "device", "substation", "finding", "confidence", "state",
                 "factor", "offset", "drift_per_day", "evidence", "in_review", "reopened"]
@@ -187,7 +189,7 @@ class FindingsView:
         table = self.table()
         if table.empty:
             return set()
-        open_ = table["state"].isin(("new", "confirmed")) & table["in_review"]
+        open_ = table["state"].isin(AWAITING_ACTION_STATES) & table["in_review"]
         return set(table.loc[open_, "tag"])
 
 
@@ -199,14 +201,6 @@ def neighbour(ids: list[str], current: str | None, step: int) -> str | None:
     if current not in ids:
         return ids[0] if step > 0 else ids[-1]
     return ids[(ids.index(current) + step) % len(ids)]
-
-
-def summary_counts(table: pd.DataFrame) -> dict[str, int]:
-    """Findings per kind, for the list's header line."""
-    if table.empty:
-        return {}
-    counts = table["finding"].value_counts()
-    return {str(k): int(v) for k, v in counts.items() if int(v) > 0 and k}
 
 
 def confidence_text(value: float) -> str:

@@ -14,12 +14,13 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from calibra.diagnosis.findings import DiagnosisKind, FindingKind
 from calibra.diagnosis.mismap import QuantityEvaluator, substation_quantities
 from calibra.diagnosis.review import ReviewResult
 from calibra.ledger import Correction
+from calibra.model.points import BRANCH_QUANTITIES, class_limit
 from calibra.model.site import Site
 
-_BRANCH_QUANTITIES = ("p_flow", "q_flow", "i_magnitude", "branch_status")
 MAX_SCATTER = 3000  #: scatter points drawn at most (an even subsample beyond)
 
 
@@ -107,7 +108,7 @@ def point_trace(site: Site, result: ReviewResult, tag: str,
         if changed.any():
             raw = received
     out = np.zeros(len(ev.index), bool)
-    if str(pt["quantity"]) in _BRANCH_QUANTITIES:
+    if str(pt["quantity"]) in BRANCH_QUANTITIES:
         branches = site.network.branches.index
         element = str(pt["element"])
         if element in branches:
@@ -118,7 +119,7 @@ def point_trace(site: Site, result: ReviewResult, tag: str,
     buses = ev.model.functions.buses_of(i)
     covered = np.isfinite(ev.period.vm[:, buses]).all(axis=1)
     estimated = outcomes["converged"].astype(bool).to_numpy() & covered
-    limit = _class_limit(pt)
+    limit = class_limit(pt)
     trace = PointTrace(
         tag=str(tag), unit=str(pt["unit"]), x=wall_clock_seconds(ev.index, site.timezone),
         measured=measured, implied=implied, raw=raw, band=limit,
@@ -137,7 +138,7 @@ def _add_followed(site: Site, result: ReviewResult, trace: PointTrace, i: int) -
     """For a mismapped point, the estimate of the quantity it reads instead (with the sign
     it follows), evaluated from the period's estimated states."""
     matched = next((f.matched for f in result.findings
-                    if f.tag == trace.tag and f.finding == "mismapped" and f.matched), "")
+                    if f.tag == trace.tag and f.finding == FindingKind.MISMAPPED and f.matched), "")
     if not matched:
         return
     ev = result.evidence
@@ -157,32 +158,25 @@ def _add_followed(site: Site, result: ReviewResult, trace: PointTrace, i: int) -
     trace.followed_label = ("−" if sign < 0 else "") + matched
 
 
-def _class_limit(pt: pd.Series) -> float:
-    acc, full = pt.get("accuracy_pct"), pt.get("full_scale")
-    if acc is None or full is None or pd.isna(acc) or pd.isna(full):
-        return float("nan")
-    return float(acc) / 100.0 * float(full)
-
-
-def _add_model(trace: PointTrace, kind: str, params: dict, t_days: np.ndarray) -> None:
+def _add_model(trace: PointTrace, kind: DiagnosisKind, params: dict, t_days: np.ndarray) -> None:
     """The fitted fault model as a scatter line and as an error over time."""
     trace.kind = kind
     y = trace.implied
-    if kind in ("reversed", "scale") and "factor" in params:
+    if kind in (DiagnosisKind.REVERSED, DiagnosisKind.SCALE) and "factor" in params:
         k = float(params["factor"])
         trace.slope, trace.intercept = k, 0.0
         trace.model_residual = (k - 1.0) * y
         trace.model_label = f"fit: measured = {k:.3f} × implied"
-    elif kind == "offset" and "offset" in params:
+    elif kind == DiagnosisKind.OFFSET and "offset" in params:
         c = float(params["offset"])
         trace.slope, trace.intercept = 1.0, c
         trace.model_residual = np.full_like(y, c)
         trace.model_label = f"fit: measured = implied {c:+.3g} {trace.unit}"
-    elif kind == "drift" and "drift_per_day" in params:
+    elif kind == DiagnosisKind.DRIFT and "drift_per_day" in params:
         a, t0 = float(params["drift_per_day"]), float(params["onset_days"])
         trace.model_residual = a * np.maximum(t_days - t0, 0.0)
         trace.model_label = f"fit: drift {a:+.3g} {trace.unit}/day"
-    elif kind == "stuck" and "value" in params:
+    elif kind == DiagnosisKind.STUCK and "value" in params:
         start = float(params["onset_days"])
         until = params.get("until_days")
         stop = float(until) if until is not None else float(t_days[-1]) if t_days.size else start

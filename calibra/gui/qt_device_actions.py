@@ -8,15 +8,13 @@ from typing import TYPE_CHECKING
 import pandas as pd
 from PySide6.QtGui import QAction, QKeySequence
 
+from calibra.diagnosis.findings import CORRECTABLE_KINDS, FindingKind
 from calibra.ledger import LedgerError
+from calibra.ledger.states import AWAITING_ACTION_STATES, FindingState
 
 if TYPE_CHECKING:
     from calibra.gui.qt_main import MainWindow
 
-#: Finding kinds a software correction can undo.
-CORRECTABLE = ("reversed", "scale", "offset")
-#: States still waiting for a decision (a correction is not asked twice).
-UNDECIDED = ("new", "confirmed")
 
 
 class DeviceActions:
@@ -44,13 +42,13 @@ class DeviceActions:
         table = state.view.table()
         if table.empty:
             return table
-        return table[(table["device"] == device) & table["state"].isin(UNDECIDED)
+        return table[(table["device"] == device) & table["state"].isin(AWAITING_ACTION_STATES)
                      & table["in_review"]]
 
     def correct_device(self) -> list[str]:
         """Correct each point of the device once, by its first correctable finding."""
         rows = self.device_findings()
-        rows = rows[rows["finding"].isin(CORRECTABLE)] if len(rows) else rows
+        rows = rows[rows["finding"].isin(CORRECTABLE_KINDS)] if len(rows) else rows
         if rows.empty:
             self.w.say("The selected point's device has no open finding that a software "
                        "correction can undo.")
@@ -59,13 +57,13 @@ class DeviceActions:
         try:
             for tag, group in rows.groupby("tag", sort=True):
                 r = group.iloc[0]
-                if r["finding"] == "reversed":
+                if r["finding"] == FindingKind.REVERSED:
                     led.mark_reversed(tag)
                     done.append(f"{tag} sign reversed")
-                elif r["finding"] == "scale" and pd.notna(r["factor"]):
+                elif r["finding"] == FindingKind.SCALE and pd.notna(r["factor"]):
                     led.apply_scale(tag, float(r["factor"]))
                     done.append(f"{tag} × {float(r['factor']):g}")
-                elif r["finding"] == "offset" and pd.notna(r["offset"]):
+                elif r["finding"] == FindingKind.OFFSET and pd.notna(r["offset"]):
                     led.apply_offset(tag, float(r["offset"]))
                     done.append(f"{tag} offset {float(r['offset']):+g}")
         except (LedgerError, ValueError) as exc:
@@ -78,7 +76,7 @@ class DeviceActions:
     def confirm_device(self) -> list[str]:
         """Confirm each new finding of the device."""
         rows = self.device_findings()
-        rows = rows[rows["state"] == "new"] if len(rows) else rows
+        rows = rows[rows["state"] == FindingState.NEW] if len(rows) else rows
         if rows.empty:
             self.w.say("The selected point's device has no new finding to confirm.")
             return []

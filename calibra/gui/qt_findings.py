@@ -66,11 +66,11 @@ class FindingsPanel(QWidget):
         self.kind = QComboBox(self)
         self.kind.addItem("every kind", "")
         for kind in FINDING_KINDS:
-            self.kind.addItem(kind, kind)
+            self.kind.addItem(kind.value, kind.value)
         self.state = QComboBox(self)
         self.state.addItem("every state", "")
         for state in STATES:
-            self.state.addItem(state, state)
+            self.state.addItem(state.value, state.value)
         self.confidence = QDoubleSpinBox(self)
         self.confidence.setRange(0.0, 1.0)
         self.confidence.setSingleStep(0.05)

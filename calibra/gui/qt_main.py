@@ -318,7 +318,7 @@ class MainWindow(QMainWindow):
         before = self.state.compared_figures()[0]
         s = run.result.summary
         text = (f"Review done in {run.seconds:.1f} s: {len(run.findings)} finding(s), "
-                f"{s['chi2_failed']:,} chi-square failure(s) of {s['converged']:,} "
+                f"{s.chi2_failed:,} chi-square failure(s) of {s.converged:,} "
                 f"estimated snapshots")
         if before is not None:
             after = self.figures[-1]

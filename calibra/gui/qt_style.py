@@ -8,6 +8,8 @@ from pathlib import Path
 from PySide6.QtCore import Qt
 from PySide6.QtGui import QColor, QIcon, QPainter, QPixmap
 
+from calibra.ledger.states import FindingState
+
 #: The palette (hex RGB or RGBA), chosen for calibra.
 COLOURS = {
     "plot_bg": "#fbfbf8",
@@ -39,12 +41,12 @@ SUBSTATION_FILLS = ("#e6efe9", "#ece7f3", "#f3ede2", "#e3edf3", "#f2e6ea", "#edf
 
 #: Ledger states and the colour of their mark in the list.
 STATE_COLOURS = {
-    "new": "#e08a1e",
-    "confirmed": "#a4286a",
-    "corrected": "#176b87",
-    "repaired": "#6b5ca5",
-    "verified": "#4f8f3a",
-    "dismissed": "#9aa0a6",
+    FindingState.NEW: "#e08a1e",
+    FindingState.CONFIRMED: "#a4286a",
+    FindingState.CORRECTED: "#176b87",
+    FindingState.REPAIRED: "#6b5ca5",
+    FindingState.VERIFIED: "#4f8f3a",
+    FindingState.DISMISSED: "#9aa0a6",
 }
 
 STYLE_SHEET = """

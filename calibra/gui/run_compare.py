@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from calibra.ledger.states import AWAITING_ACTION_STATES
 from calibra.review_run import ReviewRun
 
 
@@ -27,14 +28,14 @@ class RunFigures:
 def run_figures(run: ReviewRun) -> RunFigures:
     """Figures of one review run."""
     s = run.result.summary
-    first = s["rounds"][0] if s.get("rounds") else None
+    first = s.rounds[0] if s.rounds else None
     table = run.findings
-    open_ = int(table["state"].isin(("new", "confirmed")).sum()) if len(table) else 0
+    open_ = int(table["state"].isin(AWAITING_ACTION_STATES).sum()) if len(table) else 0
     return RunFigures(
-        snapshots=int(s["snapshots"]), converged=int(s["converged"]),
+        snapshots=int(s.snapshots), converged=int(s.converged),
         chi2_failed_all_in=None if first is None else int(first["chi2_failed"]),
         sampled=None if first is None else int(first["snapshots"]),
-        chi2_failed=int(s["chi2_failed"]), set_aside=int(s["set_aside"]),
+        chi2_failed=int(s.chi2_failed), set_aside=int(s.set_aside),
         findings=len(table), open_findings=open_, corrections=len(run.corrections),
         seconds=float(run.seconds), finding_ids=set(table["finding_id"]) if len(table) else set(),
     )

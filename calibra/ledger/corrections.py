@@ -21,8 +21,10 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-#: Kinds of correction, as recorded in the ledger.
-CORRECTION_KINDS = ("reversed", "scale", "offset")
+from calibra.diagnosis.findings import CORRECTABLE_KINDS
+
+#: Kinds of correction, as recorded in the ledger: the finding kinds a correction undoes.
+CORRECTION_KINDS = CORRECTABLE_KINDS
 
 
 @dataclass(frozen=True)

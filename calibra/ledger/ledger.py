@@ -30,6 +30,7 @@ from calibra.ledger.states import (
     NOT_UNDOABLE,
     STATES,
     Action,
+    FindingState,
     FindingStatus,
     changed_materially,
     next_state,
@@ -121,7 +122,7 @@ class Ledger:
                  calibra.__version__)).lastrowid
             known = {r["finding_id"]: r["state"] for r in conn.execute(
                 "SELECT finding_id, state FROM findings")}
-            statuses = self._statuses(conn, state_in=("repaired", "dismissed"))
+            statuses = self._statuses(conn, (FindingState.REPAIRED, FindingState.DISMISSED))
             judged = {str(t): max(start, to_utc(v, "judged_from"))
                       for t, v in (judged_from or {}).items()}
             unjudged = {str(t) for t in not_judged}
@@ -135,7 +136,8 @@ class Ledger:
                                      review_id)
             seen = set(ids)
             for fid, status in statuses.items():
-                if fid in seen or status.state != "repaired" or status.repaired_at >= end:
+                if (fid in seen or status.state != FindingState.REPAIRED
+                        or status.repaired_at >= end):
                     continue
                 tag = conn.execute("SELECT tag FROM findings WHERE finding_id = ?",
                                    (fid,)).fetchone()["tag"]
@@ -161,8 +163,9 @@ class Ledger:
         conn.execute(
             'INSERT INTO findings (finding_id, tag, kind, device, substation, factor, "offset", '
             "drift_per_day, onset, confidence, evidence, extra, first_seen_review, "
-            "last_seen_review, state) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 'new')",
-            (row["finding_id"], row["tag"], row["finding"], *values, review_id, review_id))
+            "last_seen_review, state) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (row["finding_id"], row["tag"], row["finding"], *values, review_id, review_id,
+             FindingState.NEW))
         self._append(conn, "found", row["tag"], REVIEW_USER, row["finding_id"],
                      {"review": review_id})
 
@@ -170,15 +173,15 @@ class Ledger:
                     review_id: int) -> None:
         """Reopen a dismissed or repaired finding that this review finds again."""
         reason = None
-        if status.state == "dismissed" and changed_materially(status.dismissed_values or {},
-                                                              row):
+        dismissed = status.dismissed_values or {}
+        if status.state == FindingState.DISMISSED and changed_materially(dismissed, row):
             reason = "fitted values changed materially since the dismissal"
-        elif status.state == "repaired" and start >= status.repaired_at:
+        elif status.state == FindingState.REPAIRED and start >= status.repaired_at:
             reason = "the repair did not clear it: found again in the data after the repair"
         if reason:
             values = {k: row[k] for k in FITTED_VALUES}
             payload = {"review": review_id, "reason": reason, "values": values}
-            if status.state == "repaired":
+            if status.state == FindingState.REPAIRED:
                 payload["repaired_at"] = to_text(status.repaired_at, "repaired_at")
             self._append(conn, "reopen", row["tag"], REVIEW_USER, row["finding_id"], payload)
 

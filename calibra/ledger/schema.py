@@ -11,12 +11,14 @@ import sqlite3
 from collections.abc import Sequence
 from pathlib import Path
 
+from calibra.ledger.states import STATES
+
 #: Marks a SQLite file as a calibra ledger (``PRAGMA application_id``; "CLBR" in ASCII).
 APPLICATION_ID = 0x434C4252
 LEDGER_FILE_NAME = "calibra-ledger.sqlite"
 BUSY_TIMEOUT_MS = 10_000
 
-_STATES_SQL = "'new', 'confirmed', 'corrected', 'repaired', 'verified', 'dismissed'"
+_STATES_SQL = ", ".join(f"'{state}'" for state in STATES)
 
 V1: tuple[str, ...] = (
     f"PRAGMA application_id = {APPLICATION_ID}",

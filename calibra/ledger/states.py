@@ -22,37 +22,57 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
+from enum import StrEnum
 
 import pandas as pd
 
+from calibra.diagnosis.findings import FindingKind
 from calibra.ledger._time import from_text
 from calibra.ledger.corrections import Correction
 
-STATES = ("new", "confirmed", "corrected", "repaired", "verified", "dismissed")
+
+class FindingState(StrEnum):
+    """A finding's state in the ledger (members equal the strings the ledger file stores)."""
+
+    NEW = "new"
+    CONFIRMED = "confirmed"
+    CORRECTED = "corrected"
+    REPAIRED = "repaired"
+    VERIFIED = "verified"
+    DISMISSED = "dismissed"
+
+
+#: Every state, in the order of the workflow (the lists sort by it).
+STATES = tuple(FindingState)
 
 #: Action kinds that act on every finding of a tag (and on the tag's corrections).
-CORRECTION_ACTIONS = {"mark_reversed": "reversed", "apply_scale": "scale", "apply_offset": "offset"}
+CORRECTION_ACTIONS = {"mark_reversed": FindingKind.REVERSED, "apply_scale": FindingKind.SCALE,
+                      "apply_offset": FindingKind.OFFSET}
 TAG_ACTIONS = (*CORRECTION_ACTIONS, "mark_repaired")
 #: Actions written by the review itself (user "calibra").
 AUTOMATIC_ACTIONS = ("found", "verify", "reopen")
-ACTION_KINDS = ("confirm", "dismiss", "note", "undo", *TAG_ACTIONS, *AUTOMATIC_ACTIONS)
 #: Actions an undo may not target: the first sighting of a finding, and undos themselves.
 NOT_UNDOABLE = ("found", "undo")
 
-#: States that still call for work: found, agreed, or corrected in software only (the field fix
-#: is still due). Repaired findings wait for verification; dismissed and verified are closed.
-OPEN_STATES = ("new", "confirmed", "corrected")
+#: Open findings: found, agreed, or corrected in software only — the field fix is still due
+#: (the work orders, the ledger's list). Repaired findings wait for verification; dismissed
+#: and verified are closed.
+OPEN_STATES = (FindingState.NEW, FindingState.CONFIRMED, FindingState.CORRECTED)
+#: Open findings the engineer has not acted on yet: neither corrected in software nor
+#: repaired (what the desktop application highlights and offers to correct).
+AWAITING_ACTION_STATES = (FindingState.NEW, FindingState.CONFIRMED)
 _OPEN = OPEN_STATES
 #: Actions after which a reopened finding no longer carries the reopen reason.
 _CLEARS_REOPENED = ("mark_repaired", "dismiss", "verify")
-_TRANSITIONS: dict[str, dict[str | None, str]] = {
-    "found": {None: "new"},
-    "confirm": {"new": "confirmed", "dismissed": "confirmed"},
-    **{kind: {s: "corrected" for s in _OPEN} for kind in CORRECTION_ACTIONS},
-    "mark_repaired": {s: "repaired" for s in _OPEN},
-    "dismiss": {s: "dismissed" for s in STATES if s != "dismissed"},
-    "verify": {"repaired": "verified"},
-    "reopen": {"dismissed": "new", "repaired": "new"},
+_TRANSITIONS: dict[str, dict[str | None, FindingState]] = {
+    "found": {None: FindingState.NEW},
+    "confirm": {FindingState.NEW: FindingState.CONFIRMED,
+                FindingState.DISMISSED: FindingState.CONFIRMED},
+    **{kind: {s: FindingState.CORRECTED for s in _OPEN} for kind in CORRECTION_ACTIONS},
+    "mark_repaired": {s: FindingState.REPAIRED for s in _OPEN},
+    "dismiss": {s: FindingState.DISMISSED for s in STATES if s != FindingState.DISMISSED},
+    "verify": {FindingState.REPAIRED: FindingState.VERIFIED},
+    "reopen": {FindingState.DISMISSED: FindingState.NEW, FindingState.REPAIRED: FindingState.NEW},
     "note": {s: s for s in STATES},
 }
 
@@ -62,7 +82,7 @@ MATERIAL_CHANGE = 0.2
 FITTED_VALUES = ("factor", "offset", "drift_per_day")
 
 
-def next_state(state: str | None, kind: str) -> str | None:
+def next_state(state: str | None, kind: str) -> FindingState | None:
     """State after an action of ``kind``; None when the action does not apply in ``state``."""
     return _TRANSITIONS.get(kind, {}).get(state)
 
@@ -85,7 +105,7 @@ class Action:
 class FindingStatus:
     """What replaying the log says about one finding."""
 
-    state: str
+    state: FindingState
     repaired_at: pd.Timestamp | None = None
     dismissed_values: dict | None = None
     reopened: str = ""  #: why the review reopened it ("" when it was not, or no longer is)
@@ -106,7 +126,7 @@ def replay_tag(actions: Iterable[Action]) -> tuple[dict[str, FindingStatus], lis
         if a.kind == "undo" or a.id in undone:
             continue
         if a.kind == "found":
-            statuses.setdefault(a.finding_id, FindingStatus("new"))
+            statuses.setdefault(a.finding_id, FindingStatus(FindingState.NEW))
             continue
         targets = [a.finding_id] if a.finding_id is not None else list(statuses)
         for fid in targets:

@@ -8,24 +8,45 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-#: Quantities a point can measure, with the element it refers to and the units allowed.
+#: Quantities a point can measure: the element it refers to, whether it is measured at one
+#: end of a branch, the units allowed, and what it measures (the family a mismapped point is
+#: compared within). Every group of quantities below is derived from this table.
 QUANTITIES: dict[str, dict] = {
-    "p_flow": {"element": "branch", "end": True, "units": ("MW",)},
-    "q_flow": {"element": "branch", "end": True, "units": ("Mvar",)},
-    "i_magnitude": {"element": "branch", "end": True, "units": ("A",)},
-    "branch_status": {"element": "branch", "end": False, "units": ("status",)},
-    "p_injection": {"element": "bus", "end": False, "units": ("MW",)},
-    "q_injection": {"element": "bus", "end": False, "units": ("Mvar",)},
-    "v_magnitude": {"element": "bus", "end": False, "units": ("kV",)},
+    "p_flow": {"element": "branch", "end": True, "units": ("MW",), "family": "power"},
+    "q_flow": {"element": "branch", "end": True, "units": ("Mvar",), "family": "power"},
+    "i_magnitude": {"element": "branch", "end": True, "units": ("A",), "family": "current"},
+    "branch_status": {"element": "branch", "end": False, "units": ("status",),
+                      "family": "status"},
+    "p_injection": {"element": "bus", "end": False, "units": ("MW",), "family": "power"},
+    "q_injection": {"element": "bus", "end": False, "units": ("Mvar",), "family": "power"},
+    "v_magnitude": {"element": "bus", "end": False, "units": ("kV",), "family": "voltage"},
 }
+
+
+def _quantities(**spec) -> tuple[str, ...]:
+    """The quantities of :data:`QUANTITIES` whose entries have each value of ``spec`` (a
+    tuple value: any of its values), in the table's order."""
+    def fits(entry: dict) -> bool:
+        return all(entry[k] in v if isinstance(v, tuple) else entry[k] == v
+                   for k, v in spec.items())
+    return tuple(q for q, entry in QUANTITIES.items() if fits(entry))
+
+
 #: The status quantity: a breaker's open/closed state, not an analog measurement. Its points
 #: may leave ``device`` empty and ``full_scale``/``accuracy_pct`` empty (NaN).
 STATUS_QUANTITY = "branch_status"
 ANALOG_QUANTITIES = tuple(q for q in QUANTITIES if q != STATUS_QUANTITY)
-#: Quantities measured from a CT and a VT together (power), and those a CT (VT) feeds.
-POWER_QUANTITIES = ("p_flow", "q_flow", "p_injection", "q_injection")
-CT_QUANTITIES = (*POWER_QUANTITIES, "i_magnitude")
-VT_QUANTITIES = (*POWER_QUANTITIES, "v_magnitude")
+#: Quantities of a branch (status included), of one branch end (flows and current), of a bus.
+BRANCH_QUANTITIES = _quantities(element="branch")
+BRANCH_END_QUANTITIES = _quantities(element="branch", end=True)
+BUS_QUANTITIES = _quantities(element="bus")
+#: Quantities measured from a CT and a VT together (power): at a branch end (flows) and at a
+#: bus (injections); and those a CT (power, current) or a VT (power, voltage) feeds.
+POWER_QUANTITIES = _quantities(family="power")
+FLOW_QUANTITIES = _quantities(family="power", element="branch")
+INJECTION_QUANTITIES = _quantities(family="power", element="bus")
+CT_QUANTITIES = _quantities(family=("power", "current"))
+VT_QUANTITIES = _quantities(family=("power", "voltage"))
 ENDS = ("from", "to")
 
 #: Quantities as an engineer names them: the one vocabulary of every text a person reads
@@ -85,13 +106,28 @@ OPTIONAL_POINT_COLUMNS = ["rtu", "channel", "ct_ratio", "vt_ratio", "sigma", "no
 POINT_COLUMNS = REQUIRED_POINT_COLUMNS + OPTIONAL_POINT_COLUMNS
 
 
+def class_limit(points: pd.DataFrame | pd.Series) -> pd.Series | float:
+    """The accuracy-class limit in the point's own unit: ``accuracy_pct/100 × full_scale``.
+
+    For a point list, a Series by tag; for one point's row, a float (NaN where the point has
+    no class or full scale, as status points). Multiply by the point's per-unit factor for the
+    limit in per unit.
+    """
+    if isinstance(points, pd.DataFrame):
+        return points["accuracy_pct"].astype(float) / 100.0 * points["full_scale"].astype(float)
+    acc, full = points.get("accuracy_pct"), points.get("full_scale")
+    if acc is None or full is None or pd.isna(acc) or pd.isna(full):
+        return float("nan")
+    return float(acc) / 100.0 * float(full)
+
+
 def default_sigma(points: pd.DataFrame) -> pd.Series:
     """Standard deviation of each point in its own unit.
 
-    ``accuracy_pct/100 × full_scale / 3`` — the accuracy-class limit taken as 3σ
-    (common practice, no source); a ``sigma`` given in the point list overrides it.
+    The accuracy-class limit (:func:`class_limit`) taken as 3σ (common practice, no source);
+    a ``sigma`` given in the point list overrides it.
     """
-    sigma = points["accuracy_pct"].astype(float) / 100.0 * points["full_scale"].astype(float) / 3.0
+    sigma = class_limit(points) / 3.0
     if "sigma" in points:
         given = pd.to_numeric(points["sigma"], errors="coerce")
         sigma = given.where(given.notna() & (given > 0), sigma)

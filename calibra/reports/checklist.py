@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Mapping
 
-from calibra.diagnosis.findings import FINDING_KINDS
+from calibra.diagnosis.findings import FINDING_KINDS, FindingKind
 from calibra.model.points import (
     CT_QUANTITIES,
     VT_QUANTITIES,
@@ -21,14 +21,14 @@ from calibra.reports._values import fmt, number, text, timestamp
 
 #: How each kind of finding is named on the checklist.
 FINDING_LABELS = {
-    "reversed": "Reversed sign",
-    "scale": "Scale error",
-    "offset": "Constant offset",
-    "drift": "Drifting reading",
-    "stuck": "Reading frozen",
-    "noisy": "Erratic reading",
-    "mismapped": "Reads another quantity",
-    "unverifiable": "Cannot be checked remotely",
+    FindingKind.REVERSED: "Reversed sign",
+    FindingKind.SCALE: "Scale error",
+    FindingKind.OFFSET: "Constant offset",
+    FindingKind.DRIFT: "Drifting reading",
+    FindingKind.STUCK: "Reading frozen",
+    FindingKind.NOISY: "Erratic reading",
+    FindingKind.MISMAPPED: "Reads another quantity",
+    FindingKind.UNVERIFIABLE: "Cannot be checked remotely",
 }
 
 _SQRT3 = math.sqrt(3.0)
@@ -205,6 +205,7 @@ def _unverifiable(row: Mapping) -> list[str]:
 
 
 _CHECKS: dict[str, Callable[[Mapping], list[str]]] = {
-    "reversed": _reversed, "scale": _scale, "offset": _offset, "drift": _drift,
-    "stuck": _stuck, "noisy": _noisy, "mismapped": _mismapped, "unverifiable": _unverifiable,
+    FindingKind.REVERSED: _reversed, FindingKind.SCALE: _scale, FindingKind.OFFSET: _offset,
+    FindingKind.DRIFT: _drift, FindingKind.STUCK: _stuck, FindingKind.NOISY: _noisy,
+    FindingKind.MISMAPPED: _mismapped, FindingKind.UNVERIFIABLE: _unverifiable,
 }

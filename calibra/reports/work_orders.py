@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from calibra.ledger.states import OPEN_STATES
 from calibra.reports._values import number, text
 from calibra.reports.checklist import FINDING_LABELS, checklist_items
 from calibra.reports.spreadsheet import write_safe_csv
@@ -26,8 +27,6 @@ WORK_ORDER_COLUMNS = [
 REQUIRED_FINDING_COLUMNS = ["tag", "device", "substation", "finding", "evidence"]
 _FROM_POINTS = ["rtu", "channel", "ct_ratio", "vt_ratio", "quantity", "element", "end", "unit",
                 "accuracy_pct"]
-#: Ledger states that still call for field work (when the findings carry a ``state`` column).
-FIELD_WORK_STATES = ("new", "confirmed", "corrected")
 
 
 @dataclass
@@ -55,7 +54,7 @@ def needing_field_work(findings: pd.DataFrame) -> pd.DataFrame:
     ledger's ``state``, those new, confirmed or only corrected in software."""
     if "state" not in findings.columns:
         return findings
-    return findings[findings["state"].isin(FIELD_WORK_STATES)]
+    return findings[findings["state"].isin(OPEN_STATES)]
 
 
 def check_groups(findings: pd.DataFrame, points: pd.DataFrame | None) -> list[CheckGroup]:

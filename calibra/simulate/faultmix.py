@@ -14,13 +14,19 @@ from collections.abc import Sequence
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import default_sigma, parse_ratio
+from calibra.diagnosis.findings import FindingKind
+from calibra.model.points import (
+    ANALOG_QUANTITIES,
+    BRANCH_END_QUANTITIES,
+    FLOW_QUANTITIES,
+    INJECTION_QUANTITIES,
+    default_sigma,
+    parse_ratio,
+)
 from calibra.simulate.faults import FAULT_KINDS, FaultSpec
 from calibra.simulate.pointlist import CT_SECONDARY_A, MULTI_RATIO_CT_TAPS
 
 DEFAULT_MIX = FAULT_KINDS
-_FLOW_END = ("p_flow", "q_flow", "i_magnitude")
-_ANALOG = _FLOW_END + ("p_injection", "q_injection", "v_magnitude")
 
 
 def _round2(x: float) -> float:
@@ -52,7 +58,7 @@ class _Picker:
         self.points = points
         self.rng = rng
         self.sigma = default_sigma(points)
-        analog = points.index[points["quantity"].isin(_ANALOG)]
+        analog = points.index[points["quantity"].isin(ANALOG_QUANTITIES)]
         vals = values[analog.intersection(values.columns)]
         self.level = vals.abs().median()
         self.spread = vals.std()
@@ -106,7 +112,9 @@ def random_faults(
     index = values.index
     counts: dict[str, int] = {}
     specs = []
-    priority = {k: i for i, k in enumerate(("mismapped", "scale", "reversed", "stuck", "drift"))}
+    order = (FindingKind.MISMAPPED, FindingKind.SCALE, FindingKind.REVERSED, FindingKind.STUCK,
+             FindingKind.DRIFT)
+    priority = {k: i for i, k in enumerate(order)}
     for kind in sorted(kinds, key=lambda k: priority.get(k, 9)):
         variant = counts.get(kind, 0)
         counts[kind] = variant + 1
@@ -122,57 +130,59 @@ def random_faults(
 
 def _pick_one(pick: _Picker, kind: str, variant: int, onset, index) -> FaultSpec | None:
     sig = pick.sigma
-    if kind == "mismapped":
-        for _, g in pick.devices(("p_flow", "q_flow")):
+    if kind == FindingKind.MISMAPPED:
+        for _, g in pick.devices(FLOW_QUANTITIES):
             p, q = g.index[g["quantity"] == "p_flow"][0], g.index[g["quantity"] == "q_flow"][0]
             gap = (pick.level[p] - pick.level[q]) if p in pick.level else 0.0
             if pick.free([p, q]) and abs(gap) >= 10 * max(sig[p], sig[q]):
-                return FaultSpec("mismapped", (p, q), detail="P and Q wired to each other's inputs")
+                return FaultSpec(FindingKind.MISMAPPED, (p, q),
+                                 detail="P and Q wired to each other's inputs")
         return None
-    if kind == "reversed":
+    if kind == FindingKind.REVERSED:
         for attempt in range(3):
             spec = _reversed(pick, (variant + attempt) % 3)
             if spec is not None:
                 return spec
         return None
-    if kind == "scale":
+    if kind == FindingKind.SCALE:
         return _scale(pick, variant % 2) or _scale(pick, (variant + 1) % 2)
-    for tag in pick.tags_of(_ANALOG):
+    for tag in pick.tags_of(ANALOG_QUANTITIES):
         if not pick.free([tag]) or tag not in pick.level:
             continue
         s = sig[tag]
         sign = 1.0 if pick.rng.random() < 0.5 else -1.0
-        if kind == "offset":
-            return FaultSpec("offset", (tag,), offset=_round2(sign * pick.rng.uniform(10, 20) * s),
+        if kind == FindingKind.OFFSET:
+            return FaultSpec(FindingKind.OFFSET, (tag,),
+                             offset=_round2(sign * pick.rng.uniform(10, 20) * s),
                              detail="zero of the transducer shifted")
-        if kind == "noisy":
+        if kind == FindingKind.NOISY:
             k = float(np.round(pick.rng.uniform(4, 7) * 2) / 2)
-            return FaultSpec("noisy", (tag,), noise_factor=k, detail="failing transducer")
-        if kind == "drift":
+            return FaultSpec(FindingKind.NOISY, (tag,), noise_factor=k, detail="failing transducer")
+        if kind == FindingKind.DRIFT:
             days = (index[-1] - onset) / pd.Timedelta(days=1)
             rate = _round2(sign * pick.rng.uniform(15, 30) * s / max(days, 1e-3))
-            return FaultSpec("drift", (tag,), drift_per_day=rate, onset=onset,
+            return FaultSpec(FindingKind.DRIFT, (tag,), drift_per_day=rate, onset=onset,
                              detail="transducer drifting")
-        if kind == "stuck":
+        if kind == FindingKind.STUCK:
             if pick.spread.get(tag, 0.0) >= 6 * s:
-                return FaultSpec("stuck", (tag,), onset=onset, detail="value frozen")
+                return FaultSpec(FindingKind.STUCK, (tag,), onset=onset, detail="value frozen")
     return None
 
 
 def _reversed(pick: _Picker, variant: int) -> FaultSpec | None:
     if variant == 1:
-        for tag in pick.tags_of(("p_flow", "q_flow")):
+        for tag in pick.tags_of(FLOW_QUANTITIES):
             if pick.free([tag]) and pick.significant(tag):
-                return FaultSpec("reversed", (tag,), factor=-1.0,
+                return FaultSpec(FindingKind.REVERSED, (tag,), factor=-1.0,
                                  detail="one channel wired with reversed polarity")
         return None
-    quantities = ("p_flow", "q_flow") if variant == 0 else ("p_injection", "q_injection")
+    quantities = FLOW_QUANTITIES if variant == 0 else INJECTION_QUANTITIES
     for _, g in pick.devices(quantities):
         tags = list(g.index[g["quantity"].isin(quantities)])
         p = g.index[g["quantity"] == quantities[0]][0]
         if pick.free(tags) and pick.significant(p):
             what = "CT polarity reversed" if variant == 0 else "injection sign convention reversed"
-            return FaultSpec("reversed", tuple(tags), factor=-1.0, detail=what)
+            return FaultSpec(FindingKind.REVERSED, tuple(tags), factor=-1.0, detail=what)
     return None
 
 
@@ -184,10 +194,10 @@ def _scale(pick: _Picker, variant: int) -> FaultSpec | None:
                 factor = float(np.sqrt(3.0)) if up else float(1.0 / np.sqrt(3.0))
                 what = "VT connected line-to-line, configured line-to-neutral" if up else (
                     "VT connected line-to-neutral, configured line-to-line")
-                return FaultSpec("scale", (tag,), factor=factor, detail=what)
+                return FaultSpec(FindingKind.SCALE, (tag,), factor=factor, detail=what)
         return None
-    for _, g in pick.devices(("p_flow", "q_flow")):
-        tags = list(g.index[g["quantity"].isin(_FLOW_END)])
+    for _, g in pick.devices(FLOW_QUANTITIES):
+        tags = list(g.index[g["quantity"].isin(BRANCH_END_QUANTITIES)])
         p = g.index[g["quantity"] == "p_flow"][0]
         pairs = wrong_ct_taps(str(g["ct_ratio"].iloc[0]))
         if not pairs or not pick.free(tags):
@@ -196,7 +206,7 @@ def _scale(pick: _Picker, variant: int) -> FaultSpec | None:
         factor = configured / wired
         if abs(factor - 1.0) * pick.level.get(p, 0.0) >= 8 * pick.sigma[p]:
             return FaultSpec(
-                "scale", tuple(tags), factor=factor,
+                FindingKind.SCALE, tuple(tags), factor=factor,
                 detail=f"CT wired on the {wired}:{CT_SECONDARY_A} tap, "
                        f"configured {configured}:{CT_SECONDARY_A}",
             )

@@ -20,14 +20,15 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import default_sigma
+from calibra.diagnosis.findings import FACTOR_KINDS, FindingKind
+from calibra.model.points import ANALOG_QUANTITIES, default_sigma
 
-FAULT_KINDS = ("reversed", "scale", "offset", "drift", "stuck", "noisy", "mismapped")
+#: Kinds of seeded fault: the finding kinds a fault of the meter itself produces.
+FAULT_KINDS = tuple(k for k in FindingKind if k != FindingKind.UNVERIFIABLE)
 TRUTH_COLUMNS = [
     "fault", "tag", "device", "kind", "factor", "offset", "drift_per_day", "onset",
     "noise_factor", "swapped_with", "detail",
 ]
-_ANALOG = ("p_flow", "q_flow", "i_magnitude", "p_injection", "q_injection", "v_magnitude")
 
 
 @dataclass(frozen=True)
@@ -55,9 +56,9 @@ class FaultSpec:
         object.__setattr__(self, "tags", tuple(str(t) for t in self.tags))
         if not self.tags:
             raise ValueError(f"{self.kind} fault names no tag")
-        if self.kind == "mismapped" and len(self.tags) != 2:
+        if self.kind == FindingKind.MISMAPPED and len(self.tags) != 2:
             raise ValueError(f"mismapped fault needs exactly two tags (P and Q), got {self.tags}")
-        if self.kind == "noisy" and self.noise_factor < 1.0:
+        if self.kind == FindingKind.NOISY and self.noise_factor < 1.0:
             raise ValueError(f"noisy fault needs noise_factor ≥ 1, got {self.noise_factor}")
 
 
@@ -66,9 +67,9 @@ def _check(spec: FaultSpec, points: pd.DataFrame) -> None:
     if unknown:
         raise KeyError(f"{spec.kind} fault names tags not in the point list: {unknown}")
     qty = points.loc[list(spec.tags), "quantity"]
-    if not qty.isin(_ANALOG).all():
+    if not qty.isin(ANALOG_QUANTITIES).all():
         raise ValueError(f"{spec.kind} fault on a status point: {list(spec.tags)}")
-    if spec.kind == "mismapped":
+    if spec.kind == FindingKind.MISMAPPED:
         pair = set(qty.str[:2])
         devices = set(points.loc[list(spec.tags), "device"])
         if pair != {"p_", "q_"} or len(devices) != 1:
@@ -105,31 +106,31 @@ def apply_faults(
         first = int(np.argmax(after))
         tags = list(spec.tags)
         block = out.loc[after, tags].to_numpy(float)
-        if spec.kind in ("reversed", "scale"):
+        if spec.kind in FACTOR_KINDS:
             block = block * spec.factor
-        elif spec.kind == "offset":
+        elif spec.kind == FindingKind.OFFSET:
             block = block + spec.offset
-        elif spec.kind == "drift":
+        elif spec.kind == FindingKind.DRIFT:
             days = np.asarray((index[after] - onset) / pd.Timedelta(days=1), float)
             block = block + spec.drift_per_day * days[:, None]
-        elif spec.kind == "stuck":
+        elif spec.kind == FindingKind.STUCK:
             block = np.broadcast_to(out.iloc[first][tags].to_numpy(float), block.shape).copy()
-        elif spec.kind == "noisy":
+        elif spec.kind == FindingKind.NOISY:
             extra = sigma[tags].to_numpy(float) * np.sqrt(spec.noise_factor**2 - 1.0)
             block = block + rng.standard_normal(block.shape) * extra[None, :]
-        elif spec.kind == "mismapped":
+        elif spec.kind == FindingKind.MISMAPPED:
             block = block[:, ::-1]
         out.loc[after, tags] = block
         for i, tag in enumerate(tags):
             rows.append({
                 "fault": number, "tag": tag, "device": points.at[tag, "device"],
                 "kind": spec.kind,
-                "factor": spec.factor if spec.kind in ("reversed", "scale") else 1.0,
-                "offset": spec.offset if spec.kind == "offset" else 0.0,
-                "drift_per_day": spec.drift_per_day if spec.kind == "drift" else 0.0,
+                "factor": spec.factor if spec.kind in FACTOR_KINDS else 1.0,
+                "offset": spec.offset if spec.kind == FindingKind.OFFSET else 0.0,
+                "drift_per_day": spec.drift_per_day if spec.kind == FindingKind.DRIFT else 0.0,
                 "onset": index[first],
-                "noise_factor": spec.noise_factor if spec.kind == "noisy" else 1.0,
-                "swapped_with": tags[1 - i] if spec.kind == "mismapped" else "",
+                "noise_factor": spec.noise_factor if spec.kind == FindingKind.NOISY else 1.0,
+                "swapped_with": tags[1 - i] if spec.kind == FindingKind.MISMAPPED else "",
                 "detail": spec.detail,
             })
     truth = pd.DataFrame(rows, columns=TRUTH_COLUMNS)

@@ -19,7 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import POINT_COLUMNS
+from calibra.model.points import FLOW_QUANTITIES, INJECTION_QUANTITIES, POINT_COLUMNS
 from calibra.simulate.case import GridCase
 from calibra.simulate.powerflow import solve_power_flow_batch
 from calibra.simulate.quantities import branch_end_power, bus_injection
@@ -259,7 +259,7 @@ def make_point_list(
             bay_of_end[(bid, end)] = (bus, bay)
             if end not in metered:
                 continue
-            qtys = ["p_flow", "q_flow"]
+            qtys = list(FLOW_QUANTITIES)
             if rng.random() < opts.current_share or sub[bus] in full:
                 qtys.append("i_magnitude")
             mva = s_from[pos] if end == "from" else s_to[pos]
@@ -291,7 +291,7 @@ def make_point_list(
             kind = "GEN" if bus in gens else "LOAD"
             bay = f"{kind}{namer.next(sub[bus], kvl, kind)}"
             mva = max(s_bus[b_pos], 0.05 * net.base_mva)
-            add_device(bus, bay, ["p_injection", "q_injection"], bus, "", mva,
+            add_device(bus, bay, list(INJECTION_QUANTITIES), bus, "", mva,
                        _accuracy(kv[bus], rng))
         if rng.random() < opts.voltage_coverage or dense:
             _add_voltage(rows, namer, bus, code, kvl, kv[bus], sub[bus], net.frequency_hz, rng)

@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 
 from calibra.model.network import Network
+from calibra.model.points import BRANCH_QUANTITIES
 
 
 def branch_end_power(
@@ -56,7 +57,7 @@ def point_values(
     end = points["end"].fillna("").astype(str).to_numpy()
     for name in np.unique(quantity):
         cols = np.flatnonzero(quantity == name)
-        if name in ("p_flow", "q_flow", "i_magnitude", "branch_status"):
+        if name in BRANCH_QUANTITIES:
             pos = network.branch_positions(element[cols])
             if name == "branch_status":
                 out[:, cols] = status[pos].astype(float)[None, :]

@@ -24,7 +24,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from calibra.diagnosis.findings import FindingKind
 from calibra.model.network import Network
+from calibra.model.points import FLOW_QUANTITIES, INJECTION_QUANTITIES
 from calibra.simulate.case import GridCase
 from calibra.simulate.faultmix import wrong_ct_taps
 from calibra.simulate.faults import FaultSpec
@@ -211,44 +213,49 @@ def _device_tags(points: pd.DataFrame, element: str, end: str, quantities) -> tu
 
 def sample_faults(points: pd.DataFrame) -> list[FaultSpec]:
     """The seeded faults of the sample week (most of them at the Norrance commissioning)."""
-    pq = ("p_flow", "q_flow")
+    pq = FLOW_QUANTITIES
     ct = _device_tags(points, "NRC-T2", "to", pq + ("i_magnitude",))
     configured, wired = min(
         wrong_ct_taps(points.at[ct[0], "ct_ratio"], (1.3, 2.5)),
         key=lambda pair: abs(pair[0] / pair[1] - 1.5),
     )
     faults = [
-        FaultSpec("reversed", _device_tags(points, "PLB-NRC", "to", pq), factor=-1.0,
+        FaultSpec(FindingKind.REVERSED, _device_tags(points, "PLB-NRC", "to", pq), factor=-1.0,
                   detail="CT polarity reversed at the new line bay"),
-        FaultSpec("reversed", (_tag(points, "q_flow", "NRC-T1", "from"),), factor=-1.0,
+        FaultSpec(FindingKind.REVERSED, (_tag(points, "q_flow", "NRC-T1", "from"),), factor=-1.0,
                   detail="reactive power channel wired with reversed polarity"),
-        FaultSpec("reversed", _device_tags(points, "NRC_33A", "", ("p_injection", "q_injection")),
+        FaultSpec(FindingKind.REVERSED, _device_tags(points, "NRC_33A", "", INJECTION_QUANTITIES),
                   factor=-1.0, detail="feeder metered with the load sign convention"),
-        FaultSpec("scale", ct, factor=configured / wired,
+        FaultSpec(FindingKind.SCALE, ct, factor=configured / wired,
                   detail=f"CT wired on the {wired}:{CT_SECONDARY_A} tap, "
                          f"configured {configured}:{CT_SECONDARY_A}"),
-        FaultSpec("scale", (_tag(points, "v_magnitude", "NRC_110"),), factor=1 / np.sqrt(3),
+        FaultSpec(FindingKind.SCALE, (_tag(points, "v_magnitude", "NRC_110"),),
+                  factor=1 / np.sqrt(3),
                   detail="VT connected line-to-neutral, configured line-to-line"),
-        FaultSpec("mismapped", _device_tags(points, "MRG-NRC", "to", pq),
+        FaultSpec(FindingKind.MISMAPPED, _device_tags(points, "MRG-NRC", "to", pq),
                   detail="P and Q inputs swapped in the RTU configuration"),
-        FaultSpec("noisy", (_tag(points, "p_flow", "NRC-T1", "to"),), noise_factor=5.0,
+        FaultSpec(FindingKind.NOISY, (_tag(points, "p_flow", "NRC-T1", "to"),), noise_factor=5.0,
                   detail="loose connection on the transducer"),
-        FaultSpec("reversed", _first_device(points, [("BRN-MRG", "from"), ("HNW-TLV", "to"),
-                                                     ("SNK-ULV", "to")]),
+        FaultSpec(FindingKind.REVERSED,
+                  _first_device(points, [("BRN-MRG", "from"), ("HNW-TLV", "to"),
+                                         ("SNK-ULV", "to")]),
                   factor=-1.0, detail="CT polarity reversed after a relay replacement"),
-        FaultSpec("offset", (_first(points, "p_flow", [("QLN-BRN", "from"), ("QLN-BRN", "to"),
-                                                        ("KRH-TLV", "to")]),),
+        FaultSpec(FindingKind.OFFSET,
+                  (_first(points, "p_flow", [("QLN-BRN", "from"), ("QLN-BRN", "to"),
+                                             ("KRH-TLV", "to")]),),
                   offset=4.0, detail="transducer zero shifted"),
-        FaultSpec("drift", (_first(points, "p_flow", [("TLV-T1", "from"), ("TLV-T1", "to"),
-                                                       ("HNW-TLV", "to")]),),
+        FaultSpec(FindingKind.DRIFT,
+                  (_first(points, "p_flow", [("TLV-T1", "from"), ("TLV-T1", "to"),
+                                             ("HNW-TLV", "to")]),),
                   drift_per_day=1.2, onset=_local("2027-03-03 14:20"),
                   detail="transducer drifting (ageing reference)"),
-        FaultSpec("drift", (_tag(points, "v_magnitude", "PLB_110")
-                            or _first(points, "q_flow", [("CRV-PLB", "to")]),),
+        FaultSpec(FindingKind.DRIFT, (_tag(points, "v_magnitude", "PLB_110")
+                                      or _first(points, "q_flow", [("CRV-PLB", "to")]),),
                   drift_per_day=-0.9, onset=_local("2027-03-05 06:45"),
                   detail="transducer drifting (temperature)"),
-        FaultSpec("stuck", (_first(points, "p_flow", [("CRV-SNK", "to"), ("CRV-SNK", "from"),
-                                                       ("SNK-ULV", "from")]),),
+        FaultSpec(FindingKind.STUCK,
+                  (_first(points, "p_flow", [("CRV-SNK", "to"), ("CRV-SNK", "from"),
+                                             ("SNK-ULV", "from")]),),
                   onset=_local("2027-03-04 10:17"), detail="value frozen after an RTU restart"),
     ]
     for spec in faults:
@@ -267,7 +274,7 @@ def _first(points: pd.DataFrame, quantity: str, candidates) -> str | None:
 
 def _first_device(points: pd.DataFrame, candidates) -> tuple[str, ...]:
     for element, end in candidates:
-        tags = _device_tags(points, element, end, ("p_flow", "q_flow"))
+        tags = _device_tags(points, element, end, FLOW_QUANTITIES)
         if len(tags) == 2:
             return tags
     return ()

@@ -37,7 +37,7 @@ def test_status_point_contradicted_by_flows(clean):
     snaps = site.snapshots.copy()
     snaps.iloc[100:160, snaps.columns.get_loc(status_tag)] = 0.0  # reads open, flows go on
     result = review_site(replace(site, snapshots=snaps))
-    conflicts = result.summary["status_conflicts"]
+    conflicts = result.summary.status_conflicts
     assert len(conflicts) == 1 and status_tag in conflicts[0] and "60 snapshots" in conflicts[0]
     assert _blamed(result) == set()
 

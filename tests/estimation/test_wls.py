@@ -6,7 +6,6 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 
-from calibra.estimation.dc import estimate_dc
 from calibra.estimation.measurements import StateLayout
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.wls import Estimator, EstimatorOptions
@@ -101,33 +100,6 @@ def test_robust_estimate_resists_several_gross_errors(case118_solved):
         return np.abs(e.vm - case118_solved.vm).max() + np.abs(e.va - case118_solved.va).max()
 
     assert state_error(robust) < 0.3 * state_error(plain)
-
-
-def test_dc_estimate_reproduces_pypower_dc_power_flow(case118_solved):
-    """pypower rundcpf (test-only reference): DC flows and injections as measurements give back
-    its angles to 1e-9 rad."""
-    import warnings
-
-    from pypower.api import case118, ppoption, rundcpf
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        res, ok = rundcpf(case118(), ppoption(VERBOSE=0, OUT_ALL=0))
-    assert ok
-    net = case118_solved.network
-    model = MeasurementModel.from_points(net, full_point_list(net))
-    z = np.full(model.m, np.nan)
-    tags = model.tags
-    pf = dict(zip(net.branches.index, res["branch"][:, 13], strict=True))
-    for i, tag in enumerate(tags):
-        parts = tag.split(":")
-        if parts[-1] == "p_flow":
-            z[i] = (pf[parts[0]] if parts[1] == "from" else -pf[parts[0]]) / 100.0
-    va_ref = np.deg2rad(res["bus"][:, 8])
-    va_ref -= va_ref[net.reference_position]
-    dc = estimate_dc(model, z)
-    assert dc.solved
-    assert np.abs(dc.va - va_ref).max() < 1e-9
 
 
 def test_unobservable_area_is_reported_and_rest_estimated(case57_solved):

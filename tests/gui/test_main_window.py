@@ -85,8 +85,8 @@ def test_review_correct_rerun(qtbot, window, site_folder):
     assert kept.at[_fid(MW), "state"] == "corrected"
     assert "field fix is still due" in kept.at[_fid(MW), "evidence"]
     assert _fid(MW) in window.findings.leaf_ids()
-    before = first.result.summary["rounds"][0]["chi2_failed"]
-    after = second.result.summary["rounds"][0]["chi2_failed"]
+    before = first.result.summary.rounds[0]["chi2_failed"]
+    after = second.result.summary.rounds[0]["chi2_failed"]
     assert after < before
     assert window.figures[0].chi2_failed_all_in == before
     assert window.figures[1].chi2_failed_all_in == after

@@ -25,9 +25,9 @@ def test_period_choice_reviews_that_period(qtbot, window, site_folder):
         window.tools.set_period(*dialog.values())
     result = window.run.result
     assert (result.period_start, result.period_end) == (start, end)
-    assert result.summary["snapshots"] == 360
+    assert result.summary.snapshots == 360
     review_and_wait(qtbot, window)  # F5 keeps the chosen period
-    assert window.run.result.summary["snapshots"] == 360
+    assert window.run.result.summary.snapshots == 360
 
 
 def test_exports_write_valid_files(qtbot, window, site_folder, tmp_path):
