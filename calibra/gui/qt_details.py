@@ -19,9 +19,9 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from calibra.cli import format_summary
 from calibra.gui.qt_style import STATE_COLOURS
 from calibra.gui.run_compare import RunFigures, changed_findings, comparison_rows
+from calibra.io.site_summary import site_summary_lines
 from calibra.model.site import LoadProblem, Site
 from calibra.model.times import for_people
 
@@ -180,7 +180,7 @@ class DetailTabs(QTabWidget):
             self.site_text.setHtml("<p>No site open.</p>")
             self.problems.fill([])
             return
-        lines = format_summary(site)
+        lines = site_summary_lines(site)
         self.site_text.setHtml(f"<p><b>{escape(str(site.path))}</b></p>"
                                + "".join(f"<p style='margin:3px 0'>{escape(t)}</p>"
                                          for t in lines))

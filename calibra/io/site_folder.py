@@ -13,7 +13,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from calibra.io.cdf import parse_cdf
@@ -27,7 +26,6 @@ from calibra.io.snapshot_size import memory_limit as default_memory_limit
 from calibra.io.snapshots import empty_snapshots, plan_files, read_snapshots, snapshot_times
 from calibra.io.text_files import read_text
 from calibra.model.network import Network
-from calibra.model.points import QUANTITIES
 from calibra.model.site import Site, SiteLoadError
 from calibra.model.times import read_local
 
@@ -146,10 +144,8 @@ def resolve_period(start, end, timezone: str) -> tuple[pd.Timestamp | None, ...]
     """The period as UTC times (naive ones in the site's timezone); None when open."""
     if start is None and end is None:
         return None
-    out = []
-    for value in (start, end):
-        out.append(None if value is None else read_local(value, timezone))
-    return out[0], out[1]
+    return tuple(None if value is None else read_local(value, timezone, what)
+                 for value, what in ((start, "start"), (end, "end")))
 
 
 # ----------------------------------------------------------------------------- network
@@ -246,42 +242,3 @@ def _report_points_without_data(
             POINTS_FILE, int(rows.get(tag, 0)) or None, "tag",
             f"point '{tag}' has no values in the snapshot files",
         )
-
-
-# ----------------------------------------------------------------------------- summary
-def summarize(site: Site) -> dict:
-    """Counts and spans of a loaded site, for the command line and the GUI.
-
-    Keys: ``name``, ``timezone``, ``buses``, ``branches``, ``branches_in_service``,
-    ``substations``, ``zero_injection_buses``, ``points``, ``points_by_quantity``
-    (quantity → count, every quantity listed), ``snapshots``, ``first_snapshot`` and
-    ``last_snapshot`` (UTC Timestamps or None), ``typical_interval`` (median spacing,
-    Timedelta or None), ``missing_fraction`` (of all point × snapshot cells),
-    ``missing_by_point`` (tag → number of missing snapshots), ``errors``, ``warnings``.
-    """
-    net, points, snaps = site.network, site.points, site.snapshots
-    by_quantity = points["quantity"].value_counts()
-    missing = snaps.isna().sum(axis=0) if len(snaps.index) else pd.Series(0, index=points.index)
-    cells = snaps.size
-    index = snaps.index
-    return {
-        "name": site.name,
-        "timezone": site.timezone,
-        "buses": net.n_bus,
-        "branches": net.n_branch,
-        "branches_in_service": int(net.default_in_service().sum()),
-        "substations": int(net.buses["substation"].nunique()),
-        "zero_injection_buses": int(net.buses["zero_injection"].sum()),
-        "points": len(points),
-        "points_by_quantity": {q: int(by_quantity.get(q, 0)) for q in QUANTITIES},
-        "snapshots": len(index),
-        "first_snapshot": index[0] if len(index) else None,
-        "last_snapshot": index[-1] if len(index) else None,
-        "typical_interval": (
-            pd.Timedelta(np.median(np.diff(index.asi8)), unit="ns") if len(index) > 1 else None
-        ),
-        "missing_fraction": float(missing.sum() / cells) if cells else 0.0,
-        "missing_by_point": {str(t): int(n) for t, n in missing.items()},
-        "errors": len(site.errors),
-        "warnings": len(site.warnings),
-    }

@@ -1,5 +1,6 @@
 """One time policy: every time shown to a person is in the site's zone and says which zone;
-every time written for machines is ISO 8601 UTC with ``Z``."""
+every time written for machines is ISO 8601 UTC with ``Z``; every time a person types is read by
+:func:`read_local`."""
 
 from __future__ import annotations
 
@@ -52,19 +53,24 @@ def for_machines(t: TimeLike | None) -> str:
     return text.replace("+00:00", "Z")
 
 
-def read_local(text: TimeLike, timezone: str) -> pd.Timestamp:
-    """A time typed by a person: in the site's zone unless it names its own; returned in UTC.
-    Raises ValueError with the text when it is not a time or not one moment in the zone."""
+def read_local(text: TimeLike, timezone: str, what: str = "") -> pd.Timestamp:
+    """A time typed by a person (``--from``, ``--to``, ``ledger repaired --at``, a period given
+    to the loader): in the site's zone unless it names its own; returned in UTC. The one parser
+    of typed times. Raises ValueError, starting with ``what`` (the option or parameter) when
+    given, when the text is not a time or not one moment in the zone."""
+    name = f"{what}: " if what else ""
+    not_a_time = (f"{name}not a time: {text!r} (write it as 2027-03-01 06:00, in {timezone} "
+                  "unless it gives a UTC offset)")
     try:
         t = pd.Timestamp(text)
     except (ValueError, TypeError) as exc:
-        raise ValueError(f"not a time: {text!r}") from exc
+        raise ValueError(not_a_time) from exc
     if t is pd.NaT:
-        raise ValueError(f"not a time: {text!r}")
+        raise ValueError(not_a_time)
     if t.tzinfo is None:
         try:
             t = t.tz_localize(timezone, ambiguous="raise", nonexistent="raise")
         except LOCAL_TIME_ERRORS as exc:
-            raise ValueError(f"{text!r} is not a single moment in {timezone} (daylight "
+            raise ValueError(f"{name}{text!r} is not a single moment in {timezone} (daylight "
                              "saving time skips or repeats it); give a UTC offset") from exc
     return t.tz_convert("UTC")

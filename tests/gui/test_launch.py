@@ -5,11 +5,13 @@ from __future__ import annotations
 
 import argparse
 import sys
+from dataclasses import replace
 
 from PySide6.QtCore import QTimer
 from PySide6.QtWidgets import QApplication
 
 import calibra.gui.launch as launch
+from calibra import cli
 from calibra.app_settings import RecentSites
 from calibra.cli import main
 
@@ -21,7 +23,8 @@ def test_plain_calibra_opens_the_application(monkeypatch):
         seen["site"] = args.site
         return 0
 
-    monkeypatch.setattr(launch, "run", fake_run)
+    monkeypatch.setattr(cli, "COMMANDS", [replace(c, run=fake_run) if c.name == "open" else c
+                                          for c in cli.COMMANDS])
     monkeypatch.setattr(sys, "argv", ["calibra"])
     assert main() == 0
     assert seen == {"site": None}

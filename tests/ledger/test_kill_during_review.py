@@ -37,7 +37,7 @@ def test_review_killed_at_random_moments(site_folder, tmp_path):
     ledger_path = tmp_path / "ledger.sqlite"
     completed = 0
     env = dict(os.environ, PYTHONUNBUFFERED="1")
-    cmd = [sys.executable, "-m", "calibra.cli", "review", str(site_folder), "--out",
+    cmd = [sys.executable, "-m", "calibra", "review", str(site_folder), "--out",
            str(tmp_path / "out"), "--ledger", str(ledger_path), "--no-pdf"]
     # One complete run first, to know how long a review takes here.
     t0 = time.perf_counter()

@@ -180,7 +180,7 @@ def test_check_prints_every_problem_on_its_own_line(data):
             raise SiteLoadError(problems)
         return site
 
-    with mock.patch("calibra.cli.load_site", recorded):
+    with mock.patch("calibra.cli.check.load_site", recorded):
         code, output = _run(["check", str(written(m.files))])
     assert "Traceback" not in output, output
     (site, problems), = seen

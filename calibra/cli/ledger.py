@@ -12,10 +12,8 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.cli import EXIT_OK, EXIT_UNUSABLE, UsageError
+from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, UsageError, site_timezone
 from calibra.diagnosis.findings import CORRECTABLE_KINDS, FACTOR_KINDS, FindingKind
-from calibra.io.problems import ProblemLog
-from calibra.io.site_config import read_site_config
 from calibra.ledger import Ledger, LedgerError
 from calibra.ledger.states import OPEN_STATES, FindingState
 from calibra.model.times import for_people, read_local
@@ -67,16 +65,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     p.add_argument("item", nargs="?", default=None)
 
 
-def _timezone(folder: Path) -> str:
-    if not folder.is_dir():
-        raise UsageError(f"no such folder: {folder}")
-    log = ProblemLog()
-    config = read_site_config(folder, log)
-    if config is None:
-        raise UsageError("; ".join(str(p) for p in log.items) or f"{folder}: no site.toml")
-    return config.timezone
-
-
 def resolve(findings: pd.DataFrame, item: str, open_only: bool = True) -> pd.DataFrame:
     """The findings ITEM names: a finding id, else a tag's, else a device's (open ones unless
     ``open_only`` is False). Raises UsageError naming what exists when nothing matches."""
@@ -110,7 +98,7 @@ def _list(ledger: Ledger, tz: str) -> None:
 
 
 def _correct(ledger: Ledger, rows: pd.DataFrame, args, tz: str) -> list[str]:
-    valid_from = read_local(args.valid_from, tz) if args.valid_from else None
+    valid_from = read_local(args.valid_from, tz, "--from") if args.valid_from else None
     done = []
     for tag, group in rows.groupby("tag", sort=True):
         kinds = [k for k in group["finding"] if k in CORRECTABLE_KINDS]
@@ -162,7 +150,7 @@ def _history(ledger: Ledger, item: str | None, tz: str) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    tz = _timezone(args.site)
+    tz = site_timezone(args.site)
     path = args.ledger or args.site / "calibra-ledger.sqlite"
     if not path.exists():
         raise UsageError(f"no ledger at {path}: run 'calibra review {args.site}' first")
@@ -209,7 +197,7 @@ def _run(ledger: Ledger, args: argparse.Namespace, tz: str) -> int:
         for line in _correct(ledger, rows, args, tz):
             print(line)
     elif action == "repaired":
-        at = read_local(args.at, tz)
+        at = read_local(args.at, tz, "--at")
         for tag in sorted(set(rows["tag"])):
             ledger.mark_repaired(tag, at, args.user, args.note)
             print(f"{tag}: repaired at {for_people(at, tz)}")

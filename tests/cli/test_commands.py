@@ -1,4 +1,5 @@
-"""``calibra check``: what it prints and the exit codes (0 usable, 1 not, 2 usage)."""
+"""``calibra check`` and the command line around it: what it prints and the exit codes (0 usable,
+1 not, 2 usage), help, a new subcommand."""
 
 import argparse
 
@@ -61,7 +62,7 @@ def test_unreadable_file_is_one_line_not_a_traceback(files, tmp_path, capsys, mo
     def refuse(*args, **kwargs):
         raise PermissionError(13, "Permission denied", str(root / "points.csv"))
 
-    monkeypatch.setattr(cli, "load_site", refuse)
+    monkeypatch.setattr(cli.check, "load_site", refuse)
     assert main(["check", str(root)]) == 1
     err = capsys.readouterr().err
     assert err.strip() == f"calibra check: Permission denied ({root / 'points.csv'})"

@@ -7,17 +7,17 @@ from pathlib import Path
 
 import numpy as np
 
-from calibra.cli import (
+from calibra.cli.common import (
     EXIT_OK,
     EXIT_UNUSABLE,
-    UsageError,
-    _site_folder,
-    _tally,
-    format_summary,
     period_arguments,
+    read_period,
     report_unusable,
+    site_folder,
+    tally,
 )
 from calibra.estimation.daywise import RN_SCREEN, estimate_by_day
+from calibra.io import site_summary_lines
 from calibra.model.site import SiteLoadError
 from calibra.progress import terminal_progress
 
@@ -35,19 +35,18 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    folder = _site_folder(args.site)
+    folder = site_folder(args.site)
+    start, end = read_period(folder, args)
     try:
-        summary = estimate_by_day(folder, args.start, args.end, out_dir=args.out,
+        summary = estimate_by_day(folder, start, end, out_dir=args.out,
                                   confidence=args.confidence, progress=terminal_progress())
-    except ValueError as exc:  # a --from/--to that is not a time
-        raise UsageError(str(exc)) from exc
     except SiteLoadError as exc:
         report_unusable(folder, exc)
         return EXIT_UNUSABLE
-    for line in format_summary(summary.site)[:3]:
+    for line in site_summary_lines(summary.site)[:3]:
         print(line)
     if summary.problems:
-        print(f"load: {_tally(summary.problems)} (listed by 'calibra check {folder}')")
+        print(f"load: {tally(summary.problems)} (listed by 'calibra check {folder}')")
     for line in summary.availability:
         print(line)
     for conflict in summary.conflicts:

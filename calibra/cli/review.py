@@ -6,13 +6,13 @@ import argparse
 from dataclasses import replace
 from pathlib import Path
 
-from calibra.cli import (
+from calibra.cli.common import (
     EXIT_OK,
     EXIT_UNUSABLE,
     UsageError,
     load_for_command,
-    parse_period,
     period_arguments,
+    read_period,
 )
 from calibra.cluster import ClusterError, parse_cluster_address
 from calibra.diagnosis.review import ReviewSettings
@@ -102,10 +102,10 @@ def _pdf_writer(review):
 def run(args: argparse.Namespace) -> int:
     settings = _settings(args)
     _check_cluster_options(args)
-    site = load_for_command(args.site, args.start, args.end)
+    start, end = read_period(args.site, args)
+    site = load_for_command(args.site, start, end)
     if site is None:
         return EXIT_UNUSABLE
-    start, end = parse_period(site, args)
     out = args.out or Path("calibra-review")
     ledger = None
     if not args.no_ledger:

@@ -1,0 +1,1 @@
+from tests.io.conftest import files  # noqa: F401  (the loader tests' small valid site)
