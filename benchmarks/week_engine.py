@@ -28,7 +28,7 @@ from scipy.optimize import least_squares
 import calibra  # noqa: F401  (single-threaded BLAS)
 from calibra.estimation.measurements import StateLayout
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.site_estimate import topology_per_snapshot
+from calibra.estimation.topology import topology_per_snapshot
 from calibra.estimation.week import estimate_period
 from calibra.estimation.wls import Estimator
 

@@ -36,7 +36,7 @@ from calibra.estimation.model import MeasurementModel
 from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.probes import ProbeSet
 from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_residuals
-from calibra.estimation.site_estimate import StatusConflict
+from calibra.estimation.topology import StatusConflict
 from calibra.estimation.week import PeriodResult, SolverSettings
 from calibra.estimation.wls import Estimator, SnapshotEstimate
 from calibra.model.points import CT_QUANTITIES, POWER_QUANTITIES

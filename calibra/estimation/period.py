@@ -15,7 +15,7 @@ import numpy as np
 import pandas as pd
 
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.site_estimate import StatusConflict, checked_topology
+from calibra.estimation.topology import StatusConflict, checked_topology
 from calibra.estimation.wls import Estimator
 from calibra.model.site import Site
 

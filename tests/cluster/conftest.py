@@ -18,7 +18,7 @@ from calibra.cluster import start_local_cluster
 from calibra.estimation.engine import LocalEngine
 from calibra.estimation.model import MeasurementModel
 from calibra.estimation.period import PreparedPeriod
-from calibra.estimation.site_estimate import checked_topology
+from calibra.estimation.topology import checked_topology
 from calibra.estimation.week import SolverSettings
 from calibra.estimation.wls import Estimator
 from calibra.io import load_site

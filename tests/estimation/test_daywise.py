@@ -17,7 +17,7 @@ from calibra.estimation.daywise import (
     utc_days,
 )
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.site_estimate import checked_topology
+from calibra.estimation.topology import checked_topology
 from calibra.estimation.week import estimate_period
 from calibra.estimation.wls import Estimator
 from calibra.io import load_site

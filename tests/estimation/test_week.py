@@ -128,7 +128,7 @@ def test_two_workers_give_the_results_of_one_to_the_bit():
     from pathlib import Path
 
     from calibra.estimation.runtime import can_fork
-    from calibra.estimation.site_estimate import topology_per_snapshot
+    from calibra.estimation.topology import topology_per_snapshot
     from calibra.estimation.week import SolverSettings, estimate_period
     from calibra.io import load_site
 

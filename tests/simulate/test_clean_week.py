@@ -13,7 +13,7 @@ import pytest
 from scipy.stats import norm
 
 from calibra.estimation.model import MeasurementModel
-from calibra.estimation.site_estimate import topology_per_snapshot
+from calibra.estimation.topology import topology_per_snapshot
 from calibra.estimation.week import estimate_period
 from calibra.estimation.wls import Estimator
 from calibra.simulate.sample_site import simulate_sample
