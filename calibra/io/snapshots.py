@@ -313,11 +313,22 @@ def _report_rows_without_time(
         log.per_row(rel, rows[lost], "timestamp", "values without a time; row skipped")
 
 
+#: How a NUL character of a snapshot file is shown (Unicode's symbol for null).
+NUL_SHOWN = "\u2400"
+
+
 def _read_csv(path: Path, rel: str, log: ProblemLog) -> pd.DataFrame | None:
     found = read_csv_text(path, rel, log)
     if found is None:
         return None
     text, dialect = found
+    if "\x00" in text:
+        # pandas' C parser ends a cell at a NUL byte (the cell would read as empty): shown as
+        # a visible symbol, the cell is reported where it is (not a number, not a time).
+        line = text.count("\n", 0, text.index("\x00")) + 1
+        log.warning(rel, line, None, f"holds {text.count(chr(0))} NUL character(s) (byte 0), "
+                    f"shown as {NUL_SHOWN}; a cell with one is not read as a value")
+        text = text.replace("\x00", NUL_SHOWN)
     try:
         header = next(csv_records(text, dialect.sep))
     except csv.Error as exc:

@@ -107,21 +107,10 @@ def read_csv_text(path: Path, rel: str, log: ProblemLog) -> tuple[str, Dialect] 
     if problem is not None:
         log.error(rel, None if problem == "the file is empty" else 1, None, problem)
         return None
-    if "\x00" in text:
-        # The C parser ends a cell at a NUL byte; shown as a visible symbol, the cell is
-        # reported where it is (not a number, not a time) instead of read as empty.
-        line = text.count("\n", 0, text.index("\x00")) + 1
-        log.warning(rel, line, None, f"holds {text.count(chr(0))} NUL character(s) (byte 0), "
-                    f"shown as {NUL_SHOWN}; a cell with one is not read as a value")
-        text = text.replace("\x00", NUL_SHOWN)
     dialect = sniff_dialect(text)
     if dialect.sep != ",":
         log.warning(rel, None, None, f"read as {dialect.describe()}")
     return text, dialect
-
-
-#: How a NUL character of a CSV file is shown (Unicode's symbol for null).
-NUL_SHOWN = "\u2400"
 
 
 @dataclass
