@@ -53,7 +53,8 @@ BRANCH_NAMES = ["F_BUS", "T_BUS", "BR_R", "BR_X", "BR_B", "RATE_A", "RATE_B", "R
 MIN_COLUMNS = {"bus": 13, "gen": 10, "branch": 11}
 _NAMES = {"bus": BUS_NAMES, "gen": GEN_NAMES, "branch": BRANCH_NAMES}
 #: Columns that must hold finite numbers (the others may hold Inf, as QMAX often does).
-_USED = {"bus": BUS_NAMES[:10], "gen": GEN_NAMES[:8], "branch": BRANCH_NAMES[:11]}
+_USED = {"bus": BUS_NAMES[:10], "gen": ["GEN_BUS", "PG", "QG", "VG", "GEN_STATUS"],
+         "branch": BRANCH_NAMES[:11]}
 _INTEGERS = {"BUS_I", "BUS_TYPE", "GEN_BUS", "F_BUS", "T_BUS"}
 _KNOWN_FIELDS = {
     "gencost": "generator costs", "bus_name": "bus names", "areas": "areas (version 1)",
