@@ -215,7 +215,9 @@ def _numbers(item: Assignment, table: str, file: str, log: ProblemLog) -> list:
         if len(cells) != width or len(cells) < need:
             expected = (f"the first row has {width}" if len(cells) != width
                         else f"at least {need} are needed ({names[0]} … {names[need - 1]})")
-            log.error(file, line, None, f"this row of mpc.{table} has {len(cells)} columns; "
+            first = min(len(cells), width)  # the first column missing, or the first extra
+            column = names[first] if first < len(names) else f"column {first + 1}"
+            log.error(file, line, column, f"this row of mpc.{table} has {len(cells)} columns; "
                       f"{expected}")
             continue
         values: dict[str, float] = {}

@@ -124,10 +124,15 @@ def _statements(tokens: list[Token], file: str, log: ProblemLog) -> list[list[To
         if token.kind == "punct" and token.text in _OPEN:
             opened.append(token)
         elif token.kind == "punct" and token.text in _CLOSE:
-            if opened:
+            if not opened:
+                log.error(file, token.line, None, f"'{token.text}' closes nothing")
+            elif _OPEN.index(opened[-1].text) != _CLOSE.index(token.text):
+                log.error(file, token.line, None,
+                          f"'{token.text}' does not close the '{opened[-1].text}' opened at "
+                          f"line {opened[-1].line}")
                 opened.pop()
             else:
-                log.error(file, token.line, None, f"'{token.text}' closes nothing")
+                opened.pop()
         if not opened and (token.kind == "eol" or token.text in ";," and token.kind == "punct"):
             if current:
                 statements.append(current)
@@ -162,10 +167,9 @@ def _assignment(target: str, value: list[Token], line: int) -> Assignment:
     if len(value) == 1 and value[0].kind in ("text", "word"):
         return Assignment(target, line, value[0].kind, value[0].text)
     if value and value[0].text == "[" and value[0].kind == "punct":
-        end = max(i for i, t in enumerate(value) if t.kind == "punct" and t.text == "]")
-        trailing = value[end + 1:]
-        if not trailing:
-            return Assignment(target, line, "matrix", rows=_matrix_rows(value[1:end]))
+        last = value[-1]
+        if last.kind == "punct" and last.text == "]":
+            return Assignment(target, line, "matrix", rows=_matrix_rows(value[1:-1]))
     if value and value[0].text == "{" and value[0].kind == "punct":
         return Assignment(target, line, "cell")
     return Assignment(target, line, "other", " ".join(t.text for t in value))
