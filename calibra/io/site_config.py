@@ -1,4 +1,6 @@
-"""Reading ``site.toml``: the site's name, system base, frequency, timezone and reference bus."""
+"""Reading ``site.toml``: the site's name, system base, frequency, timezone and reference bus,
+and the optional ``[network]`` table that overrides the zero-injection buses a CDF or
+MATPOWER network file implies (``zero_injection = ["7"]``, ``not_zero_injection = ["9"]``)."""
 
 from __future__ import annotations
 
@@ -13,17 +15,24 @@ from calibra.io.text_files import read_text
 
 SITE_FILE = "site.toml"
 _KEYS = ("name", "base_mva", "frequency_hz", "timezone", "reference_bus")
+NETWORK_TABLE = "network"
+ZERO_INJECTION_KEYS = ("zero_injection", "not_zero_injection")
 
 
 @dataclass(frozen=True)
 class SiteConfig:
-    """The ``[site]`` table; ``base_mva`` may be None when a CDF network supplies it."""
+    """The ``[site]`` table; ``base_mva`` may be None when a CDF or MATPOWER network supplies
+    it. ``zero_injection``/``not_zero_injection``: bus ids from ``[network]`` with their
+    ``site.toml`` line (None when not given)."""
 
     name: str
     base_mva: float | None
     frequency_hz: float
     timezone: str
     reference_bus: str | None
+    zero_injection: tuple[str, ...] = ()
+    not_zero_injection: tuple[str, ...] = ()
+    zero_injection_lines: tuple[int | None, int | None] = (None, None)
 
 
 def _line_of(text: str, key: str) -> int | None:
@@ -57,7 +66,7 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
         log.error(SITE_FILE, int(found.group(1)) if found else None, None, f"not valid TOML: {exc}")
         return None
     for key in doc:
-        if key != "site":
+        if key not in ("site", NETWORK_TABLE):
             log.warning(SITE_FILE, _line_of(text, key), key, "unknown entry; ignored")
     site = doc.get("site")
     if not isinstance(site, dict):
@@ -94,6 +103,42 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
     ref = value("reference_bus", "text", required=False)
     if tz is not None and (why := check_timezone(tz)):
         log.error(SITE_FILE, _line_of(text, "timezone"), "timezone", why)
+    lists = _zero_injection_lists(doc.get(NETWORK_TABLE), text, log)
     if log.error_count() > start:
         return None
-    return SiteConfig(name, base, freq, tz, ref)
+    lines = tuple(_line_of(text, key) for key in ZERO_INJECTION_KEYS)
+    return SiteConfig(name, base, freq, tz, ref, lists[0], lists[1], lines)
+
+
+def _zero_injection_lists(table, text: str, log: ProblemLog) -> tuple[tuple[str, ...], ...]:
+    """The bus ids of ``[network] zero_injection`` and ``not_zero_injection`` (errors
+    logged for anything that is not a list of bus ids, or a bus in both)."""
+    if table is None:
+        return (), ()
+    if not isinstance(table, dict):
+        log.error(SITE_FILE, _line_of(text, NETWORK_TABLE), NETWORK_TABLE,
+                  "must be a table: [network] with zero_injection = [...] and/or "
+                  "not_zero_injection = [...]")
+        return (), ()
+    for key in table:
+        if key not in ZERO_INJECTION_KEYS:
+            log.warning(SITE_FILE, _line_of(text, key), key,
+                        "unknown key in [network]; ignored")
+    lists = []
+    for key in ZERO_INJECTION_KEYS:
+        value = table.get(key, [])
+        ok = isinstance(value, list) and all(
+            isinstance(v, str) and v.strip() or isinstance(v, int) and not isinstance(v, bool)
+            for v in value)
+        if not ok:
+            log.error(SITE_FILE, _line_of(text, key), key,
+                      f"must be a list of bus ids such as [\"7\", \"12\"], not {value!r}")
+            lists.append(())
+            continue
+        lists.append(tuple(str(v).strip() for v in value))
+    both = sorted(set(lists[0]) & set(lists[1]))
+    if both:
+        log.error(SITE_FILE, _line_of(text, ZERO_INJECTION_KEYS[1]), ZERO_INJECTION_KEYS[1],
+                  "bus " + ", ".join(both) + " is also listed in zero_injection; list each "
+                  "bus in one of the two")
+    return lists[0], lists[1]

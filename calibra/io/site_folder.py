@@ -16,10 +16,17 @@ from pathlib import Path
 import pandas as pd
 
 from calibra.io.cdf import parse_cdf
+from calibra.io.matpower import MATPOWER_SUFFIXES, parse_matpower
 from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE, read_branches, read_buses
 from calibra.io.point_list import POINTS_FILE, read_points
 from calibra.io.problems import ProblemLog
-from calibra.io.site_config import SITE_FILE, SiteConfig, read_site_config
+from calibra.io.site_config import (
+    NETWORK_TABLE,
+    SITE_FILE,
+    ZERO_INJECTION_KEYS,
+    SiteConfig,
+    read_site_config,
+)
 from calibra.io.snapshot_period import FilePlan
 from calibra.io.snapshot_size import MEMORY_LIMIT_ENV
 from calibra.io.snapshot_size import memory_limit as default_memory_limit
@@ -159,34 +166,43 @@ def _read_network(folder: Path, config: SiteConfig | None, log: ProblemLog) -> T
     if not directory.is_dir():
         log.error(NETWORK_DIR, None, None, "folder not found")
         return None, None, None
-    cdf_files = sorted(
+    files = sorted(
         p for p in directory.iterdir()
-        if p.is_file() and p.suffix.lower() in CDF_SUFFIXES and not p.name.startswith(".")
+        if p.is_file() and p.suffix.lower() in CDF_SUFFIXES + MATPOWER_SUFFIXES
+        and not p.name.startswith(".")
     )
     csv_files = [n for n in (BUSES_FILE, BRANCHES_FILE) if (folder / n).is_file()]
     for p in sorted(directory.iterdir()):
         rel = f"{NETWORK_DIR}/{p.name}"
-        if not p.name.startswith(".") and p not in cdf_files and rel not in csv_files:
+        if not p.name.startswith(".") and p not in files and rel not in csv_files:
             log.warning(rel, None, None, "not a network file; ignored")
-    if cdf_files and csv_files:
+    if files and csv_files:
         log.error(
             NETWORK_DIR, None, None,
-            "has both buses.csv/branches.csv and a Common Data Format file "
-            f"({cdf_files[0].name}); keep one description of the network",
+            f"has both buses.csv/branches.csv and a {_format_of(files[0])} file "
+            f"({files[0].name}); keep one description of the network",
         )
         return None, None, None
-    if len(cdf_files) > 1:
+    if len(files) > 1:
+        kinds = sorted({_format_of(p) for p in files})
+        what = (f"several {kinds[0]} files" if len(kinds) == 1
+                else "both " + " and ".join(f"a {k} file" for k in kinds))
         log.error(
             NETWORK_DIR, None, None,
-            "has several Common Data Format files (" + ", ".join(p.name for p in cdf_files)
-            + "); keep one",
+            f"has {what} (" + ", ".join(p.name for p in files) + "); keep one",
         )
         return None, None, None
-    if cdf_files:
-        network = _network_from_cdf(cdf_files[0], config, log)
+    if files:
+        network = _network_from_file(files[0], config, log)
         if network is None:
             return None, None, None
         return network, network.buses, network.branches
+    if config is not None and (config.zero_injection or config.not_zero_injection):
+        log.warning(
+            SITE_FILE, next(n for n in config.zero_injection_lines if n), NETWORK_TABLE,
+            "zero_injection/not_zero_injection override a network read from a CDF or "
+            "MATPOWER file; with buses.csv set its zero_injection column instead; ignored",
+        )
     buses = read_buses(folder, log)
     branches = read_branches(folder, buses.index if buses is not None else None, log)
     if config is not None and config.base_mva is None:
@@ -207,13 +223,20 @@ def _read_network(folder: Path, config: SiteConfig | None, log: ProblemLog) -> T
     return network, buses, branches
 
 
-def _network_from_cdf(path: Path, config: SiteConfig | None, log: ProblemLog) -> Network | None:
+def _format_of(path: Path) -> str:
+    return "MATPOWER case" if path.suffix.lower() in MATPOWER_SUFFIXES else "Common Data Format"
+
+
+def _network_from_file(path: Path, config: SiteConfig | None,
+                       log: ProblemLog) -> Network | None:
+    """The network of a CDF or MATPOWER file, checked against and completed by site.toml."""
     rel = f"{NETWORK_DIR}/{path.name}"
     text = read_text(path, rel, log)
     if text is None:
         return None
     freq = config.frequency_hz if config is not None else 60.0
-    case = parse_cdf(text, rel, log, frequency_hz=freq)
+    parse = parse_matpower if path.suffix.lower() in MATPOWER_SUFFIXES else parse_cdf
+    case = parse(text, rel, log, frequency_hz=freq)
     if case is None or config is None:
         return None
     network = case.network
@@ -228,8 +251,52 @@ def _network_from_cdf(path: Path, config: SiteConfig | None, log: ProblemLog) ->
             log.error(SITE_FILE, None, "reference_bus", f"unknown bus '{config.reference_bus}'")
             return None
         network.reference_bus = config.reference_bus
+    if not _override_zero_injection(network, config, _injecting(case), rel, log):
+        return None
     network.name = config.name
     return network
+
+
+def _injecting(case) -> set[str]:
+    """Buses a CDF or MATPOWER case gives load or generation in service."""
+    data = case.bus_data
+    columns = [c for c in ("load_mw", "load_mvar", "gen_mw", "gen_mvar") if c in data]
+    buses = set(data.index[data[columns].ne(0).any(axis=1)])
+    generators = getattr(case, "generators", None)
+    if generators is not None:
+        buses |= set(generators["bus"][generators["in_service"]])
+    return buses
+
+
+def _override_zero_injection(network: Network, config: SiteConfig, injecting: set[str],
+                             rel: str, log: ProblemLog) -> bool:
+    """Apply ``[network] zero_injection``/``not_zero_injection``; False on an unknown bus.
+    ``injecting``: buses the file gives load or generation (warned when declared zero)."""
+    flags = network.buses["zero_injection"].copy()
+    ok = True
+    for key, buses, value, line in zip(
+        ZERO_INJECTION_KEYS, (config.zero_injection, config.not_zero_injection),
+        (True, False), config.zero_injection_lines, strict=True,
+    ):
+        unknown = [b for b in buses if b not in flags.index]
+        if unknown:
+            log.error(SITE_FILE, line, key,
+                      "unknown bus " + ", ".join(f"'{b}'" for b in unknown) + f" (not in {rel})")
+            ok = False
+            continue
+        same = [b for b in buses if bool(flags[b]) == value]
+        if same:
+            log.warning(SITE_FILE, line, key,
+                        "bus " + ", ".join(same) + f" is {'already' if value else 'not'} "
+                        f"zero-injection by {rel}; nothing to override")
+        loaded = [b for b in buses if value and b in injecting]
+        if loaded:
+            log.warning(SITE_FILE, line, key,
+                        "bus " + ", ".join(loaded) + f" has load or generation in {rel}; "
+                        "it is held at zero injection as listed here")
+        flags.loc[list(buses)] = value
+    network.buses["zero_injection"] = flags.astype(bool)
+    return ok
 
 
 # ----------------------------------------------------------------------------- points
