@@ -23,11 +23,11 @@ from calibra.model.points import (
     QUANTITIES,
     REQUIRED_POINT_COLUMNS,
     STATUS_QUANTITY,
-    parse_ratio,
+    UNIT_SPELLINGS,
+    canonical_ratio,
 )
 
 POINTS_FILE = "points.csv"
-_UNITS = {u.lower(): u for spec in QUANTITIES.values() for u in spec["units"]}
 
 
 def read_points(
@@ -61,7 +61,7 @@ def read_points(
         "element": text_cells(t, "element", log, required=True),
         "end": choice_cells(t, "end", {e: e for e in ENDS}, log, required=False,
                             what="branch end"),
-        "unit": choice_cells(t, "unit", _UNITS, log, required=True, what="unit"),
+        "unit": choice_cells(t, "unit", UNIT_SPELLINGS, log, required=True, what="unit"),
         "full_scale": _scale_cells(t, "full_scale", quantity, log),
         "accuracy_pct": _scale_cells(t, "accuracy_pct", quantity, log),
     }
@@ -118,24 +118,17 @@ def _device_cells(t: RawTable, status: np.ndarray, log: ProblemLog) -> np.ndarra
 
 
 def _ratio_cells(t: RawTable, column: str, log: ProblemLog) -> np.ndarray:
-    """Instrument-transformer ratios such as ``1200:5`` (kept as text once checked)."""
+    """Instrument-transformer ratios written ``1200:5``, ``1200/5``, ``1200-5`` or with spaces,
+    kept in calibra's form ``1200:5`` once checked ("" where the cell is empty or bad)."""
     cells = text_cells(t, column, log, required=False)
-    checked: dict[str, bool] = {}
-    for i, text in enumerate(cells):
-        if text == "":
-            continue
-        if text not in checked:
-            try:
-                value = parse_ratio(text)
-                checked[text] = value is not None and bool(np.isfinite(value))
-            except ValueError:
-                checked[text] = False
-        if not checked[text]:
-            log.error(
-                t.file, int(t.rows[i]), column,
-                f"'{text}' is not a ratio of two positive numbers such as 1200:5",
-            )
-    return cells
+    written = {text: canonical_ratio(text) for text in set(cells)}
+    out = np.array([written[text] or "" for text in cells], dtype=object)
+    for i in np.flatnonzero(np.array([written[text] is None for text in cells], dtype=bool)):
+        log.error(
+            t.file, int(t.rows[i]), column,
+            f"'{cells[i]}' is not a ratio of two positive numbers such as 1200:5",
+        )
+    return out
 
 
 Columns = dict[str, np.ndarray]
