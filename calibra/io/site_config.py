@@ -5,9 +5,10 @@ from __future__ import annotations
 import re
 import tomllib
 import zoneinfo
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
+from calibra.io.points_config import POINTS_TABLE, PointsConfig, read_points_config
 from calibra.io.problems import ProblemLog
 from calibra.io.text_files import read_text
 
@@ -17,13 +18,15 @@ _KEYS = ("name", "base_mva", "frequency_hz", "timezone", "reference_bus")
 
 @dataclass(frozen=True)
 class SiteConfig:
-    """The ``[site]`` table; ``base_mva`` may be None when a CDF network supplies it."""
+    """The ``[site]`` table; ``base_mva`` may be None when a CDF network supplies it.
+    ``points``: the ``[points]`` table (sheet and column mapping of the point list)."""
 
     name: str
     base_mva: float | None
     frequency_hz: float
     timezone: str
     reference_bus: str | None
+    points: PointsConfig = field(default_factory=PointsConfig)
 
 
 def _line_of(text: str, key: str) -> int | None:
@@ -57,7 +60,7 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
         log.error(SITE_FILE, int(found.group(1)) if found else None, None, f"not valid TOML: {exc}")
         return None
     for key in doc:
-        if key != "site":
+        if key not in ("site", POINTS_TABLE):
             log.warning(SITE_FILE, _line_of(text, key), key, "unknown entry; ignored")
     site = doc.get("site")
     if not isinstance(site, dict):
@@ -96,4 +99,4 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
         log.error(SITE_FILE, _line_of(text, "timezone"), "timezone", why)
     if log.error_count() > start:
         return None
-    return SiteConfig(name, base, freq, tz, ref)
+    return SiteConfig(name, base, freq, tz, ref, read_points_config(doc, text, SITE_FILE, log))
