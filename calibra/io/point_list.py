@@ -1,4 +1,5 @@
-"""Reading ``points.csv``: what each telemetered point measures, where, and how well."""
+"""Reading the point list (``points.csv`` or a spreadsheet): what each telemetered point
+measures, where, and how well."""
 
 from __future__ import annotations
 
@@ -14,20 +15,20 @@ from calibra.io.cells import (
     number_cells,
     text_cells,
 )
+from calibra.io.point_source import POINT_LIST_FILES, POINTS_FILE, read_point_table
+from calibra.io.points_config import PointsConfig
 from calibra.io.problems import ProblemLog
-from calibra.io.text_files import RawTable, read_small_table
+from calibra.io.text_files import RawTable
 from calibra.model.points import (
     ENDS,
-    OPTIONAL_POINT_COLUMNS,
     POINT_COLUMNS,
     QUANTITIES,
-    REQUIRED_POINT_COLUMNS,
     STATUS_QUANTITY,
     UNIT_SPELLINGS,
     canonical_ratio,
 )
 
-POINTS_FILE = "points.csv"
+__all__ = ["POINT_LIST_FILES", "POINTS_FILE", "read_points"]
 
 
 def read_points(
@@ -35,9 +36,15 @@ def read_points(
     buses: pd.DataFrame | None,
     branches: pd.DataFrame | None,
     log: ProblemLog,
+    config: PointsConfig | None = None,
 ) -> tuple[pd.DataFrame | None, pd.Series]:
     """The point list indexed by tag (columns of ``POINT_COLUMNS``; None if unreadable) and
-    the spreadsheet row of each tag.
+    the spreadsheet row of each tag (its ``attrs``: ``file`` and ``tag_column`` as problems
+    name them, e.g. ``points.xlsx [Sheet1]`` and ``Point name (A)``).
+
+    ``config`` is the ``[points]`` table of ``site.toml`` (sheet, header mapping); the file is
+    ``points.csv`` or one spreadsheet (see :mod:`calibra.io.point_source`). Problems name the
+    column by the file's header where it is not calibra's name, with a spreadsheet's letter.
 
     ``buses`` and ``branches`` are for checking elements and substations (None when a table
     could not be read: its references are then not checked).
@@ -45,12 +52,20 @@ def read_points(
     without an end. A ``branch_status`` point may leave ``device`` empty (stored as "") and
     leave ``full_scale``/``accuracy_pct`` empty or give 0 (stored as NaN: not applicable).
     """
-    t = read_small_table(
-        folder / POINTS_FILE, POINTS_FILE, log, ["tag"] + REQUIRED_POINT_COLUMNS,
-        OPTIONAL_POINT_COLUMNS,
-    )
+    since = len(log.items)
+    t = read_point_table(folder, config or PointsConfig(), log)
     if t is None:
         return None, pd.Series(dtype=int)
+    points, rows = _points(t, buses, branches, log)
+    log.relabel(since, t.file, t.labels)
+    rows.attrs.update(file=t.file, tag_column=t.labels.get("tag", "tag"))
+    return points, rows
+
+
+def _points(
+    t: RawTable, buses: pd.DataFrame | None, branches: pd.DataFrame | None, log: ProblemLog
+) -> tuple[pd.DataFrame, pd.Series]:
+    """The checked point list of a table and the row of each kept tag."""
     tags = id_cells(t, "tag", log, "tag")
     quantity = choice_cells(
         t, "quantity", {q: q for q in QUANTITIES}, log, required=True, what="quantity"
