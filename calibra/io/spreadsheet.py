@@ -3,8 +3,10 @@
 python-calamine reads the values the file stores (a formula's last computed value, not its
 text). Each cell becomes the text a CSV export would hold: an integer-valued number without
 its ``.0`` (1200.0 → ``1200``), other numbers in their shortest round-trip form, dates and
-times in ISO 8601, true/false, empty cells ``""``. Rows keep the numbers the sheet shows:
-leading empty rows are skipped and the first non-empty row is the header.
+times in ISO 8601, true/false, empty cells ``""``. Rows keep the numbers the sheet shows.
+The header is the first row with two or more values: rows above it (empty, or one title
+cell) are not part of the table. A header of one cell could name no usable table, so the rule
+is unambiguous.
 """
 
 from __future__ import annotations
@@ -90,16 +92,22 @@ def read_sheet(
         return None
     file = f"{rel} [{name}]"
     rows = [[cell_text(v) for v in row] for row in values]
-    first = next((i for i, row in enumerate(rows) if any(rows[i])), None)
+    first = _header_index(rows)
     if first is None:
         log.error(file, None, None, "the sheet is empty")
         return None
     header = rows[first]
-    filled = [c for c in header if c]
-    if len(filled) == 1 and len(rows) > first + 1:
-        log.warning(file, first + 1, None,
-                    f"row {first + 1} holds only '{filled[0]}' and is read as the header: the "
-                    "column names must be in the first non-empty row")
     width = max(len(r) for r in rows)
     body = [(i + 1, row) for i, row in enumerate(rows) if i > first]
     return Sheet(file, first + 1, header, body, [column_letter(i) for i in range(width)])
+
+
+def _header_index(rows: list[list[str]]) -> int | None:
+    """The 0-based row of the header: the first with two or more values, else the first with
+    any (None for an empty sheet)."""
+    filled = [sum(1 for c in row if c) for row in rows]
+    for wanted in (2, 1):
+        found = next((i for i, n in enumerate(filled) if n >= wanted), None)
+        if found is not None:
+            return found
+    return None
