@@ -233,3 +233,11 @@ def test_column_letters_follow_the_a1_reference_style():
     # Against openpyxl's get_column_letter (A…Z, AA…, the ECMA-376 A1 style).
     for index in (0, 1, 25, 26, 27, 51, 52, 701, 702, 16383):
         assert column_letter(index) == get_column_letter(index + 1)
+
+
+def test_a_file_that_is_no_workbook_is_an_error_not_a_traceback(tmp_path):
+    root, _ = small_site(tmp_path)
+    # An .xlsx is a ZIP package (ECMA-376 Part 2, Open Packaging Conventions): text is not.
+    (root / "points.xlsx").write_text("tag,quantity\n")
+    problem = find(problems_of(root), "points.xlsx", None, None)
+    assert problem.message.startswith("cannot read the spreadsheet")
