@@ -32,7 +32,7 @@ from calibra.estimation.engine import LocalEngine
 from calibra.estimation.runtime import tune_allocator
 from calibra.estimation.week import SolverSettings
 from calibra.io import load_site
-from calibra.io.point_list import POINTS_FILE
+from calibra.io.point_list import POINT_LIST_FILES
 from calibra.io.site_config import SITE_FILE
 from calibra.io.site_folder import NETWORK_DIR
 from calibra.io.snapshots import SNAPSHOT_DIR
@@ -40,7 +40,7 @@ from calibra.model.site import SiteLoadError
 from calibra.review_period import select_period
 
 #: What a worker reads of a site folder (the ledger and anything else is left alone).
-SITE_ENTRIES = (SITE_FILE, POINTS_FILE, NETWORK_DIR, SNAPSHOT_DIR)
+SITE_ENTRIES = (SITE_FILE, *POINT_LIST_FILES, NETWORK_DIR, SNAPSHOT_DIR)
 #: Prepared periods kept per worker process (a month of IEEE 118 is about 400 MB each).
 MAX_CACHED = 2
 

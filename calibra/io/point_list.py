@@ -1,4 +1,5 @@
-"""Reading ``points.csv``: what each telemetered point measures, where, and how well."""
+"""Reading the point list (``points.csv`` or a spreadsheet): what each telemetered point
+measures, where, and how well."""
 
 from __future__ import annotations
 
@@ -14,20 +15,20 @@ from calibra.io.cells import (
     number_cells,
     text_cells,
 )
+from calibra.io.point_source import POINT_LIST_FILES, POINTS_FILE, read_point_table
+from calibra.io.points_config import PointsConfig
 from calibra.io.problems import ProblemLog
-from calibra.io.text_files import RawTable, read_small_table
+from calibra.io.text_files import RawTable
 from calibra.model.points import (
     ENDS,
-    OPTIONAL_POINT_COLUMNS,
     POINT_COLUMNS,
     QUANTITIES,
-    REQUIRED_POINT_COLUMNS,
     STATUS_QUANTITY,
-    parse_ratio,
+    UNIT_SPELLINGS,
+    canonical_ratio,
 )
 
-POINTS_FILE = "points.csv"
-_UNITS = {u.lower(): u for spec in QUANTITIES.values() for u in spec["units"]}
+__all__ = ["POINT_LIST_FILES", "POINTS_FILE", "read_points"]
 
 
 def read_points(
@@ -35,9 +36,15 @@ def read_points(
     buses: pd.DataFrame | None,
     branches: pd.DataFrame | None,
     log: ProblemLog,
+    config: PointsConfig | None = None,
 ) -> tuple[pd.DataFrame | None, pd.Series]:
     """The point list indexed by tag (columns of ``POINT_COLUMNS``; None if unreadable) and
-    the spreadsheet row of each tag.
+    the spreadsheet row of each tag (its ``attrs``: ``file`` and ``tag_column`` as problems
+    name them, e.g. ``points.xlsx [Sheet1]`` and ``Point name (A)``).
+
+    ``config`` is the ``[points]`` table of ``site.toml`` (sheet, header mapping); the file is
+    ``points.csv`` or one spreadsheet (see :mod:`calibra.io.point_source`). Problems name the
+    column by the file's header where it is not calibra's name, with a spreadsheet's letter.
 
     ``buses`` and ``branches`` are for checking elements and substations (None when a table
     could not be read: its references are then not checked).
@@ -45,12 +52,20 @@ def read_points(
     without an end. A ``branch_status`` point may leave ``device`` empty (stored as "") and
     leave ``full_scale``/``accuracy_pct`` empty or give 0 (stored as NaN: not applicable).
     """
-    t = read_small_table(
-        folder / POINTS_FILE, POINTS_FILE, log, ["tag"] + REQUIRED_POINT_COLUMNS,
-        OPTIONAL_POINT_COLUMNS,
-    )
+    since = len(log.items)
+    t = read_point_table(folder, config or PointsConfig(), log)
     if t is None:
         return None, pd.Series(dtype=int)
+    points, rows = _points(t, buses, branches, log)
+    log.relabel(since, t.file, t.labels)
+    rows.attrs.update(file=t.file, tag_column=t.labels.get("tag", "tag"))
+    return points, rows
+
+
+def _points(
+    t: RawTable, buses: pd.DataFrame | None, branches: pd.DataFrame | None, log: ProblemLog
+) -> tuple[pd.DataFrame, pd.Series]:
+    """The checked point list of a table and the row of each kept tag."""
     tags = id_cells(t, "tag", log, "tag")
     quantity = choice_cells(
         t, "quantity", {q: q for q in QUANTITIES}, log, required=True, what="quantity"
@@ -61,7 +76,7 @@ def read_points(
         "element": text_cells(t, "element", log, required=True),
         "end": choice_cells(t, "end", {e: e for e in ENDS}, log, required=False,
                             what="branch end"),
-        "unit": choice_cells(t, "unit", _UNITS, log, required=True, what="unit"),
+        "unit": choice_cells(t, "unit", UNIT_SPELLINGS, log, required=True, what="unit"),
         "full_scale": _scale_cells(t, "full_scale", quantity, log),
         "accuracy_pct": _scale_cells(t, "accuracy_pct", quantity, log),
     }
@@ -118,24 +133,17 @@ def _device_cells(t: RawTable, status: np.ndarray, log: ProblemLog) -> np.ndarra
 
 
 def _ratio_cells(t: RawTable, column: str, log: ProblemLog) -> np.ndarray:
-    """Instrument-transformer ratios such as ``1200:5`` (kept as text once checked)."""
+    """Instrument-transformer ratios written ``1200:5``, ``1200/5``, ``1200-5`` or with spaces,
+    kept in calibra's form ``1200:5`` once checked ("" where the cell is empty or bad)."""
     cells = text_cells(t, column, log, required=False)
-    checked: dict[str, bool] = {}
-    for i, text in enumerate(cells):
-        if text == "":
-            continue
-        if text not in checked:
-            try:
-                value = parse_ratio(text)
-                checked[text] = value is not None and bool(np.isfinite(value))
-            except ValueError:
-                checked[text] = False
-        if not checked[text]:
-            log.error(
-                t.file, int(t.rows[i]), column,
-                f"'{text}' is not a ratio of two positive numbers such as 1200:5",
-            )
-    return cells
+    written = {text: canonical_ratio(text) for text in set(cells)}
+    out = np.array([written[text] or "" for text in cells], dtype=object)
+    for i in np.flatnonzero(np.array([written[text] is None for text in cells], dtype=bool)):
+        log.error(
+            t.file, int(t.rows[i]), column,
+            f"'{cells[i]}' is not a ratio of two positive numbers such as 1200:5",
+        )
+    return out
 
 
 Columns = dict[str, np.ndarray]

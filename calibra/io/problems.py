@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import unicodedata
 from collections.abc import Iterable
+from dataclasses import replace
 
 from calibra.model.site import LoadProblem
 
@@ -70,6 +71,14 @@ class ProblemLog:
                 f"{message} (also in {len(rest)} more rows from this row on)",
                 severity, len(rest),
             ))
+
+    def relabel(self, since: int, file: str, labels: dict[str, str]) -> None:
+        """Name the columns of ``file``'s problems from position ``since`` on by ``labels``
+        (calibra's column name → the column as the file shows it)."""
+        for i in range(since, len(self.items)):
+            p = self.items[i]
+            if p.file == file and p.column in labels:
+                self.items[i] = replace(p, column=one_line(labels[p.column]))
 
     @property
     def has_errors(self) -> bool:

@@ -7,9 +7,10 @@ from __future__ import annotations
 import re
 import tomllib
 import zoneinfo
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
+from calibra.io.points_config import POINTS_TABLE, PointsConfig, read_points_config
 from calibra.io.problems import ProblemLog
 from calibra.io.text_files import read_text
 
@@ -23,7 +24,8 @@ ZERO_INJECTION_KEYS = ("zero_injection", "not_zero_injection")
 class SiteConfig:
     """The ``[site]`` table; ``base_mva`` may be None when a CDF or MATPOWER network supplies
     it. ``zero_injection``/``not_zero_injection``: bus ids from ``[network]`` with their
-    ``site.toml`` line (None when not given)."""
+    ``site.toml`` line (None when not given). ``points``: the ``[points]`` table (sheet and
+    column mapping of the point list)."""
 
     name: str
     base_mva: float | None
@@ -33,6 +35,7 @@ class SiteConfig:
     zero_injection: tuple[str, ...] = ()
     not_zero_injection: tuple[str, ...] = ()
     zero_injection_lines: tuple[int | None, int | None] = (None, None)
+    points: PointsConfig = field(default_factory=PointsConfig)
 
 
 def _line_of(text: str, key: str) -> int | None:
@@ -66,7 +69,7 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
         log.error(SITE_FILE, int(found.group(1)) if found else None, None, f"not valid TOML: {exc}")
         return None
     for key in doc:
-        if key not in ("site", NETWORK_TABLE):
+        if key not in ("site", NETWORK_TABLE, POINTS_TABLE):
             log.warning(SITE_FILE, _line_of(text, key), key, "unknown entry; ignored")
     site = doc.get("site")
     if not isinstance(site, dict):
@@ -107,7 +110,8 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
     if log.error_count() > start:
         return None
     lines = tuple(_line_of(text, key) for key in ZERO_INJECTION_KEYS)
-    return SiteConfig(name, base, freq, tz, ref, lists[0], lists[1], lines)
+    return SiteConfig(name, base, freq, tz, ref, lists[0], lists[1], lines,
+                      read_points_config(doc, text, SITE_FILE, log))
 
 
 def _zero_injection_lists(table, text: str, log: ProblemLog) -> tuple[tuple[str, ...], ...]:

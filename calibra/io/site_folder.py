@@ -1,4 +1,4 @@
-"""Loading a site folder: ``site.toml``, the network, ``points.csv`` and ``snapshots/``.
+"""Loading a site folder: ``site.toml``, the network, the point list and ``snapshots/``.
 
 The folder format is documented in ``sample_site/README.md``. Every problem found is a
 :class:`~calibra.model.site.LoadProblem` naming the file (relative to the site folder), the
@@ -85,7 +85,8 @@ def _read_base(folder: Path, memory_limit: int | None, log: ProblemLog):
         limit = None
     config = read_site_config(folder, log)
     network, buses, branches = _read_network(folder, config, log)
-    points, point_rows = read_points(folder, buses, branches, log)
+    points, point_rows = read_points(folder, buses, branches, log,
+                                     config.points if config is not None else None)
     return config, network, points, point_rows, limit
 
 
@@ -306,6 +307,7 @@ def _report_points_without_data(
     present = snapshots.notna().any(axis=0)
     for tag in points.index[~present.reindex(points.index, fill_value=False).to_numpy()]:
         log.warning(
-            POINTS_FILE, int(rows.get(tag, 0)) or None, "tag",
+            rows.attrs.get("file", POINTS_FILE), int(rows.get(tag, 0)) or None,
+            rows.attrs.get("tag_column", "tag"),
             f"point '{tag}' has no values in the snapshot files",
         )

@@ -10,7 +10,8 @@ import csv
 import gzip
 import io
 import re
-from dataclasses import dataclass
+from collections.abc import Callable
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -115,17 +116,19 @@ def read_csv_text(path: Path, rel: str, log: ProblemLog) -> tuple[str, Dialect] 
 
 @dataclass
 class RawTable:
-    """A CSV table read as stripped text.
+    """A table read as stripped text (from CSV or a spreadsheet sheet).
 
     ``columns`` maps each named header column (lower-cased; a required column that is missing
     from the file is absent here too) to its cells, a numpy array of ``str``; ``rows`` holds
-    the spreadsheet row number of each record.
+    the spreadsheet row number of each record; ``labels`` the column as problems name it where
+    that is not calibra's name (a header alias, a spreadsheet column letter).
     """
 
     file: str
     columns: dict[str, np.ndarray]
     rows: np.ndarray
     dialect: Dialect
+    labels: dict[str, str] = field(default_factory=dict)
 
     def has(self, column: str) -> bool:
         return column in self.columns
@@ -136,15 +139,22 @@ class RawTable:
         return found if found is not None else np.full(len(self.rows), "", dtype=object)
 
 
-def read_small_table(
-    path: Path, rel: str, log: ProblemLog, required: list[str], optional: list[str]
-) -> RawTable | None:
-    """Read a CSV table of the network or point list and check its header.
+#: Calibra's column name for each header cell (None: a column already reported and not
+#: read); the default lower-cases the header.
+HeaderNames = Callable[[list[str]], list[str | None]]
 
-    Missing required columns and duplicate column names are errors; unknown columns are
-    warnings (ignored); values beyond the last named column are errors. Returns None only
-    when there is nothing to read (missing, unreadable or empty file, or no data rows).
-    """
+
+def _lower_names(header: list[str]) -> list[str | None]:
+    return [h.strip().lower() for h in header]
+
+
+def read_small_table(
+    path: Path, rel: str, log: ProblemLog, required: list[str], optional: list[str],
+    names: HeaderNames = _lower_names,
+) -> RawTable | None:
+    """Read a CSV table of the network or point list and check its header (see
+    :func:`table_from_records`). Returns None only when there is nothing to read (missing,
+    unreadable or empty file, or no data rows)."""
     if not path.is_file():
         log.error(rel, None, None, "file not found")
         return None
@@ -159,11 +169,35 @@ def read_small_table(
     except csv.Error as exc:  # e.g. a cell longer than the csv module's field limit
         log.error(rel, len(records) + 1, None, f"not readable as CSV: {exc}")
         return None
-    header = [h.strip().lower() for h in records[0]]
+    body = list(enumerate(records[1:], start=2))
+    header = [h.strip() for h in records[0]]
+    return table_from_records(rel, header, 1, body, dialect, log, required, optional,
+                              names=names)
+
+
+def table_from_records(
+    rel: str,
+    header: list[str],
+    header_row: int,
+    body: list[tuple[int, list[str]]],
+    dialect: Dialect,
+    log: ProblemLog,
+    required: list[str],
+    optional: list[str],
+    *,
+    names: HeaderNames = _lower_names,
+    letters: list[str] | None = None,
+) -> RawTable | None:
+    """The table of a header and its records (row number, cells) with the header checked.
+
+    Missing required columns and duplicate column names are errors; unknown columns are
+    warnings (ignored); values beyond the last named column are errors. ``letters`` (a
+    spreadsheet's column letters) are added to the column names problems give.
+    """
     width = len(header)
     values: list[list[str]] = []
     rows: list[int] = []
-    for number, record in enumerate(records[1:], start=2):
+    for number, record in body:
         cells = [c.strip() for c in record]
         if not any(cells):
             continue
@@ -180,24 +214,43 @@ def read_small_table(
         log.error(rel, None, None, "the table has a header but no data rows")
         return None
     data = np.array(values, dtype=object).reshape(len(values), width)
+    read_as = names(header)
     keep: dict[int, str] = {}
     seen: dict[str, int] = {}
-    for pos, name in enumerate(header):
+    for pos, name in enumerate(read_as):
+        if name is None:
+            continue
         if name == "":
             if (data[:, pos] != "").any():
-                log.error(rel, 1, None, f"column {pos + 1} has values but no name in the header")
+                log.error(rel, header_row, None,
+                          f"column {pos + 1} has values but no name in the header")
         elif name in seen:
-            log.error(rel, 1, name, f"column appears twice (columns {seen[name]} and {pos + 1})")
+            first = seen[name] - 1
+            if header[first].lower() == header[pos].lower():
+                message = f"column appears twice (columns {first + 1} and {pos + 1})"
+            else:
+                message = (f"columns {first + 1} ('{header[first]}') and {pos + 1} "
+                           f"('{header[pos]}') both read as {name}; keep one, or name the "
+                           f"one to read in site.toml ([points.columns] {name} = \"…\")")
+            log.error(rel, header_row, name, message)
         else:
             seen[name] = pos + 1
             keep[pos] = name
     for name in required:
         if name not in seen:
-            log.error(rel, 1, name, "required column is missing")
+            log.error(rel, header_row, name, "required column is missing")
     known = set(required) | set(optional)
     for name in seen:
         if name not in known:
-            log.warning(rel, 1, name, "unknown column; ignored")
+            log.warning(rel, header_row, name if letters is None
+                        else f"{header[seen[name] - 1]} ({letters[seen[name] - 1]})",
+                        "unknown column; ignored")
             keep = {p: n for p, n in keep.items() if n != name}
     columns = {name: data[:, pos] for pos, name in keep.items()}
-    return RawTable(rel, columns, np.asarray(rows, dtype=int), dialect)
+    labels = {}
+    for pos, name in keep.items():
+        shown = header[pos] if header[pos].lower() != name else name
+        label = shown if letters is None else f"{shown} ({letters[pos]})"
+        if label != name:
+            labels[name] = label
+    return RawTable(rel, columns, np.asarray(rows, dtype=int), dialect, labels)

@@ -5,6 +5,8 @@ A point list is a DataFrame indexed by ``tag`` with the columns of :data:`POINT_
 
 from __future__ import annotations
 
+import re
+
 import numpy as np
 import pandas as pd
 
@@ -20,6 +22,19 @@ QUANTITIES: dict[str, dict] = {
     "p_injection": {"element": "bus", "end": False, "units": ("MW",), "family": "power"},
     "q_injection": {"element": "bus", "end": False, "units": ("Mvar",), "family": "power"},
     "v_magnitude": {"element": "bus", "end": False, "units": ("kV",), "family": "voltage"},
+}
+
+
+#: Spellings of the units a point list may use, each to its canonical unit of
+#: :data:`QUANTITIES` (matched ignoring case; common practice, no source). The one
+#: unit table of calibra: every canonical unit is its own spelling.
+UNIT_SPELLINGS: dict[str, str] = {
+    **{u.lower(): u for spec in QUANTITIES.values() for u in spec["units"]},
+    "megawatt": "MW", "megawatts": "MW",
+    "mvars": "Mvar", "mvr": "Mvar", "megavar": "Mvar", "megavars": "Mvar",
+    "kilovolt": "kV", "kilovolts": "kV",
+    "amp": "A", "amps": "A", "ampere": "A", "amperes": "A",
+    "state": "status",
 }
 
 
@@ -144,14 +159,35 @@ def status_points(points: pd.DataFrame) -> pd.DataFrame:
     return points[points["quantity"] == STATUS_QUANTITY]
 
 
-def parse_ratio(text) -> float | None:
-    """Primary/secondary of a ratio string such as ``"1200:5"`` (None when empty)."""
+#: An instrument-transformer ratio as written: primary and secondary, positive decimals,
+#: separated by ``:``, ``/`` or ``-`` with optional spaces (``1200:5``, ``1200/5``,
+#: ``1200 - 5``, ``132000/110``). The one ratio parser of calibra.
+_NUMBER = r"(?:\d+(?:\.\d*)?|\.\d+)(?:[eE]\+?\d+)?"
+_RATIO = re.compile(rf"^\s*({_NUMBER})\s*[:/-]\s*({_NUMBER})\s*$")
+
+
+def canonical_ratio(text) -> str | None:
+    """A ratio in calibra's written form ``primary:secondary`` (each number as written), ""
+    for an empty cell, None when ``text`` is not a ratio of two positive numbers."""
     if text is None or (isinstance(text, float) and np.isnan(text)) or str(text).strip() == "":
+        return ""
+    match = _RATIO.match(str(text))
+    if match is None:
         return None
-    parts = str(text).replace("/", ":").split(":")
-    if len(parts) != 2:
-        raise ValueError(f"ratio {text!r} is not of the form primary:secondary")
-    prim, sec = float(parts[0]), float(parts[1])
-    if prim <= 0 or sec <= 0:
-        raise ValueError(f"ratio {text!r} must have positive primary and secondary")
-    return prim / sec
+    prim, sec = match.groups()
+    if not float(prim) > 0 or not float(sec) > 0 or not np.isfinite(float(prim) / float(sec)):
+        return None
+    return f"{prim}:{sec}"
+
+
+def parse_ratio(text) -> float | None:
+    """Primary/secondary of a ratio string such as ``"1200:5"`` (None when empty); see
+    :func:`canonical_ratio` for the spellings accepted. Raises ValueError otherwise."""
+    written = canonical_ratio(text)
+    if written is None:
+        raise ValueError(f"ratio {text!r} is not of the form primary:secondary with positive "
+                         "numbers")
+    if written == "":
+        return None
+    prim, sec = written.split(":")
+    return float(prim) / float(sec)
