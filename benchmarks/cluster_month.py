@@ -47,7 +47,7 @@ def build(folder: Path, days: int, seed: int) -> float:
     import pypower.api as pp
 
     from calibra.simulate.case import grid_case_from_matpower
-    from calibra.simulate.pointlist import make_point_list
+    from calibra.simulate.metering import make_point_list
     from calibra.simulate.telemetry import simulate_site
     from calibra.simulate.writer import write_site
 

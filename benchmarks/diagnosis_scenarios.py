@@ -35,7 +35,7 @@ from process_memory import PeakMemory  # noqa: E402  (benchmarks/ is on the path
 
 from calibra.diagnosis.findings import findings_table  # noqa: E402
 from calibra.diagnosis.review import review_site  # noqa: E402
-from calibra.simulate.pointlist import MeteringOptions  # noqa: E402
+from calibra.simulate.metering import MeteringOptions  # noqa: E402
 from calibra.simulate.telemetry import TelemetryOptions  # noqa: E402
 from tests.diagnosis.scenarios import detectable_faults, generated_scenario  # noqa: E402
 from tests.diagnosis.scoring import score  # noqa: E402

@@ -35,7 +35,7 @@ def build(folder: Path, days: int) -> float:
     import pypower.api as pp
 
     from calibra.simulate.case import grid_case_from_matpower
-    from calibra.simulate.pointlist import MeteringOptions, make_point_list
+    from calibra.simulate.metering import MeteringOptions, make_point_list
     from calibra.simulate.telemetry import TelemetryOptions, simulate_site
     from calibra.simulate.writer import write_site
 

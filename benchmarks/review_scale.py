@@ -28,7 +28,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from process_memory import tree_pss_mb  # noqa: E402  (benchmarks/ is on the path as a script)
 
-from calibra.simulate.pointlist import MeteringOptions  # noqa: E402
+from calibra.simulate.metering import MeteringOptions  # noqa: E402
 from calibra.simulate.writer import write_site  # noqa: E402
 from tests.diagnosis.scenarios import detectable_faults, generated_scenario  # noqa: E402
 from tests.diagnosis.scoring import score  # noqa: E402

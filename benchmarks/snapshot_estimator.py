@@ -22,8 +22,8 @@ from pypower.api import case118, ppoption, runpf
 from scipy.optimize import least_squares
 
 import calibra  # noqa: F401  (single-threaded BLAS)
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.measurements import StateLayout
-from calibra.estimation.model import MeasurementModel
 from calibra.estimation.wls import Estimator
 from calibra.model.network import network_from_matpower
 

@@ -26,8 +26,8 @@ from process_memory import PeakMemory  # benchmarks/ is on the path when run as 
 from scipy.optimize import least_squares
 
 import calibra  # noqa: F401  (single-threaded BLAS)
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.measurements import StateLayout
-from calibra.estimation.model import MeasurementModel
 from calibra.estimation.topology import topology_per_snapshot
 from calibra.estimation.week import estimate_period
 from calibra.estimation.wls import Estimator
@@ -39,7 +39,7 @@ FULL = dict(branch_end_coverage=1.0, current_share=0.0, injection_coverage=1.0,
 def build(case: str):
     """(site, description) for a benchmark case."""
     from calibra.simulate.case import grid_case_from_matpower
-    from calibra.simulate.pointlist import MeteringOptions, make_point_list
+    from calibra.simulate.metering import MeteringOptions, make_point_list
     from calibra.simulate.telemetry import TelemetryOptions, simulate_site
 
     if case == "sample":

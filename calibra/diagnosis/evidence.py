@@ -32,7 +32,7 @@ from calibra.diagnosis.suspects import (
     pick_suspects,
 )
 from calibra.estimation.engine import LocalEngine, PeriodEngine
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.probes import ProbeSet
 from calibra.estimation.residuals import CRITICAL_S, ResidualAnalysis, analyse_residuals

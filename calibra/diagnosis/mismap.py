@@ -13,8 +13,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from calibra.estimation.measurement_model import SQRT3
 from calibra.estimation.measurements import QUANTITY_CODE, MeasurementFunctions
-from calibra.estimation.model import SQRT3
 from calibra.model.network import Network
 from calibra.model.points import (
     BRANCH_END_QUANTITIES,

@@ -25,8 +25,8 @@ from calibra.diagnosis.mismap import (
     substation_quantities,
 )
 from calibra.estimation.covariance import quadratic_diagonal
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.measurements import P_FLOW, P_INJ, Q_FLOW, Q_INJ, V_MAG
-from calibra.estimation.model import MeasurementModel
 from calibra.estimation.observability import (
     Observability,
     ObservabilityStructure,

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from calibra.estimation.block_parts import observability_counts
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.period import prepare_period
 from calibra.estimation.week import PeriodResult, SolverSettings, estimate_period
 from calibra.estimation.wls import Estimator

@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.topology import StatusConflict, checked_topology
 from calibra.estimation.wls import Estimator
 from calibra.model.site import Site

@@ -21,8 +21,8 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.measurements import V_MAG, MeasurementFunctions, StateLayout
-from calibra.estimation.model import MeasurementModel
 from calibra.estimation.observability import (
     Observability,
     ObservabilityStructure,

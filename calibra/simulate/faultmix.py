@@ -24,7 +24,7 @@ from calibra.model.points import (
     parse_ratio,
 )
 from calibra.simulate.faults import FAULT_KINDS, FaultSpec
-from calibra.simulate.pointlist import CT_SECONDARY_A, MULTI_RATIO_CT_TAPS
+from calibra.simulate.metering import CT_SECONDARY_A, MULTI_RATIO_CT_TAPS
 
 DEFAULT_MIX = FAULT_KINDS
 

@@ -30,7 +30,7 @@ from calibra.model.points import FLOW_QUANTITIES, INJECTION_QUANTITIES
 from calibra.simulate.case import GridCase
 from calibra.simulate.faultmix import wrong_ct_taps
 from calibra.simulate.faults import FaultSpec
-from calibra.simulate.pointlist import CT_SECONDARY_A, MeteringOptions, make_point_list
+from calibra.simulate.metering import CT_SECONDARY_A, MeteringOptions, make_point_list
 from calibra.simulate.profiles import PlannedOutage
 from calibra.simulate.telemetry import SimulationResult, TelemetryOptions, simulate_site
 from calibra.simulate.writer import write_site

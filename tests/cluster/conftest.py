@@ -16,7 +16,7 @@ import pytest
 
 from calibra.cluster import start_local_cluster
 from calibra.estimation.engine import LocalEngine
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.topology import checked_topology
 from calibra.estimation.week import SolverSettings

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 
 from calibra.simulate.case import grid_case_from_matpower
-from calibra.simulate.pointlist import MeteringOptions, make_point_list
+from calibra.simulate.metering import MeteringOptions, make_point_list
 from calibra.simulate.telemetry import SimulationResult, TelemetryOptions, simulate_site
 from tests.published import PUBLISHED, published_grid_case
 

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.model.network import Network, network_from_matpower
 
 

@@ -16,7 +16,7 @@ from calibra.estimation.daywise import (
     normalized_residuals,
     utc_days,
 )
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.topology import checked_topology
 from calibra.estimation.week import estimate_period
 from calibra.estimation.wls import Estimator

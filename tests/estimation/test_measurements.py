@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 from pypower.api import case14
 
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.measurements import StateLayout
-from calibra.estimation.model import MeasurementModel
 from tests.estimation.conftest import full_point_list, model_and_truth, solve_with_pypower
 
 # Published IEEE 14-bus solved state (UW Power Systems Test Case Archive, ieee14cdf.txt),

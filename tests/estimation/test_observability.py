@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 import scipy.linalg as la
 
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.wls import Estimator
-from calibra.simulate.pointlist import MeteringOptions, make_point_list
+from calibra.simulate.metering import MeteringOptions, make_point_list
 from tests.published import published_case, published_grid_case
 
 pytest.importorskip("pandapower")

@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.stats import chi2
 
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.residuals import analyse_residuals, identify_bad_data
 from calibra.estimation.wls import Estimator
 from tests.estimation.conftest import full_point_list, model_and_truth

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.residuals import analyse_residuals
 from calibra.estimation.week import BlockSolver
 from calibra.estimation.wls import Estimator

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from scipy.optimize import least_squares
 
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.measurements import StateLayout
-from calibra.estimation.model import MeasurementModel
 from calibra.estimation.wls import Estimator, EstimatorOptions
 from calibra.model.network import Network
 from tests.estimation.conftest import full_point_list, model_and_truth

@@ -15,7 +15,7 @@ from calibra.io import load_site
 from calibra.io.matpower import read_matpower
 from calibra.simulate.case import GridCase
 from calibra.simulate.faults import FaultSpec
-from calibra.simulate.pointlist import MeteringOptions, make_point_list
+from calibra.simulate.metering import MeteringOptions, make_point_list
 from calibra.simulate.telemetry import TelemetryOptions, simulate_site
 from calibra.simulate.writer import write_points, write_snapshots
 from tests.io.site_builder import SITE_TOML, Table, find, problems_of

@@ -23,7 +23,7 @@ import pandas as pd
 from calibra.model.network import Network
 from calibra.model.site import Site
 from calibra.simulate.case import GridCase
-from calibra.simulate.pointlist import MeteringOptions, make_point_list
+from calibra.simulate.metering import MeteringOptions, make_point_list
 from calibra.simulate.telemetry import TelemetryOptions, simulate_site
 from calibra.simulate.writer import write_network, write_points, write_site_toml
 

@@ -21,7 +21,7 @@ from calibra.cli import main
 from calibra.io import load_site
 from calibra.simulate.case import GridCase
 from calibra.simulate.faults import FaultSpec
-from calibra.simulate.pointlist import MeteringOptions, make_point_list
+from calibra.simulate.metering import MeteringOptions, make_point_list
 from calibra.simulate.telemetry import TelemetryOptions, simulate_site
 from calibra.simulate.writer import write_site
 from tests.io.site_builder import real_model_files

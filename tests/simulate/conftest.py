@@ -4,7 +4,7 @@ import pytest
 from pypower.api import case57, case118
 
 from calibra.simulate.case import grid_case_from_matpower
-from calibra.simulate.pointlist import make_point_list
+from calibra.simulate.metering import make_point_list
 from calibra.simulate.telemetry import TelemetryOptions, simulate_site
 
 

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy.stats import norm
 
-from calibra.estimation.model import MeasurementModel
+from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.topology import topology_per_snapshot
 from calibra.estimation.week import estimate_period
 from calibra.estimation.wls import Estimator

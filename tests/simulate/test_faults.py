@@ -7,7 +7,7 @@ import pytest
 from calibra.model.points import default_sigma
 from calibra.simulate.faultmix import random_faults, wrong_ct_taps
 from calibra.simulate.faults import FAULT_KINDS, FaultSpec, apply_faults
-from calibra.simulate.pointlist import MULTI_RATIO_CT_TAPS, make_point_list
+from calibra.simulate.metering import MULTI_RATIO_CT_TAPS, make_point_list
 from calibra.simulate.telemetry import TelemetryOptions, simulate_site
 
 

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from calibra.model.points import POINT_COLUMNS, QUANTITIES, parse_ratio
-from calibra.simulate.pointlist import (
+from calibra.simulate.metering import (
     MULTI_RATIO_CT_TAPS,
     SINGLE_RATIO_CT_PRIMARIES,
     MeteringOptions,

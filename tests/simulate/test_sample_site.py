@@ -9,7 +9,7 @@ import pytest
 
 from calibra.io.site_folder import load_site
 from calibra.model.points import parse_ratio
-from calibra.simulate.pointlist import MULTI_RATIO_CT_TAPS
+from calibra.simulate.metering import MULTI_RATIO_CT_TAPS
 from calibra.simulate.redundancy import redundancy_report
 from calibra.simulate.sample_site import COMMISSIONING, simulate_sample, tarrowmere_case
 from calibra.simulate.writer import TRUTH_FILE

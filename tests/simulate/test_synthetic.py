@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from pypower.api import case14
 
-from calibra.simulate.pointlist import MeteringOptions, make_point_list
+from calibra.simulate.metering import MeteringOptions, make_point_list
 from calibra.simulate.synthetic import joined_copies
 
 

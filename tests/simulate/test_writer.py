@@ -5,7 +5,7 @@ import pandas as pd
 import pyarrow.parquet as pq
 
 from calibra.io.site_folder import load_site
-from calibra.simulate.pointlist import make_point_list
+from calibra.simulate.metering import make_point_list
 from calibra.simulate.telemetry import simulate_site
 from calibra.simulate.writer import TRUTH_FILE, write_site
 
