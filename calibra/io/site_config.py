@@ -9,6 +9,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from calibra.io.problems import ProblemLog
+from calibra.io.snapshot_settings import SnapshotSettings, read_snapshot_settings
 from calibra.io.text_files import read_text
 
 SITE_FILE = "site.toml"
@@ -24,6 +25,7 @@ class SiteConfig:
     frequency_hz: float
     timezone: str
     reference_bus: str | None
+    snapshots: SnapshotSettings = SnapshotSettings()  # [snapshots]
 
 
 def _line_of(text: str, key: str) -> int | None:
@@ -57,7 +59,7 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
         log.error(SITE_FILE, int(found.group(1)) if found else None, None, f"not valid TOML: {exc}")
         return None
     for key in doc:
-        if key != "site":
+        if key not in ("site", "snapshots"):
             log.warning(SITE_FILE, _line_of(text, key), key, "unknown entry; ignored")
     site = doc.get("site")
     if not isinstance(site, dict):
@@ -94,6 +96,8 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
     ref = value("reference_bus", "text", required=False)
     if tz is not None and (why := check_timezone(tz)):
         log.error(SITE_FILE, _line_of(text, "timezone"), "timezone", why)
+    snapshots = read_snapshot_settings(doc.get("snapshots", {}), SITE_FILE,
+                                       lambda key: _line_of(text, key), log)
     if log.error_count() > start:
         return None
-    return SiteConfig(name, base, freq, tz, ref)
+    return SiteConfig(name, base, freq, tz, ref, snapshots)
