@@ -132,6 +132,7 @@ class Reading:
     log: ProblemLog
     known: bool  # tags come from the point list (others are reported)
     files: list[str] = field(default_factory=list)
+    texts: dict[tuple[int, int], str] = field(default_factory=dict)
 
 
 def read_samples(paths: list[Path], layouts: list[LongLayout], points: pd.DataFrame | None,
@@ -174,12 +175,14 @@ def _chunks(path: Path, layout: LongLayout, window: Period,
     _, dialect, encoding = header_of(path) or ([], Dialect(), "utf-8-sig")
     with _open_text(path, encoding) as handle:
         reader = pd.read_csv(handle, sep=dialect.sep, header=None, skiprows=1, usecols=wanted,
-                             dtype=str, keep_default_na=False, skip_blank_lines=False,
-                             index_col=False, chunksize=CHUNK_ROWS, engine="c")
+                             dtype={k: str for k in wanted if k != layout.value},
+                             decimal=dialect.decimal, keep_default_na=False, na_values=[""],
+                             skip_blank_lines=False, index_col=False, chunksize=CHUNK_ROWS,
+                             engine="c", low_memory=False)
         with reader:
             for chunk in reader:
                 chunk = chunk[wanted]
-                if dialect.decimal != ".":
+                if chunk.iloc[:, 2].dtype == object and dialect.decimal != ".":
                     chunk.iloc[:, 2] = chunk.iloc[:, 2].str.replace(dialect.decimal, ".")
                 yield chunk, chunk.index.to_numpy() + 2
 
@@ -224,7 +227,7 @@ def _chunk(chunk: pd.DataFrame, rows: np.ndarray, number: int, rel: str, layout:
            ctx: Reading, samples: Samples) -> None:
     """One chunk checked and its kept samples added."""
     names = layout.names
-    tag = chunk.iloc[:, 0].astype(str).str.strip().where(chunk.iloc[:, 0].notna(), "")
+    tag = _stripped(chunk.iloc[:, 0])
     raw_value = chunk.iloc[:, 2]
     numeric = pd.api.types.is_numeric_dtype(raw_value.dtype)
     value_text = (pd.Series("", index=chunk.index) if numeric else
@@ -236,14 +239,13 @@ def _chunk(chunk: pd.DataFrame, rows: np.ndarray, number: int, rel: str, layout:
         codes = pd.Series("", index=chunk.index)
     else:
         codes = chunk.iloc[:, 3]
-    sub = ProblemLog()
-    times = parse_times(chunk.iloc[:, 1].reset_index(drop=True), rows, ctx.timezone, rel, sub)
+    times, sub = _times(chunk.iloc[:, 1], rows, ctx.timezone, rel)
     for p in sub.items:  # the time column by its own name
         ctx.log.add(p if p.column != "timestamp" else type(p)(
             p.file, p.row, names[layout.time], p.message, p.severity, p.count))
     timed = np.asarray(times.notna())
-    untimed = ~timed & ~blank & ~_stamp_empty(chunk.iloc[:, 1])
-    no_time = ~timed & ~blank & ~untimed
+    no_time = ~timed & ~blank
+    no_time[no_time] = _stamp_empty(chunk.iloc[:, 1][no_time])  # unparsed ones are reported
     if no_time.any():
         ctx.log.per_row(rel, rows[no_time], names[layout.time],
                         "a sample without a time; row skipped")
@@ -255,7 +257,7 @@ def _chunk(chunk: pd.DataFrame, rows: np.ndarray, number: int, rel: str, layout:
     if not keep.any():
         return
     tag, rows, times = tag[keep], rows[keep], times[keep]
-    positions = _positions(tag.to_numpy(dtype=str), rows, number, ctx, samples)
+    positions = _positions(tag.to_numpy(), rows, number, ctx, samples)
     known = positions >= 0
     if numeric:
         value = raw_value.to_numpy(dtype=np.float64, na_value=np.nan)[keep]
@@ -277,13 +279,13 @@ def _chunk(chunk: pd.DataFrame, rows: np.ndarray, number: int, rel: str, layout:
     reason[(reason == OK) & status & finite & (value != 0) & (value != 1)] = BAD_STATUS
     value = np.where(finite, value, np.nan)
     validity = np.where(reason == OK, validity, np.int8(Validity.BAD)).astype(np.int8)
-    quoted = {UNKNOWN_CODE: codes[keep].astype(str).to_numpy(),
-              NOT_A_NUMBER: (value_text[keep].to_numpy(dtype=str) if not numeric
-                             else raw_value[keep].astype(str).to_numpy()),
-              BAD_STATUS: np.char.mod("%g", np.nan_to_num(value))}
+    quoted = {UNKNOWN_CODE: codes[keep].to_numpy(),
+              NOT_A_NUMBER: (value_text if not numeric else raw_value)[keep].to_numpy(),
+              BAD_STATUS: value}
     for why, texts in quoted.items():
         for k in np.flatnonzero(known & (reason == why)):
-            samples.texts.setdefault((int(positions[k]), why), str(texts[k]))
+            text = f"{texts[k]:g}" if why == BAD_STATUS else str(texts[k])
+            samples.texts.setdefault((int(positions[k]), why), text)
     samples.tag.append(positions[known].astype(np.int32))
     samples.time.append(times.asi8[known])
     samples.value.append(value[known])
@@ -291,6 +293,32 @@ def _chunk(chunk: pd.DataFrame, rows: np.ndarray, number: int, rel: str, layout:
     samples.source.append(np.where(reason == OK, source, np.int8(Source.PROCESS))[known])
     samples.reason.append(reason[known])
     samples.seq.append((np.int64(number) << SEQ_ROW_BITS) + rows[known].astype(np.int64))
+
+
+def _stripped(cells: pd.Series) -> pd.Series:
+    """Text cells without surrounding spaces ('' for none), each distinct text once."""
+    codes, uniques = pd.factorize(cells, use_na_sentinel=True)
+    clean = np.array([str(u).strip() for u in uniques] + [""], dtype=object)
+    return pd.Series(clean[codes], index=cells.index)
+
+
+def _times(stamps: pd.Series, rows: np.ndarray, timezone: str,
+           rel: str) -> tuple[pd.DatetimeIndex, ProblemLog]:
+    """UTC times of the cells: each distinct text parsed once (a long export repeats every
+    time for every point); when that finds a problem, every row again so that each problem
+    names its own rows."""
+    codes, uniques = pd.factorize(stamps.reset_index(drop=True), use_na_sentinel=True)
+    sub = ProblemLog()
+    if len(uniques) < len(stamps):
+        first = np.full(len(uniques), -1, np.int64)
+        seen = codes >= 0
+        first[codes[seen][::-1]] = np.flatnonzero(seen)[::-1]
+        parsed = parse_times(pd.Series(uniques), rows[first], timezone, rel, sub)
+        if not sub.items:
+            values = np.r_[parsed.asi8, np.iinfo(np.int64).min][codes]
+            return pd.DatetimeIndex(values.view("M8[ns]")).tz_localize("UTC"), sub
+        sub = ProblemLog()
+    return parse_times(stamps.reset_index(drop=True), rows, timezone, rel, sub), sub
 
 
 def _stamp_empty(stamps: pd.Series) -> np.ndarray:
@@ -313,7 +341,7 @@ def _inside(times: pd.DatetimeIndex, window: Period) -> np.ndarray:
 def _positions(tags: np.ndarray, rows: np.ndarray, number: int, ctx: Reading,
                samples: Samples) -> np.ndarray:
     """The tag position of every sample; -1 for a tag not in the point list (counted)."""
-    uniques, inverse = np.unique(tags, return_inverse=True)
+    inverse, uniques = pd.factorize(tags)
     out = np.empty(len(uniques), np.int64)
     for k, name in enumerate(uniques):
         name = str(name)

@@ -146,8 +146,8 @@ def classify_column(codes: pd.Series, custom: Mapping[str, Quality] | None = Non
         text = np.where(whole, np.char.mod("%d", np.where(whole, floats, 0).astype(np.int64)),
                         np.where(np.isnan(floats), "", floats.astype(str)))
         codes = pd.Series(text, index=codes.index)
-    text = codes.astype(str).where(codes.notna(), "")
-    uniques, inverse = np.unique(text.to_numpy(dtype=str), return_inverse=True)
+    inverse, uniques = pd.factorize(codes, use_na_sentinel=True)
+    uniques = np.array([*(str(u) for u in uniques), ""], dtype=object)
     validity = np.empty(len(uniques), np.int8)
     source = np.empty(len(uniques), np.int8)
     unknown = np.zeros(len(uniques), bool)

@@ -1,7 +1,9 @@
 """Reading the historian snapshot tables in ``snapshots/`` into one time × tag frame.
 
 Each file is a wide table (``.csv``, ``.csv.gz`` or ``.parquet``): a ``timestamp`` column,
-then one column per tag. Values stay in the point's own unit as float64; an empty cell is
+then one column per tag; or a long historian export (tag, time, value, quality columns),
+read by :mod:`calibra.io.long_table` and put on the snapshot grid by
+:mod:`calibra.io.long_align`. Values stay in the point's own unit as float64; an empty cell is
 missing. Cells that cannot be used (text, NaN, infinity, a status other than 0/1) are set
 missing and counted per column; rows without a usable time are skipped and reported.
 The checks are vectorised over the whole table: a week of one-minute data is fast.
@@ -19,6 +21,7 @@ import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
 
+from calibra.io.long_align import long_times, read_long, split_long
 from calibra.io.problems import ProblemLog
 from calibra.io.snapshot_period import (
     FilePlan,
@@ -28,6 +31,7 @@ from calibra.io.snapshot_period import (
     read_csv_rows,
     read_parquet_rows,
 )
+from calibra.io.snapshot_settings import SnapshotSettings
 from calibra.io.snapshot_size import FileRows, estimate_rows, refuse_if_too_large
 from calibra.io.text_files import csv_records, read_csv_text
 from calibra.io.timestamps import parse_times
@@ -72,6 +76,7 @@ def read_snapshots(
     period: Period | None = None,
     limit: int | None = None,
     plans: list[FilePlan] | None = None,
+    settings: SnapshotSettings | None = None,
 ) -> pd.DataFrame | None:
     """All snapshot files as one frame: tz-aware UTC index ``timestamp``, one float64 column
     per point of ``points`` (all NaN when a point has no column), rows in time order.
@@ -84,7 +89,8 @@ def read_snapshots(
     :mod:`calibra.io.snapshot_size`). Returns None when nothing usable was found and
     snapshots are ``required``, or when the table is refused (an error is logged).
     ``plans``: the files' first passes made before (:func:`plan_files`; with a ``period``),
-    so that reading period after period does not read the times again.
+    so that reading period after period does not read the times again. ``settings``: the
+    ``[snapshots]`` table of ``site.toml`` (the grid of long exports, quality codes).
     """
     files = snapshot_files(folder, log) if plans is None else [p.path for p in plans]
     tags = points.index if points is not None else pd.Index([])
@@ -99,6 +105,12 @@ def read_snapshots(
         return empty_snapshots(tags)
     quantities = points["quantity"] if points is not None else None
     errors_before = log.error_count()
+    if plans is None:
+        long, files = split_long(files, tags if points is not None else None)
+    else:
+        long = [(p.path, p.long) for p in plans if p.long is not None]
+        plans = [p for p in plans if p.long is None]
+        files = [p.path for p in plans]
     if period is None:
         sizes = [estimate_rows(path, _rel(path)) for path in files]
         if refuse_if_too_large([s for s in sizes if s is not None], len(tags), limit, log):
@@ -109,6 +121,12 @@ def read_snapshots(
         read = _read_period(files, quantities, len(tags), timezone, period, limit, log, plans)
         if read is None:
             return None
+    if long:
+        frame = read_long([p for p, _ in long], [lay for _, lay in long], points, timezone,
+                          settings or SnapshotSettings(), period, limit, log)
+        if frame is None:
+            return None
+        read.append((_rel(long[0][0]) if len(long) == 1 else SNAPSHOT_DIR, frame))
     frames = [(rel, frame) for rel, frame in read if frame is not None and len(frame)]
     if not frames:
         if required and period is None:
@@ -170,13 +188,21 @@ def plan_files(folder: Path, timezone: str, log: ProblemLog,
 
 def _plan_paths(files: list[Path], timezone: str, period: Period,
                 log: ProblemLog) -> list[FilePlan]:
-    plans = []
+    long, files = split_long(files, None)
+    plans = [_long_plan(path, layout, timezone, period) for path, layout in long]
     for path in files:
         planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
         plan = planner(path, _rel(path), timezone, period, log)
         if plan is not None:
             plans.append(plan)
     return plans
+
+
+def _long_plan(path: Path, layout, timezone: str, period: Period) -> FilePlan:
+    """A long export's plan: its sample times (the file is read again for each period)."""
+    times = long_times(path, layout, timezone)
+    keep = np.zeros(len(times), bool)
+    return FilePlan(path, _rel(path), layout.names, times, keep, 0, long=layout).within(period)
 
 
 def snapshot_times(folder: Path, timezone: str,
