@@ -207,8 +207,11 @@ def _report_point(arrays: dict[str, np.ndarray], rows: slice, tag: int, held: in
         if len(where):
             rel, row = _first(arrays, where, ctx)
             quoted = text.format(ctx.texts.get((tag, why), ""))
-            log.warning(rel, row, name, f"{len(where)} {quoted}, the first in this row",
-                        count=len(where))
+            layout = ctx.layouts[ctx.files.index(rel)]
+            column = layout.names[layout.quality if why in (BAD_QUALITY, UNKNOWN_CODE)
+                                  else layout.value]
+            log.warning(rel, row, column, f"point '{name}': {len(where)} {quoted}, the first "
+                        "in this row", count=len(where))
     questionable = seqs[arrays["validity"][rows] == Validity.QUESTIONABLE]
     if len(questionable):
         rel, row = _first(arrays, questionable, ctx)
@@ -230,7 +233,7 @@ def _report_point(arrays: dict[str, np.ndarray], rows: slice, tag: int, held: in
     if held:
         rel, _ = _first(arrays, seqs, ctx)
         log.warning(rel, None, name, f"{held} snapshot value(s) held from an earlier sample "
-                    f"(younger than {max_age}) to the snapshot time", count=held)
+                    f"(younger than {_text(max_age)}) to the snapshot time", count=held)
     if unused.any():
         rel, row = _first(arrays, seqs[unused], ctx)
         n = int(unused.sum())

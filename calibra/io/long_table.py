@@ -133,6 +133,7 @@ class Reading:
     known: bool  # tags come from the point list (others are reported)
     files: list[str] = field(default_factory=list)
     texts: dict[tuple[int, int], str] = field(default_factory=dict)
+    layouts: list[LongLayout] = field(default_factory=list)
 
 
 def read_samples(paths: list[Path], layouts: list[LongLayout], points: pd.DataFrame | None,
@@ -148,6 +149,7 @@ def read_samples(paths: list[Path], layouts: list[LongLayout], points: pd.DataFr
     for number, (path, layout) in enumerate(zip(paths, layouts, strict=True)):
         rel = f"snapshots/{path.name}"
         ctx.files.append(rel)
+        ctx.layouts.append(layout)
         extra = [n for k, n in enumerate(layout.names)
                  if k not in (layout.tag, layout.time, layout.value, layout.quality) and n]
         if extra:
