@@ -37,11 +37,11 @@ from calibra.io.long_table import (
     seq_place,
 )
 from calibra.io.problems import ProblemLog
-from calibra.io.quality import Source, Validity
-from calibra.io.snapshot_period import Period
+from calibra.io.quality import Validity
+from calibra.io.snapshot_period import FilePlan, Period
 from calibra.io.snapshot_settings import SnapshotSettings
 from calibra.io.snapshot_size import FileRows, refuse_if_too_large
-from calibra.model.times import for_people
+from calibra.io.wide_quality import SOURCE_WORDS, source_message
 
 COMMON_INTERVALS = [pd.Timedelta(s) for s in (
     "1s", "2s", "5s", "10s", "15s", "20s", "30s", "1min", "2min", "5min", "10min", "15min",
@@ -187,8 +187,6 @@ _REASONS = {
     BAD_STATUS: "status value(s) other than 1 (closed) or 0 (open), such as {} "
                 "(read as missing)",
 }
-_SOURCES = {Source.SUBSTITUTED: "substituted", Source.MANUAL: "manual",
-            Source.OVERRIDE: "override"}
 
 
 def _first(arrays: dict[str, np.ndarray], where: np.ndarray, ctx: Reading) -> tuple[str, int]:
@@ -218,18 +216,13 @@ def _report_point(arrays: dict[str, np.ndarray], rows: slice, tag: int, held: in
         log.warning(rel, row, name, f"{len(questionable)} value(s) marked questionable "
                     "(used), the first in this row", count=len(questionable))
     source = arrays["source"][rows]
-    for code, word in _SOURCES.items():
+    for code, word in SOURCE_WORDS.items():
         where = np.flatnonzero(source == code)
         if not len(where):
             continue
-        times = arrays["time"][rows][where]
-        runs = 1 + int((np.diff(where) > 1).sum())
         rel, row = _first(arrays, seqs[where], ctx)
-        since = for_people(pd.Timestamp(times[0], tz="UTC"), timezone, weekday=True)
-        until = for_people(pd.Timestamp(times[-1], tz="UTC"), timezone, weekday=True)
-        log.warning(rel, row, name, f"{word} value from {since} to {until} ({len(where)} "
-                    f"sample(s){f' in {runs} periods' if runs > 1 else ''}; used as given), "
-                    "the first in this row", count=len(where))
+        log.warning(rel, row, name, source_message(word, arrays["time"][rows][where], timezone)
+                    + ", the first in this row", count=len(where))
     if held:
         rel, _ = _first(arrays, seqs, ctx)
         log.warning(rel, None, name, f"{held} snapshot value(s) held from an earlier sample "
@@ -264,3 +257,11 @@ def long_times(path: Path, layout: LongLayout, timezone: str) -> pd.DatetimeInde
                               (None, None), ProblemLog())
     times = np.unique(samples.arrays()["time"])
     return pd.DatetimeIndex(times, tz="UTC", name="timestamp")
+
+
+def long_plan(path: Path, layout: LongLayout, rel: str, timezone: str,
+              period: Period) -> FilePlan:
+    """A long export's plan: its sample times (the file is read again for each period)."""
+    times = long_times(path, layout, timezone)
+    return FilePlan(path, rel, layout.names, times, np.zeros(len(times), bool), 0,
+                    long=layout).within(period)

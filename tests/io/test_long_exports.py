@@ -275,3 +275,86 @@ def test_memory_limit_applies_to_the_aligned_table(wide_and_long):
     with pytest.raises(SiteLoadError) as caught:
         load_site(folder, memory_limit=100)
     assert any("more than the limit" in p.message for p in caught.value.problems)
+
+
+# ----------------------------------------------------------------------------- wide tables
+def test_wide_table_quality_columns(files, tmp_path):
+    wide = load_site(files.write(tmp_path / "plain")).snapshots
+    table = files.snapshots["week.csv"]
+    table.add_column("FNH.V:quality", "192")
+    table.set(3, "FNH.V:quality", "0")  # OPC DA byte 0: bad [M, REFERENCES.md]
+    table.add_column("PLM.LOAD.P:quality", "good")
+    table.set(4, "PLM.LOAD.P:quality", "good|substituted")  # IEC 61850-7-3 source [M]
+    table.set(5, "PLM.LOAD.P:quality", "uncertain")
+    table.add_column("NOPE:quality", "good")
+    site = load_site(files.write(tmp_path / "marked"))
+    expected = wide.copy()
+    expected.iloc[1, expected.columns.get_loc("FNH.V")] = np.nan
+    pd.testing.assert_frame_equal(site.snapshots, expected)
+    bad = find(site.problems, "snapshots/week.csv", 3, "FNH.V:quality", "warning")
+    assert "marked bad" in bad.message
+    sub = find(site.problems, "snapshots/week.csv", 4, "PLM.LOAD.P", "warning")
+    assert "substituted value from Mon 2024-03-04 10:02 CET" in sub.message
+    find(site.problems, "snapshots/week.csv", 5, "PLM.LOAD.P:quality", "warning")
+    find(site.problems, "snapshots/week.csv", 1, "NOPE:quality", "warning")
+
+
+# ----------------------------------------------------------------------------- the sample site
+SAMPLE = Path(__file__).resolve().parents[2] / "sample_site"
+
+
+@pytest.fixture(scope="module")
+def sample_wide():
+    from calibra.diagnosis.findings import findings_table
+    from calibra.diagnosis.review import review_site
+
+    site = load_site(SAMPLE)
+    return site, findings_table(review_site(site).findings)
+
+
+def _sample_long_folder(root: Path, long: pd.DataFrame) -> Path:
+    import shutil
+
+    shutil.copytree(SAMPLE, root, ignore=shutil.ignore_patterns("snapshots", "*.sqlite"))
+    write_parts(root, long, ["p1.csv", "p2.csv.gz", "p3.parquet", "p4.parquet"])
+    return root
+
+
+def test_sample_week_as_long_export_gives_the_same_frame_and_findings(sample_wide, tmp_path):
+    from calibra.diagnosis.findings import findings_table
+    from calibra.diagnosis.review import review_site
+
+    site, findings = sample_wide
+    long = to_long(site.snapshots, seed=11)
+    # Codes of every vocabulary that mean "use the value": OPC DA 192, OPC UA Good,
+    # IEC 61850-7-3 good and good|substituted [M, REFERENCES.md]; some questionable.
+    long["quality"] = np.resize(["192", "0x00000000", "good", "ok", "good|substituted",
+                                 "uncertain", "0x40000000", "68"], len(long))
+    folder = _sample_long_folder(tmp_path / "long", long)
+    long_site = load_site(folder)
+    pd.testing.assert_frame_equal(long_site.snapshots, site.snapshots)
+    pd.testing.assert_frame_equal(findings_table(review_site(long_site).findings), findings)
+
+
+def test_sample_week_with_bad_values_gives_the_same_findings(sample_wide, tmp_path):
+    from calibra.diagnosis.findings import findings_table
+    from calibra.diagnosis.review import review_site
+
+    site, findings = sample_wide
+    long = to_long(site.snapshots, seed=12)
+    rng = np.random.default_rng(4)
+    bad = rng.random(len(long)) < 0.002
+    long.loc[bad, "quality"] = np.resize(["bad", "24", "0x80000000", "invalid"], int(bad.sum()))
+    folder = _sample_long_folder(tmp_path / "long", long)
+    long_site = load_site(folder)
+    expected = site.snapshots.copy()
+    marked = long[bad]
+    rows = expected.index.get_indexer(pd.to_datetime(marked["time"], utc=True))
+    cols = expected.columns.get_indexer(marked["tag"])
+    values = expected.to_numpy(copy=True)
+    values[rows, cols] = np.nan
+    expected.loc[:, :] = values
+    pd.testing.assert_frame_equal(long_site.snapshots, expected)
+    again = findings_table(review_site(long_site).findings)
+    assert list(zip(again["tag"], again["finding"], strict=True)) == list(
+        zip(findings["tag"], findings["finding"], strict=True))
