@@ -358,3 +358,24 @@ def test_sample_week_with_bad_values_gives_the_same_findings(sample_wide, tmp_pa
     again = findings_table(review_site(long_site).findings)
     assert list(zip(again["tag"], again["finding"], strict=True)) == list(
         zip(findings["tag"], findings["finding"], strict=True))
+
+
+def test_the_documented_examples(files, tmp_path):
+    """The [snapshots] table and the long export shown in sample_site/README.md, read by the
+    rule written there (09:01: both samples younger than one minute; 09:02: FNH.V's latest
+    sample is bad, FNH.TLR1.P's is 80 s old)."""
+    import re
+
+    text = (SAMPLE / "README.md").read_text(encoding="utf-8")
+    blocks = re.findall(r"```text\n(.*?)```", text, re.DOTALL)
+    settings = next(b for b in blocks if b.startswith("[snapshots]"))
+    export = next(b for b in blocks if b.startswith("point,time,value"))
+    files.toml = SITE_TOML + "\n" + settings
+    assert not [p for p in problems_of(files.write(tmp_path / "toml")) if p.file == "site.toml"]
+    files.toml = SITE_TOML
+    files.snapshots = {"export.csv": export}
+    site = load_site(files.write(tmp_path / "long"))
+    frame = site.snapshots[["FNH.V", "FNH.TLR1.P"]]
+    assert list(frame.index) == [pd.Timestamp("2024-03-04 09:01", tz="UTC"),
+                                 pd.Timestamp("2024-03-04 09:02", tz="UTC")]
+    np.testing.assert_array_equal(frame.to_numpy(), [[133.1, 61.2], [np.nan, np.nan]])
