@@ -76,7 +76,8 @@ def read_long(paths: list[Path], layouts: list[LongLayout], points: pd.DataFrame
     label = ctx.files[0] if len(ctx.files) == 1 else "snapshots"
     if refuse_if_too_large([FileRows(label, len(grid), True)], len(ctx.tags), limit, log):
         return None
-    values = _align(arrays, grid, max_age, ctx, timezone)
+    first = start.value if start is not None else np.iinfo(np.int64).min
+    values = _align(arrays, grid, max_age, ctx, timezone, first)
     frame = pd.DataFrame(values, index=pd.DatetimeIndex(grid, tz="UTC", name="timestamp"),
                          columns=pd.Index(ctx.tags, dtype=str))
     return frame
@@ -153,14 +154,13 @@ def _grid(times: np.ndarray, interval: pd.Timedelta, max_age: pd.Timedelta,
 
 
 def _align(arrays: dict[str, np.ndarray], grid: np.ndarray, max_age: pd.Timedelta,
-           ctx: Reading, timezone: str) -> np.ndarray:
-    """The grid × tag values by the rule, with the per-point reports."""
+           ctx: Reading, timezone: str, start: int) -> np.ndarray:
+    """The grid × tag values by the rule, with the per-point reports (of the samples from
+    ``start`` on, UTC ns, and those used before it)."""
     values = np.full((len(grid), len(ctx.tags)), np.nan)
     tags, starts = np.unique(arrays["tag"], return_index=True)
     ends = np.r_[starts[1:], len(arrays["tag"])]
     age = int(max_age.value)
-    in_grid = (arrays["time"] >= (grid[0] - age if len(grid) else 0)) & (
-        arrays["time"] <= (grid[-1] if len(grid) else -1))
     for tag, a, b in zip(tags, starts, ends, strict=True):
         times = arrays["time"][a:b]
         latest = np.searchsorted(times, grid, side="right") - 1
@@ -173,8 +173,9 @@ def _align(arrays: dict[str, np.ndarray], grid: np.ndarray, max_age: pd.Timedelt
         held = int((grid[fresh][usable] != times[pick[usable]]).sum())
         used = np.zeros(b - a, bool)
         used[pick] = True
-        unused = ~used & in_grid[a:b]
-        _report_point(arrays, slice(a, b), int(tag), held, unused, ctx, timezone, max_age)
+        scope = used | (times >= start)
+        _report_point(arrays, slice(a, b), int(tag), held, ~used & scope, scope, ctx,
+                      timezone, max_age)
     return values
 
 
@@ -194,12 +195,13 @@ def _first(arrays: dict[str, np.ndarray], where: np.ndarray, ctx: Reading) -> tu
 
 
 def _report_point(arrays: dict[str, np.ndarray], rows: slice, tag: int, held: int,
-                  unused: np.ndarray, ctx: Reading, timezone: str,
+                  unused: np.ndarray, scope: np.ndarray, ctx: Reading, timezone: str,
                   max_age: pd.Timedelta) -> None:
-    """The counted warnings of one point (each with its first file and row)."""
+    """The counted warnings of one point's samples in ``scope`` (each with its first file
+    and row)."""
     log, name = ctx.log, ctx.tags[tag]
     seqs = np.arange(rows.start, rows.stop)
-    reason = arrays["reason"][rows]
+    reason = np.where(scope, arrays["reason"][rows], -1)
     for why, text in _REASONS.items():
         where = seqs[reason == why]
         if len(where):
@@ -210,14 +212,14 @@ def _report_point(arrays: dict[str, np.ndarray], rows: slice, tag: int, held: in
                                   else layout.value]
             log.warning(rel, row, column, f"point '{name}': {len(where)} {quoted}, the first "
                         "in this row", count=len(where))
-    questionable = seqs[arrays["validity"][rows] == Validity.QUESTIONABLE]
+    questionable = seqs[scope & (arrays["validity"][rows] == Validity.QUESTIONABLE)]
     if len(questionable):
         rel, row = _first(arrays, questionable, ctx)
         log.warning(rel, row, name, f"{len(questionable)} value(s) marked questionable "
                     "(used), the first in this row", count=len(questionable))
     source = arrays["source"][rows]
     for code, word in SOURCE_WORDS.items():
-        where = np.flatnonzero(source == code)
+        where = np.flatnonzero(scope & (source == code))
         if not len(where):
             continue
         rel, row = _first(arrays, seqs[where], ctx)

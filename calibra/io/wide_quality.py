@@ -40,7 +40,8 @@ def source_message(word: str, times: np.ndarray, timezone: str) -> str:
     """'manual value from Tue 2027-03-02 10:15 CET to … (12 sample(s))' for people."""
     since, until = (for_people(pd.Timestamp(int(t), tz="UTC"), timezone, weekday=True)
                     for t in (times.min(), times.max()))
-    return f"{word} value from {since} to {until} ({len(times)} sample(s); used as given)"
+    when = f"at {since}" if since == until else f"from {since} to {until}"
+    return f"{word} value {when} ({len(times)} sample(s); used as given)"
 
 
 def apply_quality(table: pd.DataFrame, names: list[str], keep: list[int], values: np.ndarray,

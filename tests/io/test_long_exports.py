@@ -264,6 +264,8 @@ def test_period_and_day_by_day_reading_equal_the_wide_table(wide_and_long):
     part = load_site(folder, start=start, end=end)
     wide_part = load_site(wide.path, start=start, end=end)
     pd.testing.assert_frame_equal(part.snapshots, wide_part.snapshots)
+    # samples read before the period (for max_age) are not reported as unused
+    assert not [p for p in part.problems if "not used" in p.message]
     history = open_history(folder)
     assert history.times().equals(wide.snapshots.index)
     pd.testing.assert_frame_equal(history.load(start, end).snapshots, wide_part.snapshots)
@@ -294,7 +296,7 @@ def test_wide_table_quality_columns(files, tmp_path):
     bad = find(site.problems, "snapshots/week.csv", 3, "FNH.V:quality", "warning")
     assert "marked bad" in bad.message
     sub = find(site.problems, "snapshots/week.csv", 4, "PLM.LOAD.P", "warning")
-    assert "substituted value from Mon 2024-03-04 10:02 CET" in sub.message
+    assert "substituted value at Mon 2024-03-04 10:02 CET" in sub.message
     find(site.problems, "snapshots/week.csv", 5, "PLM.LOAD.P:quality", "warning")
     find(site.problems, "snapshots/week.csv", 1, "NOPE:quality", "warning")
 
