@@ -31,9 +31,11 @@ from calibra.io.long_table import (
     UNKNOWN_CODE,
     LongLayout,
     Reading,
+    chunks,
     header_of,
     long_layout,
     read_samples,
+    sample_times,
     seq_place,
 )
 from calibra.io.problems import ProblemLog
@@ -253,12 +255,19 @@ def split_long(paths: list[Path], tags: pd.Index | None,
 
 
 def long_times(path: Path, layout: LongLayout, timezone: str) -> pd.DatetimeIndex:
-    """Every sample time of a long export (UTC, sorted, unique): the days a history covers.
-    Problems are left to the reading of each period."""
-    samples, _ = read_samples([path], [layout], None, timezone, SnapshotSettings(),
-                              (None, None), ProblemLog())
-    times = np.unique(samples.arrays()["time"])
-    return pd.DatetimeIndex(times, tz="UTC", name="timestamp")
+    """The minutes that hold a sample of a long export (sample times rounded up to the whole
+    minute; UTC, sorted, unique): the days a history covers, read chunk by chunk in the memory
+    of one chunk and the minutes. Problems are left to the reading of each period."""
+    minute = 60 * 10**9
+    found = np.empty(0, np.int64)
+    try:
+        for chunk, rows in chunks(path, layout, (None, None), timezone):
+            times, _ = sample_times(chunk.iloc[:, 1], rows, timezone, "")
+            stamps = times.asi8[np.asarray(times.notna())]
+            found = np.union1d(found, -(-stamps // minute) * minute)
+    except Exception:  # noqa: BLE001 - the reading of each period reports the file
+        pass
+    return pd.DatetimeIndex(found.astype("M8[ns]"), tz="UTC", name="timestamp")
 
 
 def long_plan(path: Path, layout: LongLayout, rel: str, timezone: str,

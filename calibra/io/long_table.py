@@ -157,7 +157,7 @@ def read_samples(paths: list[Path], layouts: list[LongLayout], points: pd.DataFr
                         f"time, value and quality ignored ({', '.join(extra[:5])})",
                         count=len(extra))
         try:
-            for chunk, rows in _chunks(path, layout, window, timezone):
+            for chunk, rows in chunks(path, layout, window, timezone):
                 _chunk(chunk, rows, number, rel, layout, ctx, samples)
         except Exception as exc:  # noqa: BLE001 - pandas/pyarrow raise many kinds
             text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
@@ -165,7 +165,7 @@ def read_samples(paths: list[Path], layouts: list[LongLayout], points: pd.DataFr
     return samples, ctx
 
 
-def _chunks(path: Path, layout: LongLayout, window: Period,
+def chunks(path: Path, layout: LongLayout, window: Period,
             timezone: str) -> Iterator[tuple[pd.DataFrame, np.ndarray]]:
     """(tag, time, value, quality) columns of the file chunk by chunk, with spreadsheet rows."""
     wanted = [layout.tag, layout.time, layout.value]
@@ -241,7 +241,7 @@ def _chunk(chunk: pd.DataFrame, rows: np.ndarray, number: int, rel: str, layout:
         codes = pd.Series("", index=chunk.index)
     else:
         codes = chunk.iloc[:, 3]
-    times, sub = _times(chunk.iloc[:, 1], rows, ctx.timezone, rel)
+    times, sub = sample_times(chunk.iloc[:, 1], rows, ctx.timezone, rel)
     for p in sub.items:  # the time column by its own name
         ctx.log.add(p if p.column != "timestamp" else type(p)(
             p.file, p.row, names[layout.time], p.message, p.severity, p.count))
@@ -304,7 +304,7 @@ def _stripped(cells: pd.Series) -> pd.Series:
     return pd.Series(clean[codes], index=cells.index)
 
 
-def _times(stamps: pd.Series, rows: np.ndarray, timezone: str,
+def sample_times(stamps: pd.Series, rows: np.ndarray, timezone: str,
            rel: str) -> tuple[pd.DatetimeIndex, ProblemLog]:
     """UTC times of the cells: each distinct text parsed once (a long export repeats every
     time for every point); when that finds a problem, every row again so that each problem
