@@ -11,8 +11,10 @@ for are kept (Parquet row groups outside it are not read), as compact arrays of 
 
 from __future__ import annotations
 
+import csv
 import gzip
 import io
+import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -26,11 +28,12 @@ from calibra.io.problems import ProblemLog
 from calibra.io.quality import Source, Validity, classify_column
 from calibra.io.snapshot_period import Period
 from calibra.io.snapshot_settings import SnapshotSettings
-from calibra.io.text_files import Dialect, csv_records, sniff_dialect
+from calibra.io.text_files import Dialect, csv_records, first_line, sniff_dialect
 from calibra.io.timestamps import parse_times
 from calibra.model.points import STATUS_QUANTITY
 
 CHUNK_ROWS = 200_000
+HEAD_CHARS = 64 * 2**10
 ROLE_NAMES = {
     "tag": ("tag", "point", "name", "tagname", "tag_name", "point_name"),
     "time": ("timestamp", "time", "datetime", "date_time"),
@@ -86,11 +89,11 @@ def header_of(path: Path) -> tuple[list[str], Dialect, str] | None:
         for encoding in ("utf-8-sig", "latin-1"):
             try:
                 with _open_text(path, encoding) as handle:
-                    line = handle.readline()
+                    head = handle.read(HEAD_CHARS)
             except UnicodeDecodeError:
                 continue
-            dialect = sniff_dialect(line)
-            return next(csv_records(line, dialect.sep), []), dialect, encoding
+            dialect = sniff_dialect(head)  # the decimal mark from the first data rows
+            return next(csv_records(first_line(head), dialect.sep), []), dialect, encoding
     except Exception:  # noqa: BLE001 - any unreadable file is reported by the wide reader
         return None
     return None
@@ -156,13 +159,52 @@ def read_samples(paths: list[Path], layouts: list[LongLayout], points: pd.DataFr
             log.warning(rel, 1, extra[0], f"long export: {len(extra)} column(s) other than tag, "
                         f"time, value and quality ignored ({', '.join(extra[:5])})",
                         count=len(extra))
-        try:
-            for chunk, rows in chunks(path, layout, window, timezone):
-                _chunk(chunk, rows, number, rel, layout, ctx, samples)
-        except Exception as exc:  # noqa: BLE001 - pandas/pyarrow raise many kinds
-            text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
-            log.error(rel, None, None, f"cannot read the long export: {text}")
+        _read_one(path, layout, number, rel, ctx, samples)
     return samples, ctx
+
+
+def _read_one(path: Path, layout: LongLayout, number: int, rel: str, ctx: Reading,
+              samples: Samples) -> None:
+    """One long export's samples added to ``samples``; its problems logged."""
+    log, seen = ctx.log, 0
+    header = header_of(path)
+    if header is not None and header[1].sep != ",":
+        log.warning(rel, None, None, f"read as {header[1].describe()}")
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", pd.errors.ParserWarning)
+            for chunk, rows in chunks(path, layout, ctx.window, ctx.timezone):
+                seen += len(chunk)
+                _chunk(chunk, rows, number, rel, layout, ctx, samples)
+    except pd.errors.EmptyDataError:
+        pass  # reported below: no rows
+    except Exception as exc:  # noqa: BLE001 - pandas/pyarrow raise many kinds
+        text = (str(exc).strip().splitlines() or [type(exc).__name__])[0]
+        log.error(rel, None, None, f"cannot read the long export: {text}")
+        return
+    width = len(layout.names)
+    if any(issubclass(w.category, pd.errors.ParserWarning) for w in caught):
+        log.per_row(rel, _rows_with_extra_values(path, header, width) or [2], None,
+                    f"more values than the {width} columns named in the header",
+                    severity="error")
+    elif not seen:
+        log.warning(rel, None, None, "the file has a header but no data rows")
+
+
+def _rows_with_extra_values(path: Path, header: tuple[list[str], Dialect, str] | None,
+                            width: int) -> list[int]:
+    """Spreadsheet rows of a CSV file with non-empty cells beyond the header's columns."""
+    if header is None:
+        return []
+    out = []
+    try:
+        with _open_text(path, header[2]) as handle:
+            for number, record in enumerate(csv.reader(handle, delimiter=header[1].sep), 1):
+                if len(record) > width and any(c.strip() for c in record[width:]):
+                    out.append(number)
+    except (csv.Error, OSError, EOFError, UnicodeDecodeError):
+        pass  # the rows found so far (the caller falls back to row 2)
+    return out
 
 
 def chunks(path: Path, layout: LongLayout, window: Period,
@@ -176,8 +218,10 @@ def chunks(path: Path, layout: LongLayout, window: Period,
         return
     _, dialect, encoding = header_of(path) or ([], Dialect(), "utf-8-sig")
     with _open_text(path, encoding) as handle:
-        reader = pd.read_csv(handle, sep=dialect.sep, header=None, skiprows=1, usecols=wanted,
-                             dtype={k: str for k in wanted if k != layout.value},
+        # every column, so that a row with more values than the header names is an error
+        reader = pd.read_csv(handle, sep=dialect.sep, header=None, skiprows=1,
+                             names=list(range(len(layout.names))),
+                             dtype={k: str for k in range(len(layout.names)) if k != layout.value},
                              decimal=dialect.decimal, keep_default_na=False, na_values=[""],
                              skip_blank_lines=False, index_col=False, chunksize=CHUNK_ROWS,
                              engine="c", low_memory=False)

@@ -381,3 +381,21 @@ def test_the_documented_examples(files, tmp_path):
     assert list(frame.index) == [pd.Timestamp("2024-03-04 09:01", tz="UTC"),
                                  pd.Timestamp("2024-03-04 09:02", tz="UTC")]
     np.testing.assert_array_equal(frame.to_numpy(), [[133.1, 61.2], [np.nan, np.nan]])
+
+
+def test_malformed_long_csv_files(files, tmp_path):
+    """Rows with extra values are errors with their row; semicolons with decimal commas are
+    read with a warning; a header alone is reported (as for wide tables; common practice,
+    no source)."""
+    files.snapshots = {"ragged.csv": "tag,time,value\nFNH.V,2024-03-04 10:00,1,2\n"}
+    problem = find(problems_of(files.write(tmp_path / "a")), "snapshots/ragged.csv", 2, None)
+    assert "more values than the 3 columns" in problem.message
+    files.snapshots = {"semi.csv": "tag;time;value\nFNH.V;2024-03-04 10:00;133,5\n"
+                                   "FNH.V;2024-03-04 10:01;133,25\n"}
+    site = load_site(files.write(tmp_path / "b"))
+    assert site.snapshots["FNH.V"].tolist() == [133.5, 133.25]
+    assert any("decimal commas" in p.message for p in site.problems)
+    files.snapshots = {"empty.csv": "tag,time,value\n"}
+    problems = problems_of(files.write(tmp_path / "c"))
+    assert "header but no data rows" in find(problems, "snapshots/empty.csv", None, None,
+                                             "warning").message
