@@ -399,3 +399,27 @@ def test_malformed_long_csv_files(files, tmp_path):
     problems = problems_of(files.write(tmp_path / "c"))
     assert "header but no data rows" in find(problems, "snapshots/empty.csv", None, None,
                                              "warning").message
+
+
+def test_parquet_row_groups_outside_the_period_are_not_read(wide_and_long):
+    import pyarrow.parquet as pq
+
+    from calibra.io.long_table import _group_outside
+
+    wide, folder = wide_and_long
+    long = to_long(wide.snapshots).sort_values("time")
+    long["time"] = pd.to_datetime(long["time"], utc=True)
+    path = folder / "snapshots" / "sorted.parquet"
+    long.to_parquet(path, index=False, row_group_size=7)  # one minute per group
+    start, end = (pd.Timestamp(t, tz="UTC") for t in ("2024-03-04 09:02", "2024-03-04 09:03"))
+    parquet = pq.ParquetFile(path)
+    skipped = [_group_outside(parquet, g, 0, (start - pd.Timedelta("1min"), end), "UTC")
+               for g in range(parquet.num_row_groups)]
+    assert skipped == [True, False, False, False]  # 09:01 UTC is read for max_age
+    skipped = [_group_outside(parquet, g, 0, (start, end), "UTC")
+               for g in range(parquet.num_row_groups)]
+    assert skipped == [True, True, False, False]
+    part = load_site(folder, start="2024-03-04 10:02", end="2024-03-04 10:03")
+    pd.testing.assert_frame_equal(
+        part.snapshots, load_site(wide.path, start="2024-03-04 10:02",
+                                  end="2024-03-04 10:03").snapshots)
