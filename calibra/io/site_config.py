@@ -12,6 +12,7 @@ from pathlib import Path
 
 from calibra.io.points_config import POINTS_TABLE, PointsConfig, read_points_config
 from calibra.io.problems import ProblemLog
+from calibra.io.snapshot_settings import SnapshotSettings, read_snapshot_settings
 from calibra.io.text_files import read_text
 
 SITE_FILE = "site.toml"
@@ -36,6 +37,7 @@ class SiteConfig:
     not_zero_injection: tuple[str, ...] = ()
     zero_injection_lines: tuple[int | None, int | None] = (None, None)
     points: PointsConfig = field(default_factory=PointsConfig)
+    snapshots: SnapshotSettings = SnapshotSettings()  # [snapshots]
 
 
 def _line_of(text: str, key: str) -> int | None:
@@ -69,7 +71,7 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
         log.error(SITE_FILE, int(found.group(1)) if found else None, None, f"not valid TOML: {exc}")
         return None
     for key in doc:
-        if key not in ("site", NETWORK_TABLE, POINTS_TABLE):
+        if key not in ("site", NETWORK_TABLE, POINTS_TABLE, "snapshots"):
             log.warning(SITE_FILE, _line_of(text, key), key, "unknown entry; ignored")
     site = doc.get("site")
     if not isinstance(site, dict):
@@ -107,11 +109,13 @@ def read_site_config(folder: Path, log: ProblemLog) -> SiteConfig | None:
     if tz is not None and (why := check_timezone(tz)):
         log.error(SITE_FILE, _line_of(text, "timezone"), "timezone", why)
     lists = _zero_injection_lists(doc.get(NETWORK_TABLE), text, log)
+    snapshots = read_snapshot_settings(doc.get("snapshots", {}), SITE_FILE,
+                                       lambda key: _line_of(text, key), log)
     if log.error_count() > start:
         return None
     lines = tuple(_line_of(text, key) for key in ZERO_INJECTION_KEYS)
     return SiteConfig(name, base, freq, tz, ref, lists[0], lists[1], lines,
-                      read_points_config(doc, text, SITE_FILE, log))
+                      read_points_config(doc, text, SITE_FILE, log), snapshots)
 
 
 def _zero_injection_lists(table, text: str, log: ProblemLog) -> tuple[tuple[str, ...], ...]:

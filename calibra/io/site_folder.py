@@ -69,7 +69,8 @@ def load_site(
     timezone = config.timezone if config is not None else "UTC"
     period = resolve_period(start, end, timezone)
     snapshots = read_snapshots(folder, points, timezone, log, required=require_snapshots,
-                               period=period, limit=limit or None)
+                               period=period, limit=limit or None,
+                               settings=config.snapshots if config is not None else None)
     return _site(folder, config, network, points, point_rows, snapshots, log, strict)
 
 
@@ -130,7 +131,8 @@ class SiteHistory:
             raise ValueError("a period is needed: a start, an end or both")
         log = ProblemLog()
         snapshots = read_snapshots(base.path, base.points, base.timezone, log, required=False,
-                                   period=period, limit=self.limit or None, plans=self.plans)
+                                   period=period, limit=self.limit or None, plans=self.plans,
+                                   settings=self.config.snapshots)
         return _site(base.path, self.config, base.network, base.points, self.point_rows,
                      snapshots, log)
 

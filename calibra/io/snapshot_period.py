@@ -52,6 +52,7 @@ class FilePlan:
     dialect: Dialect = Dialect()
     index_column: int = 0  # Parquet: position of the timestamp column in the file
     untimed: np.ndarray | None = None  # rows whose time cell is empty (kept in every period)
+    long: object = None  # a long export's LongLayout (times: its sample times)
 
     def within(self, period: Period) -> FilePlan:
         """The same file planned for another period (the times are not read again)."""

@@ -1,7 +1,9 @@
 """Reading the historian snapshot tables in ``snapshots/`` into one time × tag frame.
 
 Each file is a wide table (``.csv``, ``.csv.gz`` or ``.parquet``): a ``timestamp`` column,
-then one column per tag. Values stay in the point's own unit as float64; an empty cell is
+then one column per tag; or a long historian export (tag, time, value, quality columns),
+read by :mod:`calibra.io.long_table` and put on the snapshot grid by
+:mod:`calibra.io.long_align`. Values stay in the point's own unit as float64; an empty cell is
 missing. Cells that cannot be used (text, NaN, infinity, a status other than 0/1) are set
 missing and counted per column; rows without a usable time are skipped and reported.
 The checks are vectorised over the whole table: a week of one-minute data is fast.
@@ -19,6 +21,7 @@ import numpy as np
 import pandas as pd
 import pyarrow.parquet as pq
 
+from calibra.io.long_align import long_plan, read_long, split_long
 from calibra.io.problems import ProblemLog
 from calibra.io.snapshot_period import (
     FilePlan,
@@ -28,12 +31,14 @@ from calibra.io.snapshot_period import (
     read_csv_rows,
     read_parquet_rows,
 )
+from calibra.io.snapshot_reports import SNAPSHOT_DIR, report_absent_tags, report_overlaps
+from calibra.io.snapshot_settings import SnapshotSettings
 from calibra.io.snapshot_size import FileRows, estimate_rows, refuse_if_too_large
 from calibra.io.text_files import csv_records, read_csv_text
 from calibra.io.timestamps import parse_times
+from calibra.io.wide_quality import Marks, apply_quality, is_quality_column
 from calibra.model.points import STATUS_QUANTITY
 
-SNAPSHOT_DIR = "snapshots"
 SNAPSHOT_SUFFIXES = (".csv", ".csv.gz", ".parquet")
 
 
@@ -72,6 +77,7 @@ def read_snapshots(
     period: Period | None = None,
     limit: int | None = None,
     plans: list[FilePlan] | None = None,
+    settings: SnapshotSettings | None = None,
 ) -> pd.DataFrame | None:
     """All snapshot files as one frame: tz-aware UTC index ``timestamp``, one float64 column
     per point of ``points`` (all NaN when a point has no column), rows in time order.
@@ -84,7 +90,8 @@ def read_snapshots(
     :mod:`calibra.io.snapshot_size`). Returns None when nothing usable was found and
     snapshots are ``required``, or when the table is refused (an error is logged).
     ``plans``: the files' first passes made before (:func:`plan_files`; with a ``period``),
-    so that reading period after period does not read the times again.
+    so that reading period after period does not read the times again. ``settings``: the
+    ``[snapshots]`` table of ``site.toml`` (the grid of long exports, quality codes).
     """
     files = snapshot_files(folder, log) if plans is None else [p.path for p in plans]
     tags = points.index if points is not None else pd.Index([])
@@ -99,16 +106,30 @@ def read_snapshots(
         return empty_snapshots(tags)
     quantities = points["quantity"] if points is not None else None
     errors_before = log.error_count()
+    if plans is None:
+        long, files = split_long(files, tags if points is not None else None)
+    else:
+        long = [(p.path, p.long) for p in plans if p.long is not None]
+        plans = [p for p in plans if p.long is None]
+        files = [p.path for p in plans]
+    marks = Marks(settings or SnapshotSettings(), timezone)
     if period is None:
         sizes = [estimate_rows(path, _rel(path)) for path in files]
         if refuse_if_too_large([s for s in sizes if s is not None], len(tags), limit, log):
             return None
-        read = [(_rel(path), _read_file(path, _rel(path), quantities, timezone, log))
+        read = [(_rel(path), _read_file(path, _rel(path), quantities, timezone, log, marks))
                 for path in files]
     else:
-        read = _read_period(files, quantities, len(tags), timezone, period, limit, log, plans)
+        read = _read_period(files, quantities, len(tags), timezone, period, limit, log, plans,
+                            marks)
         if read is None:
             return None
+    if long:
+        frame = read_long([p for p, _ in long], [lay for _, lay in long], points, timezone,
+                          settings or SnapshotSettings(), period, limit, log)
+        if frame is None:
+            return None
+        read.append((_rel(long[0][0]) if len(long) == 1 else SNAPSHOT_DIR, frame))
     frames = [(rel, frame) for rel, frame in read if frame is not None and len(frame)]
     if not frames:
         if required and period is None:
@@ -119,9 +140,9 @@ def read_snapshots(
             log.warning(SNAPSHOT_DIR, None, None, f"no snapshots {_describe(period)}")
         return empty_snapshots(tags)
     frames.sort(key=lambda item: item[1].index[0])
-    _report_overlaps(frames, log)
+    report_overlaps(frames, log)
     if points is not None:
-        _report_absent_tags(frames, tags, log)
+        report_absent_tags(frames, tags, log)
     merged = pd.concat([f for _, f in frames], axis=0, sort=False)
     if len(frames) > 1:
         order = np.argsort(merged.index.asi8, kind="stable")
@@ -133,34 +154,6 @@ def read_snapshots(
     return merged
 
 
-def _report_absent_tags(frames: list[tuple[str, pd.DataFrame]], tags: pd.Index,
-                        log: ProblemLog) -> None:
-    """Warn, per file, about points of the point list that have no column there (their values
-    in that file's rows are missing), and about points in no file at all."""
-    everywhere: set[str] = set()
-    absent_by_file = []
-    for rel, frame in frames:
-        cols = set(map(str, frame.columns))
-        everywhere |= cols
-        absent_by_file.append((rel, [t for t in tags if t not in cols]))
-    nowhere = [t for t in tags if t not in everywhere]
-    nowhere_set = set(nowhere)
-    for rel, absent in absent_by_file:
-        absent = [t for t in absent if t not in nowhere_set]
-        if absent:
-            log.warning(rel, None, None, f"{len(absent)} point(s) of the point list have no column "
-                        f"in this file, so their values are missing in its rows: "
-                        f"{_some(absent)}", count=len(absent))
-    if nowhere:
-        log.warning(SNAPSHOT_DIR, None, None, f"{len(nowhere)} point(s) of the point list have no "
-                    f"column in any snapshot file (all their values missing): {_some(nowhere)}",
-                    count=len(nowhere))
-
-
-def _some(tags: list[str], n: int = 5) -> str:
-    return ", ".join(tags[:n]) + (f" and {len(tags) - n} more" if len(tags) > n else "")
-
-
 def plan_files(folder: Path, timezone: str, log: ProblemLog,
                period: Period = (None, None)) -> list[FilePlan]:
     """The first pass over every snapshot file (its header and times; problems logged);
@@ -170,7 +163,8 @@ def plan_files(folder: Path, timezone: str, log: ProblemLog,
 
 def _plan_paths(files: list[Path], timezone: str, period: Period,
                 log: ProblemLog) -> list[FilePlan]:
-    plans = []
+    long, files = split_long(files, None)
+    plans = [long_plan(p, lay, _rel(p), timezone, period) for p, lay in long]
     for path in files:
         planner = plan_parquet if path.name.lower().endswith(".parquet") else plan_csv
         plan = planner(path, _rel(path), timezone, period, log)
@@ -201,7 +195,7 @@ def _rel(path: Path) -> str:
 def _read_period(
     files: list[Path], quantities: pd.Series | None, points: int, timezone: str,
     period: Period, limit: int | None, log: ProblemLog,
-    planned: list[FilePlan] | None = None,
+    planned: list[FilePlan] | None = None, marks: Marks | None = None,
 ) -> list[tuple[str, pd.DataFrame | None]] | None:
     """The files' rows in ``period``: times first (or the ``planned`` ones), the size check,
     then the kept rows."""
@@ -224,7 +218,7 @@ def _read_period(
             positions = table.index.to_numpy()
             table = table.reset_index(drop=True)
             frame = _frame(table, plan.names, positions + 2, plan.times[positions],
-                           quantities, plan.rel, log)
+                           quantities, plan.rel, log, marks)
         read.append((plan.rel, frame))
     return read
 
@@ -234,27 +228,10 @@ def _describe(period: Period) -> str:
     return f"from {start or 'the start'} to {end or 'the end'}"
 
 
-def _report_overlaps(frames: list[tuple[str, pd.DataFrame]], log: ProblemLog) -> None:
-    for k in range(1, len(frames)):
-        rel, frame = frames[k]
-        for prev_rel, prev in frames[:k]:
-            if frame.index[0] > prev.index[-1]:
-                continue
-            start, end = frame.index[0], min(frame.index[-1], prev.index[-1])
-            shared = int(frame.index.isin(prev.index).sum())
-            log.warning(
-                rel, None, "timestamp",
-                f"overlaps {prev_rel} from {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC; "
-                + (f"{shared} time{' appears' if shared == 1 else 's appear'} in both and keep "
-                   f"the values of {prev_rel}" if shared
-                   else "no time appears in both, so the rows are merged"),
-                count=max(shared, 1),
-            )
-
-
 # ----------------------------------------------------------------------------- one file
 def _read_file(
-    path: Path, rel: str, quantities: pd.Series | None, timezone: str, log: ProblemLog
+    path: Path, rel: str, quantities: pd.Series | None, timezone: str, log: ProblemLog,
+    marks: Marks | None = None,
 ) -> pd.DataFrame | None:
     if path.name.lower().endswith(".parquet"):
         table = _read_parquet(path, rel, log)
@@ -270,7 +247,7 @@ def _read_file(
         return None
     rows = np.arange(2, table.shape[0] + 2)
     times = parse_times(table.iloc[:, 0], rows, timezone, file=rel, log=log)
-    return _frame(table, names, rows, times, quantities, rel, log)
+    return _frame(table, names, rows, times, quantities, rel, log, marks)
 
 
 def _first_is_timestamp(names: list[str], rel: str, log: ProblemLog) -> bool:
@@ -282,7 +259,7 @@ def _first_is_timestamp(names: list[str], rel: str, log: ProblemLog) -> bool:
 
 def _frame(
     table: pd.DataFrame, names: list[str], rows: np.ndarray, times: pd.DatetimeIndex,
-    quantities: pd.Series | None, rel: str, log: ProblemLog,
+    quantities: pd.Series | None, rel: str, log: ProblemLog, marks: Marks | None = None,
 ) -> pd.DataFrame:
     """The checked values of ``table`` (a file's rows, spreadsheet ``rows``, UTC ``times``)
     as a time × tag frame in time order."""
@@ -291,6 +268,7 @@ def _frame(
     _report_rows_without_time(table, valid, rows, rel, log)
     tags = [names[p] for p in keep]
     values = _values(table, keep, tags, rows, valid, rel, log)
+    apply_quality(table, names, keep, values, rows, valid, times, rel, log, marks)
     if quantities is not None:
         status = [j for j, t in enumerate(tags) if quantities.get(t) == STATUS_QUANTITY]
         _check_status(values, status, tags, rows, valid, rel, log)
@@ -399,6 +377,8 @@ def _value_columns(
                 log.warning(rel, 1, None, f"column {pos + 1} has values but no name; ignored")
         elif name in seen:
             log.error(rel, 1, name, f"column appears twice (columns {seen[name]} and {pos + 1})")
+        elif is_quality_column(name):
+            continue  # read by apply_quality
         elif quantities is not None and name not in quantities.index:
             seen[name] = pos + 1
             log.warning(rel, 1, name, "not a tag of points.csv; column not loaded")
