@@ -11,8 +11,13 @@ The decision rules (all documented in DEVELOPERS.md):
    healthy one there) and its systematic error is beyond the accuracy class limit at the
    point's typical reading and statistically significant. The candidate with the lowest mean
    error wins; simpler models win near-ties (scale, offset, then drift).
-4. Otherwise, a scatter well beyond the expected noise (meter class and the implied value's
-   own uncertainty) → noisy.
+4. Otherwise, a scatter well beyond the expected noise (meter class, the implied value's
+   own uncertainty and the reading's deadband) → noisy.
+
+A point stored by exception (or with a coarse converter) lags the true value by up to its
+deadband: that enters the expected noise (deadband/√3) and the limit a systematic error must
+pass (class limit + deadband), and a frozen run counts only while the implied value moves by
+more than the class limit and twice the deadband.
 
 Confidence is the share of snapshots, among those where the chosen model and "healthy" predict
 clearly different values, in which the chosen model is the closer one.
@@ -57,6 +62,10 @@ class PointSeries:
     class_limit: float
     sigma_implied: float = 0.0
     resolution: float = 0.0  #: historian rounding step, for frozen-value detection
+    #: The change a reading must make before it is stored again (report by exception, or the
+    #: converter's step), in the point's unit: a healthy reading may lag the true value by up
+    #: to this much (see :func:`calibra.diagnosis.fits.reporting_deadband`).
+    deadband: float = 0.0
     #: Whether a gain is one a known cause explains (CT taps, √3, units); decides near-ties
     #: between a scale and an offset, which a nearly constant reading cannot tell apart.
     known_factor: Callable[[float], bool] | None = None
@@ -133,7 +142,7 @@ def _stuck(w: _Week) -> PointDiagnosis | None:
     """Frozen values while the implied value moves (runs of at least ``stuck_minutes``)."""
     ps, st, t, z, y, n = w.ps, w.st, w.t, w.z, w.y, w.n
     runs = find_stuck_runs(z, y, max(ps.resolution, 1e-9 * max(1.0, np.abs(z).max())),
-                           st.stuck_minutes, max(4 * w.noise, w.limit))
+                           st.stuck_minutes, max(4 * w.noise, w.limit + ps.deadband))
     if not runs:
         return None
     frozen = np.zeros(n, bool)
@@ -244,8 +253,12 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
     if n < st.min_snapshots:
         return PointDiagnosis(DiagnosisKind.INSUFFICIENT, n_used=n,
                               reason=f"only {n} snapshots with a measured and an implied value")
-    w = _Week(ps, st, ps.t_days[valid], ps.z[valid], ps.y[valid],
-              float(np.hypot(ps.sigma, ps.sigma_implied)), ps.class_limit * st.class_margin)
+    # A reading held within its deadband lags the true value by up to the deadband, evenly
+    # spread (σ = deadband/√3): part of the expected scatter, and a systematic error smaller
+    # than class limit plus deadband is not a fault a healthy meter could not show.
+    noise = float(np.sqrt(ps.sigma ** 2 + ps.sigma_implied ** 2 + ps.deadband ** 2 / 3.0))
+    w = _Week(ps, st, ps.t_days[valid], ps.z[valid], ps.y[valid], noise,
+              ps.class_limit * st.class_margin + ps.deadband)
     # Frozen values first: they would distort every other fit.
     stuck = _stuck(w)
     if stuck is not None:

@@ -13,6 +13,7 @@ from calibra.diagnosis.classify import ClassifySettings, PointDiagnosis, PointSe
 from calibra.diagnosis.describe import build_findings
 from calibra.diagnosis.evidence import EvidenceSettings, WeekEvidence, gather_evidence
 from calibra.diagnosis.findings import NO_FAULT, DiagnosisKind
+from calibra.diagnosis.fits import reporting_deadband
 from calibra.diagnosis.mismap import (
     QuantityEvaluator,
     best_match,
@@ -68,8 +69,9 @@ def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSe
     def known(factor: float) -> bool:
         return known_scale_cause(factor, quantity, ct_ratio)
 
-    return PointSeries(t_days, ev.measured[:, i].astype(float), ev.implied[:, i].astype(float),
-                       sigma, limit, sig_y, known_factor=known)
+    measured = ev.measured[:, i].astype(float)
+    return PointSeries(t_days, measured, ev.implied[:, i].astype(float), sigma, limit, sig_y,
+                       known_factor=known, deadband=reporting_deadband(measured))
 
 
 def _classify_all(site: Site, ev: WeekEvidence, settings: ClassifySettings) -> dict:
