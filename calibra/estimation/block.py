@@ -135,7 +135,6 @@ class BlockSolver:
         out = self._empty(k, m, n)
         rows: list[dict] = [{} for _ in range(k)]
         single = np.ones(k, bool)
-        retry = np.zeros(k, bool)  # left the block after Gauss-Newton on its own matrix
         ref = self._reference(Z, avail)
         if ref is not None:
             obs = ref.observability
@@ -160,12 +159,20 @@ class BlockSolver:
                                    "dof": int(avail[i].sum()) - (self.setup.nx - free)
                                    + (self.setup.cidx.size - off)}
                     # Gauss-Newton on its own matrix did not converge either (its normal
-                    # equations can stall at steps of 1e-5 on a stiff model): the single
-                    # estimator, which finishes on the augmented matrix, takes it over.
-                    retry[[i for i in g.members[~done[g.members]] if i in self._newton_last]] \
-                        = True
+                    # equations can stall at steps of 1e-5 on a stiff model). The single
+                    # estimator, which finishes on the augmented matrix, converges on most of
+                    # them, but it costs 1-2 s a snapshot on PEGASE 1354 and every pass repeats
+                    # it (a week's review 74 s -> 116 s for 8 more of 672 snapshots): say so.
+                    for i in g.members[~done[g.members]]:
+                        if i in self._newton_last:
+                            single[i] = False
+                            rows[i] = {"converged": False, "iterations": int(iters[i]),
+                                       "method": "block", **outcome_of(own), "dof": 0,
+                                       "reason": "no convergence (Gauss-Newton on the "
+                                                 "snapshot's own matrix, last step "
+                                                 f"{self._newton_last[i]:.2e})"}
                 self._residuals(Z, avail, blockable, single, out)
-        rest = np.flatnonzero(single & ~retry)
+        rest = np.flatnonzero(single)
         if not self.partial and rest.size >= 4:
             self._solve_partial_groups(Z, rest, confidence, out, rows, single)
         for i in np.flatnonzero(single):
@@ -444,9 +451,17 @@ class BlockSolver:
                 accel.keep(stay)
         vm[:, live], va[:, live], lam[:, live] = x_vm, x_va, x_lam
 
+    def _group_omega(self, g: MissingGroup, avail: np.ndarray) -> np.ndarray | None:
+        """Ωᵢᵢ of snapshots of group ``g`` (``avail``: their rows × m; NaN where not
+        available); None without statistics."""
+        if not self.statistics:
+            return None
+        full = np.full(self.model.m, np.nan)
+        full[self.setup.idx] = g.omega_diag
+        return np.where(avail, full, np.nan)
+
     def _residuals(self, Z, avail, groups, single, out: BlockResult) -> None:
         model = self.model
-        idx = self.setup.idx
         ok = np.flatnonzero(~single)
         if ok.size == 0:
             return
@@ -459,11 +474,8 @@ class BlockSolver:
             return
         for g in groups:
             mem = g.members[~single[g.members]]
-            if mem.size == 0:
-                continue
-            full = np.full(model.m, np.nan)
-            full[idx] = g.omega_diag
-            out.omega[mem] = np.where(avail[mem], full[None, :], np.nan)
+            if mem.size:
+                out.omega[mem] = self._group_omega(g, avail[mem])
 
     # ------------------------------------------------------------------ fallback
     def _single(self, i: int, z: np.ndarray, confidence: float, out: BlockResult) -> dict:
