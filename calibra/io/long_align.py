@@ -64,7 +64,7 @@ def read_long(paths: list[Path], layouts: list[LongLayout], points: pd.DataFrame
     ctx.texts = samples.texts
     for name, (count, seq) in samples.unknown_tags.items():
         rel, row = seq_place(seq, ctx.files)
-        log.warning(rel, row, name, f"{count} sample(s) of '{name}', not a tag of points.csv; "
+        log.warning(rel, row, name, f"{count} sample(s) of '{name}', not a tag of the point list; "
                     "not loaded" + (" (the first in this row)" if count > 1 else ""),
                     count=count)
     index = pd.DatetimeIndex([], tz="UTC", name="timestamp").as_unit("ns")

@@ -381,7 +381,7 @@ def _value_columns(
             continue  # read by apply_quality
         elif quantities is not None and name not in quantities.index:
             seen[name] = pos + 1
-            log.warning(rel, 1, name, "not a tag of points.csv; column not loaded")
+            log.warning(rel, 1, name, "not a tag of the point list; column not loaded")
         else:
             seen[name] = pos + 1
             keep.append(pos)

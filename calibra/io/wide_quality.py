@@ -57,7 +57,7 @@ def apply_quality(table: pd.DataFrame, names: list[str], keep: list[int], values
         tag = name[: -len(QUALITY_SUFFIX)]
         if tag not in tags:
             log.warning(rel, 1, name, f"a quality column without a column '{tag}' of a point "
-                        "of points.csv; ignored")
+                        "of the point list; ignored")
             continue
         j = tags[tag]
         codes = table.iloc[:, pos]

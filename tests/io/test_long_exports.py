@@ -231,7 +231,7 @@ def test_unknown_tags_are_counted(wide_and_long):
     long.loc[long["tag"] == "FNH.V", "tag"] = "FNH.V2"
     write_parts(folder, long, ["a.csv"])
     hit = [p for p in problems_of(folder) if p.column == "FNH.V2"]
-    assert hit and hit[0].count == 4 and "not a tag of points.csv" in hit[0].message
+    assert hit and hit[0].count == 4 and "not a tag of the point list" in hit[0].message
 
 
 # ----------------------------------------------------------------------------- bad input

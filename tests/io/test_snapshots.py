@@ -141,7 +141,7 @@ def test_column_that_is_not_a_tag_is_reported_and_not_loaded(files, tmp_path):
     files.snapshots["week.csv"].add_column("SPARE.AI7", "1.0")
     site = load_site(files.write(tmp_path))
     p = find(site.problems, WEEK, 1, "SPARE.AI7", "warning")
-    assert "not a tag of points.csv" in p.message
+    assert "not a tag of the point list" in p.message
     assert "SPARE.AI7" not in site.snapshots.columns
 
 
