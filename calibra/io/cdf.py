@@ -30,7 +30,7 @@ from calibra.io.branch_checks import (
     no_impedance_message,
 )
 from calibra.io.problems import ProblemLog
-from calibra.io.text_files import read_text
+from calibra.io.text_files import source_text
 from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS, Network
 from calibra.model.site import LoadProblem, SiteLoadError
 
@@ -75,14 +75,7 @@ def read_cdf(source: str | Path, *, frequency_hz: float = 60.0) -> CdfCase:
     warnings are kept in ``CdfCase.problems``.
     """
     log = ProblemLog()
-    if isinstance(source, str) and "\n" in source:
-        text, label = source, "<text>"
-    else:
-        path = Path(source)
-        label = path.name
-        text = read_text(path, label, log) if path.is_file() else None
-        if text is None and not log.items:
-            log.error(label, None, None, "file not found")
+    text, label = source_text(source, log)
     case = parse_cdf(text, label, log, frequency_hz=frequency_hz) if text is not None else None
     if case is None or log.has_errors:
         raise CdfFormatError(log.items)

@@ -32,7 +32,7 @@ from calibra.io.branch_checks import (
 )
 from calibra.io.matpower_text import Assignment, CaseText, parse_case_text
 from calibra.io.problems import ProblemLog
-from calibra.io.text_files import read_text
+from calibra.io.text_files import source_text
 from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS, Network
 from calibra.model.site import LoadProblem, SiteLoadError
 
@@ -94,14 +94,7 @@ def read_matpower(source: str | Path, *, frequency_hz: float = 60.0) -> Matpower
     warnings are kept in ``MatpowerCase.problems``.
     """
     log = ProblemLog()
-    if isinstance(source, str) and "\n" in source:
-        text, label = source, "<text>"
-    else:
-        path = Path(source)
-        label = path.name
-        text = read_text(path, label, log) if path.is_file() else None
-        if text is None and not log.items:
-            log.error(label, None, None, "file not found")
+    text, label = source_text(source, log)
     case = parse_matpower(text, label, log, frequency_hz=frequency_hz) if text else None
     if text == "":
         log.error(label, None, None, "the file is empty")

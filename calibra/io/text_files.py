@@ -97,6 +97,19 @@ def header_problem(text: str) -> str | None:
     return None
 
 
+def source_text(source: str | Path, log: ProblemLog) -> tuple[str | None, str]:
+    """The text of a network file and the label its problems carry: ``source`` is a path, or
+    the file's text itself when it contains a line break (label ``<text>``). None, with an
+    error logged, when the file is missing or unreadable."""
+    if isinstance(source, str) and "\n" in source:
+        return source, "<text>"
+    path = Path(source)
+    text = read_text(path, path.name, log) if path.is_file() else None
+    if text is None and not log.items:
+        log.error(path.name, None, None, "file not found")
+    return text, path.name
+
+
 def read_csv_text(path: Path, rel: str, log: ProblemLog) -> tuple[str, Dialect] | None:
     """The decoded text of a CSV file and its dialect (a warning when not comma-separated);
     None, with an error logged, when it cannot be read, is empty or does
