@@ -158,11 +158,8 @@ class BlockSolver:
                                    **outcome_of(own),
                                    "dof": int(avail[i].sum()) - (self.setup.nx - free)
                                    + (self.setup.cidx.size - off)}
-                    # Gauss-Newton on its own matrix did not converge either (its normal
-                    # equations can stall at steps of 1e-5 on a stiff model). The single
-                    # estimator, which finishes on the augmented matrix, converges on most of
-                    # them, but it costs 1-2 s a snapshot on PEGASE 1354 and every pass repeats
-                    # it (a week's review 74 s -> 116 s for 8 more of 672 snapshots): say so.
+                    # Gauss-Newton on its own matrix stalled too: say so (the single estimator
+                    # would cost 1-2 s a snapshot in every pass; DEVELOPERS.md, PEGASE 1354).
                     for i in g.members[~done[g.members]]:
                         if i in self._newton_last:
                             single[i] = False

@@ -136,8 +136,8 @@ class Ledger:
                                      review_id)
             seen = set(ids)
             for fid, status in statuses.items():
-                if (fid in seen or status.state != FindingState.REPAIRED
-                        or status.repaired_at >= end):
+                repaired = status.state == FindingState.REPAIRED
+                if fid in seen or not repaired or status.repaired_at >= end:
                     continue
                 tag = conn.execute("SELECT tag FROM findings WHERE finding_id = ?",
                                    (fid,)).fetchone()["tag"]
@@ -173,8 +173,8 @@ class Ledger:
                     review_id: int) -> None:
         """Reopen a dismissed or repaired finding that this review finds again."""
         reason = None
-        dismissed = status.dismissed_values or {}
-        if status.state == FindingState.DISMISSED and changed_materially(dismissed, row):
+        if status.state == FindingState.DISMISSED and changed_materially(
+                status.dismissed_values or {}, row):
             reason = "fitted values changed materially since the dismissal"
         elif status.state == FindingState.REPAIRED and start >= status.repaired_at:
             reason = "the repair did not clear it: found again in the data after the repair"
@@ -306,9 +306,7 @@ class Ledger:
 
     def history(self, tag: str | None = None, finding_id: str | None = None) -> pd.DataFrame:
         """The action log (oldest first), indexed by action id; ``undone_by`` names the undo.
-
-        For a finding: its own actions and the tag-wide actions of its tag since it was found.
-        """
+        For a finding: its own actions and the tag-wide actions of its tag since it was found."""
         if finding_id is not None:
             row = self._conn.execute("SELECT tag FROM findings WHERE finding_id = ?",
                                      (finding_id,)).fetchone()
