@@ -13,16 +13,14 @@ from pathlib import Path
 import pandas as pd
 
 from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, UsageError, print_usable, tally
-from calibra.io import load_site
 from calibra.io.import_report import plan_lines
 from calibra.io.site_import import (
     ImportRefused,
     ImportRequest,
     SiteFields,
-    build_site,
     plan_import,
+    run_import,
 )
-from calibra.model.site import SiteLoadError
 from calibra.progress import terminal_progress
 
 
@@ -125,16 +123,14 @@ def run(args: argparse.Namespace) -> int:
     if args.preview:
         print("preview: nothing written")
         return EXIT_OK
-    replaced = build_site(plan, progress)
-    if replaced is not None:
-        print(f"the folder that was there is kept as {replaced}")
-    print(f"wrote {request.target}; loading it")
-    try:
-        site = load_site(request.target)
-    except SiteLoadError as exc:
-        for problem in exc.problems:
+    outcome = run_import(plan, progress)
+    if outcome.replaced is not None:
+        print(f"the folder that was there is kept as {outcome.replaced}")
+    print(f"wrote {request.target}")
+    if outcome.site is None:
+        for problem in outcome.problems:
             print(problem)
-        print(f"result: not usable ({tally(exc.problems)}); the folder is written: correct "
+        print(f"result: not usable ({tally(outcome.problems)}); the folder is written: correct "
               f"its site.toml or the files and run 'calibra check {request.target}'")
         return EXIT_UNUSABLE
-    return print_usable(site)
+    return print_usable(outcome.site)

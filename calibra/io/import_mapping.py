@@ -111,7 +111,7 @@ def map_point_list(path: Path, label: str, given: dict[str, str], sheet: str | N
         header, body = table
         file, where, sheet_name = label, [f"column {k + 1}" for k in range(len(header))], None
     else:
-        read = read_sheet(path, label, sheet, log)
+        read = read_sheet(path, label, sheet, log, ("--sheet", None, None))
         if read is None:
             return None
         header = [h.strip() for h in read.header]

@@ -31,10 +31,10 @@ from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE
 from calibra.io.point_source import POINTS_FILE
 from calibra.io.problems import ProblemLog
 from calibra.io.site_config import SITE_FILE, check_timezone
-from calibra.io.site_folder import CDF_SUFFIXES
+from calibra.io.site_folder import CDF_SUFFIXES, load_site
 from calibra.io.snapshot_reports import SNAPSHOT_DIR
 from calibra.io.text_files import read_text
-from calibra.model.site import LoadProblem
+from calibra.model.site import LoadProblem, Site, SiteLoadError
 from calibra.progress import Progress
 
 #: The usual system base of per-unit impedances (common practice, no source).
@@ -358,3 +358,30 @@ def build_site(plan: ImportPlan, progress: Progress | None = None) -> Path | Non
         shutil.rmtree(temp, ignore_errors=True)
         raise
     return replaced
+
+
+@dataclass(frozen=True)
+class ImportOutcome:
+    """A built folder: where it is, where a replaced folder went (None: none), the loaded
+    site (None when the loader refuses it) and every problem the loader found."""
+
+    folder: Path
+    replaced: Path | None
+    site: Site | None
+    problems: list[LoadProblem]
+
+    @property
+    def usable(self) -> bool:
+        return self.site is not None
+
+
+def run_import(plan: ImportPlan, progress: Progress | None = None) -> ImportOutcome:
+    """Build the folder (:func:`build_site`) and load it with the ordinary loader."""
+    replaced = build_site(plan, progress)
+    if progress is not None:
+        progress.update(0, 0, "loading the new site")
+    try:
+        site = load_site(plan.request.target)
+    except SiteLoadError as exc:
+        return ImportOutcome(plan.request.target, replaced, None, list(exc.problems))
+    return ImportOutcome(plan.request.target, replaced, site, list(site.problems))
