@@ -21,6 +21,7 @@ from calibra.io.site_import import (
     plan_import,
     run_import,
 )
+from calibra.io.snapshot_settings import positive_duration
 from calibra.progress import terminal_progress
 
 
@@ -70,11 +71,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def _duration(text: str | None, option: str) -> pd.Timedelta | None:
     if text is None:
         return None
-    try:
-        value = pd.Timedelta(text.strip())
-    except (ValueError, TypeError):
-        value = None
-    if value is None or value <= pd.Timedelta(0):
+    value = positive_duration(text)
+    if value is None:
         raise UsageError(f"{option} {text!r} is not a duration such as 30s, 1min or 15min")
     return value
 

@@ -89,12 +89,9 @@ def csv_table(path: Path, label: str,
     return [h.strip() for h in records[0]], [[c.strip() for c in r] for r in records[1:]]
 
 
-def map_point_list(path: Path, label: str, given: dict[str, str], sheet: str | None,
-                   log: ProblemLog) -> PointListMapping | None:
-    """The mapping of the point list at ``path`` (problems name it ``label``): ``given`` holds
-    the user's mapping (calibra column → header), ``sheet`` the sheet of a spreadsheet (None:
-    the first). None, with errors logged, when the file cannot be read or a required column
-    cannot be placed."""
+def _read(path: Path, label: str, sheet: str | None, log: ProblemLog):
+    """(file as problems name it, the sheet read, header, where each header is, data rows);
+    None, with an error logged, when the file cannot be read."""
     suffix = path.suffix.lower()
     if suffix not in POINT_LIST_SUFFIXES:
         log.error(label, None, None, f"not a point list this program reads (a {suffix or 'file'}"
@@ -109,15 +106,31 @@ def map_point_list(path: Path, label: str, given: dict[str, str], sheet: str | N
         if table is None:
             return None
         header, body = table
-        file, where, sheet_name = label, [f"column {k + 1}" for k in range(len(header))], None
-    else:
-        read = read_sheet(path, label, sheet, log, ("--sheet", None, None))
-        if read is None:
-            return None
-        header = [h.strip() for h in read.header]
-        body = [row for _, row in read.body]
-        file, where = read.file, read.letters
-        sheet_name = read.file[len(label) + 2:-1]
+        return label, None, header, [f"column {k + 1}" for k in range(len(header))], body
+    read = read_sheet(path, label, sheet, log, ("--sheet", None, None))
+    if read is None:
+        return None
+    return (read.file, read.file[len(label) + 2:-1], [h.strip() for h in read.header],
+            read.letters, [row for _, row in read.body])
+
+
+def point_list_headers(path: Path, sheet: str | None, log: ProblemLog) -> list[str] | None:
+    """The header of a point list (of ``sheet`` of a spreadsheet; None: the first): what a
+    mapping can name. None, with an error logged, when it cannot be read."""
+    found = _read(path, str(path), sheet, log)
+    return None if found is None else [h for h in found[2] if h]
+
+
+def map_point_list(path: Path, label: str, given: dict[str, str], sheet: str | None,
+                   log: ProblemLog) -> PointListMapping | None:
+    """The mapping of the point list at ``path`` (problems name it ``label``): ``given`` holds
+    the user's mapping (calibra column → header), ``sheet`` the sheet of a spreadsheet (None:
+    the first). None, with errors logged, when the file cannot be read or a required column
+    cannot be placed."""
+    found = _read(path, label, sheet, log)
+    if found is None:
+        return None
+    file, sheet_name, header, where, body = found
     body = [row for row in body if any(c.strip() for c in row)]
     return _mapping(file, sheet_name, header, where, body, given, log)
 

@@ -21,6 +21,13 @@ def _some(items: list[str]) -> str:
     return shown + (f" and {len(items) - NAMED} more" if len(items) > NAMED else "")
 
 
+def mapping_rows(plan: ImportPlan) -> list[list[str]]:
+    """The mapping as table rows: calibra's column, the file's header, where it is, how it
+    was found, the first values."""
+    return [[c.column, c.header, c.where, str(c.placement),
+             " | ".join(v if v else "(empty)" for v in c.samples)] for c in plan.mapping.matches]
+
+
 def mapping_lines(plan: ImportPlan) -> list[str]:
     """Each calibra column ← the file's header (where, how placed), with the first values;
     then the headers no column takes."""
@@ -28,10 +35,8 @@ def mapping_lines(plan: ImportPlan) -> list[str]:
     lines = [f"point list: {m.file}, {m.rows} rows; calibra's column <- the file's header "
              "(column, how found): first values"]
     width = max(len(c.column) for c in m.matches)
-    for c in m.matches:
-        values = " | ".join(v if v else "(empty)" for v in c.samples)
-        lines.append(f"  {c.column:<{width}} <- '{c.header}' ({c.where}, {c.placement}): "
-                     f"{values}")
+    for column, header, where, how, values in mapping_rows(plan):
+        lines.append(f"  {column:<{width}} <- '{header}' ({where}, {how}): {values}")
     if m.unplaced:
         lines.append("  headers not placed (not read): " + ", ".join(f"'{h}'" for h in m.unplaced))
     return lines
@@ -89,10 +94,15 @@ def network_lines(plan: ImportPlan) -> list[str]:
     return lines
 
 
+def overview_lines(plan: ImportPlan) -> list[str]:
+    """The exports, the network and the choices made for the user."""
+    return (history_lines(plan) + network_lines(plan)
+            + [f"note: {note}" for note in plan.notes])
+
+
 def plan_lines(plan: ImportPlan) -> list[str]:
     """The whole preview: mapping, exports, network, the choices made, the folder's files."""
-    lines = mapping_lines(plan) + history_lines(plan) + network_lines(plan)
-    lines += [f"note: {note}" for note in plan.notes]
+    lines = mapping_lines(plan) + overview_lines(plan)
     lines.append(f"folder {plan.request.target}: site.toml, "
                  + ", ".join(dest for _, dest in plan.copies if not dest.startswith("snapshots"))
                  + f", snapshots/ ({len(plan.request.history)} files)")

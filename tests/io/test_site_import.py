@@ -257,3 +257,13 @@ def test_replace_keeps_the_old_folder_beside(exports, tmp_path):
     assert old is not None and old.parent == tmp_path and old.name.startswith("site.replaced-")
     assert (old / "calibra-ledger.sqlite").read_bytes() == b"decisions"
     assert (target / "site.toml").is_file()
+
+
+def test_point_list_headers_for_the_mapping_choices(exports, tmp_path):
+    from calibra.io.import_mapping import point_list_headers
+
+    log = ProblemLog()
+    assert point_list_headers(exports["points"], None, log)[:3] == ["SCADA point", "Meas type",
+                                                                    "Equipment"]
+    assert point_list_headers(exports["points"], "Analogs", log) is None
+    assert "a CSV file has no sheets" in log.items[-1].message
