@@ -28,7 +28,6 @@ from calibra.simulate.sample_exports import (
     MAX_AGE,
     SAMPLE_SITE,
     import_command,
-    write_sample_exports,
 )
 from calibra.simulate.sample_site import tarrowmere_case
 
@@ -39,9 +38,8 @@ def sample():
 
 
 @pytest.fixture(scope="module")
-def exported(tmp_path_factory):
-    out = tmp_path_factory.mktemp("exports")
-    return out, write_sample_exports(out)
+def exported(sample_exports):
+    return sample_exports
 
 
 def _matrix(text: str, name: str) -> np.ndarray:
