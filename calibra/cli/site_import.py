@@ -119,6 +119,8 @@ def run(args: argparse.Namespace) -> int:
     for line in plan_lines(plan):
         print(line)
     if args.preview:
+        for problem in plan.warnings:
+            print(problem)
         print("preview: nothing written")
         return EXIT_OK
     outcome = run_import(plan, progress)

@@ -368,7 +368,7 @@ class ImportDialog(QDialog):
         self.unplaced.setText("Headers not placed (not read): "
                               + (", ".join(f"'{h}'" for h in unplaced) if unplaced else "none"))
         self.overview.setPlainText("\n".join(overview_lines(plan)))
-        self._show_problems([])
+        self._show_problems(list(plan.warnings), show=False)
         self.tabs.setCurrentIndex(0)
         self._say(f"Nothing written yet. Import copies {len(plan.copies)} files into "
                   f"{plan.request.target} with the mapping shown.")
@@ -385,10 +385,10 @@ class ImportDialog(QDialog):
             self._say(f"Written to {outcome.folder}, but not usable: correct the problems "
                       f"listed (site.toml or the files) and open it again.{kept}")
 
-    def _show_problems(self, problems: list[LoadProblem]) -> None:
+    def _show_problems(self, problems: list[LoadProblem], show: bool = True) -> None:
         self.problems.fill(problem_rows(problems))
         self.tabs.setTabText(2, f"Problems ({len(problems)})")
-        if problems:
+        if problems and show:
             self.tabs.setCurrentIndex(2)
 
     def _on_open_clicked(self) -> None:

@@ -104,7 +104,8 @@ class ImportPlan:
     """Everything the folder will hold: each copy (the user's file → its path in the
     folder), the point list's mapping, the exports' summary, the network's summary and the
     base used; ``notes`` state the choices made for the user (an assumed base, an inferred
-    interval)."""
+    interval); ``warnings`` what the readers found while planning (the loader reports them
+    again once the folder is built)."""
 
     request: ImportRequest
     copies: tuple[tuple[Path, str], ...]
@@ -113,6 +114,7 @@ class ImportPlan:
     network: NetworkSummary
     base_mva: float | None
     notes: tuple[str, ...]
+    warnings: tuple[LoadProblem, ...] = ()
 
     def export_tags_not_listed(self) -> list[str]:
         return sorted(self.history.tags - set(self.mapping.tags))
@@ -260,7 +262,8 @@ def plan_import(request: ImportRequest, progress: Progress | None = None) -> Imp
         f"points{request.point_list.suffix.lower()}"
     copies = (*network_copies, (request.point_list, point_name),
               *((p, f"{SNAPSHOT_DIR}/{p.name}") for p in request.history))
-    return ImportPlan(request, tuple(copies), mapping, history, network, base, tuple(notes))
+    return ImportPlan(request, tuple(copies), mapping, history, network, base, tuple(notes),
+                      tuple(p for p in log.items if p.severity == "warning"))
 
 
 def _toml_duration(t: pd.Timedelta) -> str:

@@ -81,3 +81,15 @@ def test_unusable_after_writing_says_what_to_do(exports, tmp_path, capsys):  # n
     assert code == 1
     assert "error: points.csv, row 6, column 'Equipment': unknown bus 'NOWHERE'" in out
     assert "the folder is written: correct its site.toml or the files" in out
+
+
+def test_preview_lists_what_the_readers_warn_about(exports, tmp_path, capsys):  # noqa: F811
+    from tests.io.test_site_import import FIXTURES
+
+    argv = args(exports, tmp_path / "site", "--preview")
+    at = argv.index("--network")
+    argv[at + 1:at + 3] = [str(FIXTURES / "harrowdene.m")]
+    code, out = run(capsys, argv)
+    assert code == 0
+    assert "warning: " + str(FIXTURES / "harrowdene.m") + ", row 55, column 'gencost'" in out
+    assert "point-list elements that are not a bus or branch of it: 5 (FNH-TLR-1, FNH132, " in out
