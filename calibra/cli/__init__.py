@@ -1,10 +1,10 @@
 """The ``calibra`` command line.
 
 Each subcommand is a :class:`Command`: a function that adds its arguments and a function that
-runs it and returns the exit code, both from the subcommand's module (``check``, ``estimate``,
-``review``, ``ledger`` here; ``open`` in :mod:`calibra.gui.launch`, which is free of Qt). What
-the subcommands share is in :mod:`calibra.cli.common`. Add a subcommand by appending to
-:data:`COMMANDS`.
+runs it and returns the exit code, both from the subcommand's module (``check``, ``import``
+in ``site_import``, ``estimate``, ``review``, ``ledger`` here; ``open`` in
+:mod:`calibra.gui.launch`, which is free of Qt). What the subcommands share
+is in :mod:`calibra.cli.common`. Add a subcommand by appending to :data:`COMMANDS`.
 
 Exit codes: 0 done (the site is usable), 1 the data is not usable, 2 the command was used
 wrongly (unknown option, missing folder). Problems with the user's data are printed one per
@@ -19,7 +19,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import calibra
-from calibra.cli import check, estimate, ledger, review
+from calibra.cli import check, estimate, ledger, review, site_import
 from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, EXIT_USAGE, UsageError
 from calibra.gui import launch
 
@@ -43,6 +43,13 @@ COMMANDS: list[Command] = [
         "load a site folder and list what was loaded and every problem found",
         check.add_arguments,
         check.run,
+    ),
+    Command(
+        "import",
+        "build a site folder from a historian export, a point list and a network file, then "
+        "load it and list every problem (--preview: write nothing, show the mapping)",
+        site_import.add_arguments,
+        site_import.run,
     ),
     Command(
         "estimate",

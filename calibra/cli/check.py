@@ -5,8 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, site_folder, tally
-from calibra.io import load_site, site_summary_lines
+from calibra.cli.common import EXIT_UNUSABLE, print_usable, site_folder, tally
+from calibra.io import load_site
 from calibra.model.site import SiteLoadError
 
 
@@ -30,9 +30,4 @@ def run(args: argparse.Namespace) -> int:
             p.severity == "error" for p in exc.problems) else ""
         print(f"result: not usable{strict} ({tally(exc.problems)})")
         return EXIT_UNUSABLE
-    for line in site_summary_lines(site):
-        print(line)
-    for problem in site.problems:
-        print(problem)
-    print(f"result: usable ({tally(site.problems)})")
-    return EXIT_OK
+    return print_usable(site)

@@ -103,3 +103,13 @@ def load_for_command(folder: Path, start: pd.Timestamp | None = None,
     if site.problems:
         print(f"load: {tally(site.problems)} (listed by 'calibra check {folder}')")
     return site
+
+
+def print_usable(site: Site) -> int:
+    """Print what was loaded, every problem and the verdict of a usable site; EXIT_OK."""
+    for line in site_summary_lines(site):
+        print(line)
+    for problem in site.problems:
+        print(problem)
+    print(f"result: usable ({tally(site.problems)})")
+    return EXIT_OK

@@ -32,6 +32,7 @@ from calibra.gui.qt_device_actions import DeviceActions
 from calibra.gui.qt_diagram import DiagramPanel
 from calibra.gui.qt_dialogs import ABOUT_HTML, ProblemsDialog, Prompts, SettingsDialog
 from calibra.gui.qt_findings import FindingsPanel
+from calibra.gui.qt_import import ImportDialog
 from calibra.gui.qt_jobs import JobRunner
 from calibra.gui.qt_plots import PlotPanel
 from calibra.gui.qt_point_actions import PointActions
@@ -67,6 +68,7 @@ class MainWindow(QMainWindow):
         self.prompts = Prompts(self)
         self.dialogs: list[QWidget] = []  # non-modal dialogs kept alive
         self.jobs = JobRunner(self)
+        self.import_dialog: ImportDialog | None = None
         self._build()
         self.state.changed.connect(self._on_state_changed)
         self.jobs.progressed.connect(self._on_job_progress)
@@ -162,6 +164,8 @@ class MainWindow(QMainWindow):
         menu = self.menuBar()
         site_menu = menu.addMenu("&Site")
         site_menu.addAction(self.open_action)
+        site_menu.addAction(self._action("Import exports…", self.show_import_dialog, tip=(
+            "Build a new site folder from a historian export, a point list and a network")))
         self.recent_menu = site_menu.addMenu("Recent sites")
         site_menu.addSeparator()
         site_menu.addAction(self._action("Quit", self.close, QKeySequence.Quit))
@@ -261,6 +265,13 @@ class MainWindow(QMainWindow):
         folder = QFileDialog.getExistingDirectory(self, "Open a site folder", start)
         if folder:
             self.open_site(Path(folder))
+
+    def show_import_dialog(self) -> ImportDialog:
+        """The import dialog; the site it builds is opened here when the user asks."""
+        dialog = self.import_dialog = ImportDialog(self)
+        dialog.site_ready.connect(self.open_site)
+        dialog.show()
+        return dialog
 
     def open_site(self, folder: str | Path) -> None:
         """Load a site folder in the background; problems are listed if it is not usable."""

@@ -6,7 +6,7 @@ The rule (documented in ``sample_site/README.md``):
   from ``[snapshots]`` in ``site.toml``, else inferred from the data (the median spacing of
   each point's consecutive samples, rounded to a whole second and to a common interval
   within 10 %). A grid time is a snapshot when some point has a sample younger than the
-  maximum age there.
+  maximum age there, up to the first grid time at or after the latest sample.
 - A point's value at a grid time g is its latest sample at or before g when that sample is
   younger than ``max_age`` (0 ≤ g − t < max_age; default one interval) and usable (good,
   questionable, substituted, manual or override). A bad sample, an empty or unusable value
@@ -110,27 +110,34 @@ def _without_repeats(arrays: dict[str, np.ndarray], ctx: Reading,
 
 
 def _inferred(arrays: dict[str, np.ndarray], ctx: Reading, log: ProblemLog) -> pd.Timedelta:
-    """The median spacing of each point's consecutive samples, rounded (see the module)."""
-    same = arrays["tag"][1:] == arrays["tag"][:-1]
-    steps = np.diff(arrays["time"])[same]
-    steps = steps[steps > 0]
-    if not len(steps):
-        interval = pd.Timedelta("1min")
-        how = "no point has two samples: one minute assumed"
-    else:
-        median = pd.Timedelta(int(np.median(steps)), unit="ns")
-        interval = max(median.round("1s"), pd.Timedelta("1s"))
-        near = min(COMMON_INTERVALS, key=lambda c: abs(c - interval))
-        if abs(near - interval) <= 0.1 * near:
-            interval = near
-        how = f"inferred from the samples (median spacing {median.total_seconds():g} s)"
+    """The grid interval inferred from the samples (see :func:`infer_interval`), stated in a
+    warning."""
+    interval, how = infer_interval(arrays["tag"], arrays["time"])
     log.warning(ctx.files[0] if len(ctx.files) == 1 else "snapshots", None, None,
-                f"long exports put on a grid of one snapshot every {_text(interval)}, {how}; "
-                "set interval in [snapshots] of site.toml to choose it")
+                f"long exports put on a grid of one snapshot every {duration_text(interval)}, "
+                f"{how}; set interval in [snapshots] of site.toml to choose it")
     return interval
 
 
-def _text(t: pd.Timedelta) -> str:
+def infer_interval(tags: np.ndarray, times: np.ndarray) -> tuple[pd.Timedelta, str]:
+    """The median spacing of each point's consecutive samples (``tags``/``times`` sorted by
+    tag, then time; UTC ns), rounded to a whole second and to a common interval within
+    10 %, with a phrase saying how it was found."""
+    same = tags[1:] == tags[:-1]
+    steps = np.diff(times)[same]
+    steps = steps[steps > 0]
+    if not len(steps):
+        return pd.Timedelta("1min"), "no point has two samples: one minute assumed"
+    median = pd.Timedelta(int(np.median(steps)), unit="ns")
+    interval = max(median.round("1s"), pd.Timedelta("1s"))
+    near = min(COMMON_INTERVALS, key=lambda c: abs(c - interval))
+    if abs(near - interval) <= 0.1 * near:
+        interval = near
+    return interval, f"inferred from the samples (median spacing {median.total_seconds():g} s)"
+
+
+def duration_text(t: pd.Timedelta) -> str:
+    """``1 min``, ``30 s``, ``1 h``."""
     seconds = t.total_seconds()
     if seconds % 3600 == 0:
         return f"{seconds / 3600:g} h"
@@ -142,7 +149,9 @@ def _grid(times: np.ndarray, interval: pd.Timedelta, max_age: pd.Timedelta,
     """The grid times (UTC ns) with some sample younger than ``max_age``, inside ``period``."""
     step, age = int(interval.value), int(max_age.value)
     first = -(-int(times.min()) // step) * step
-    last = (int(times.max()) + age - 1) // step * step
+    # no grid time after the one the latest sample serves first: values held past the end of
+    # the exports would be snapshots without a single fresh sample
+    last = min((int(times.max()) + age - 1) // step, -(-int(times.max()) // step)) * step
     grid = np.arange(first, last + 1, step, dtype=np.int64)
     start, end = period or (None, None)
     if start is not None:
@@ -230,7 +239,7 @@ def _report_point(arrays: dict[str, np.ndarray], rows: slice, tag: int, held: in
     if held:
         rel, _ = _first(arrays, seqs, ctx)
         log.warning(rel, None, name, f"{held} snapshot value(s) held from an earlier sample "
-                    f"(younger than {_text(max_age)}) to the snapshot time", count=held)
+                    f"(younger than {duration_text(max_age)}) to the snapshot time", count=held)
     if unused.any():
         rel, row = _first(arrays, seqs[unused], ctx)
         n = int(unused.sum())

@@ -72,3 +72,9 @@ def point_header_names(
         return out
 
     return names
+
+
+def recognised_column(header: str) -> str | None:
+    """The column a header reads as without a mapping (its own name or an alias of
+    :data:`COLUMN_ALIASES`), None when it is none of them."""
+    return _BY_HEADER.get(fold_header(header))

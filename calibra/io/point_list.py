@@ -177,9 +177,21 @@ def _check_elements(
     log: ProblemLog,
 ) -> None:
     """Each element must be a known bus or branch of the kind the quantity needs; the point's
-    substation should be that of the measured bus or branch end (a warning otherwise)."""
+    substation should be that of the measured bus or branch end (a warning otherwise). A
+    network that names no substations (every bus its own, named by its id, as a CDF or
+    MATPOWER file gives them) is not compared with the point list's substations: one warning
+    says so when the point list names others."""
     bus_sub = dict(zip(buses.index, buses["substation"], strict=True)) if buses is not None \
         else None
+    compare = bus_sub is not None
+    if compare and all(sub == bus for bus, sub in bus_sub.items()):
+        named = sorted({s for s in points["substation"] if s and s not in bus_sub})
+        if named:
+            log.warning(t.file, None, "substation",
+                        f"the network names no substations (each bus is its own, named by its "
+                        f"id); the point list's {len(named)} substations ('{named[0]}'…) are "
+                        "not checked against the buses", count=len(named))
+        compare = False
     ends = (dict(zip(branches.index, zip(branches["from_bus"], branches["to_bus"],
                                          strict=True), strict=True))
             if branches is not None else None)
@@ -205,7 +217,7 @@ def _check_elements(
             else:
                 log.error(t.file, row, "element", f"unknown {kind} '{element}'")
             continue
-        if bus_sub is None or sub == "":
+        if not compare or sub == "":
             continue
         if kind == "bus":
             at = [element]

@@ -37,7 +37,9 @@ class SnapshotSettings:
     quality: dict[str, Quality] = field(default_factory=dict)
 
 
-def _duration(value: object) -> pd.Timedelta | None:
+def positive_duration(value: object) -> pd.Timedelta | None:
+    """A duration text such as ``"30s"``, ``"1min"`` or ``"15min"`` greater than zero; None
+    when ``value`` is none."""
     if not isinstance(value, str) or not value.strip():
         return None
     try:
@@ -59,7 +61,7 @@ def read_snapshot_settings(table: object, file: str, line_of: Callable[[str], in
     times = {}
     for key in ("interval", "max_age"):
         if key in table:
-            times[key] = _duration(table[key])
+            times[key] = positive_duration(table[key])
             if times[key] is None:
                 log.error(file, line_of(key), key, f"must be a duration such as \"1min\", "
                           f"\"30s\" or \"15min\", not {table[key]!r}")

@@ -423,3 +423,21 @@ def test_parquet_row_groups_outside_the_period_are_not_read(wide_and_long):
     pd.testing.assert_frame_equal(
         part.snapshots, load_site(wide.path, start="2024-03-04 10:02",
                                   end="2024-03-04 10:03").snapshots)
+
+
+def test_no_snapshot_after_the_latest_sample(files, tmp_path):
+    # The grid rule (sample_site/README.md): a long max_age (points stored by exception) holds
+    # values forward, but not past the grid time the latest sample serves first; otherwise the
+    # last snapshots would hold no fresh sample at all.
+    files.toml = SITE_TOML + '\n[snapshots]\ninterval = "1min"\nmax_age = "15min"\n'
+    files.snapshots = {"long.csv": "point,time,value,quality\n"
+                       "FNH.V,2024-03-04T09:00:00Z,133.1,good\n"
+                       "FNH.V,2024-03-04T09:01:00Z,133.2,good\n"
+                       "FNH.TLR1.P,2024-03-04T09:00:00Z,61.0,good\n"
+                       "FNH.TLR1.P,2024-03-04T09:02:20Z,61.5,good\n"}
+    site = load_site(files.write(tmp_path))
+    grid = site.snapshots.index
+    assert list(grid) == list(pd.date_range("2024-03-04 09:00", "2024-03-04 09:03", freq="1min",
+                                            tz="UTC"))
+    assert site.snapshots["FNH.V"].tolist() == [133.1, 133.2, 133.2, 133.2]  # held < 15 min
+    assert site.snapshots["FNH.TLR1.P"].tolist() == [61.0, 61.0, 61.0, 61.5]

@@ -181,3 +181,20 @@ def test_review_of_a_matpower_site(tmp_path, capsys, fault):
     findings = pd.read_csv(tmp_path / "review" / "findings.csv")
     expected = {tag: f.kind for f in faults for tag in f.tags}
     assert dict(zip(findings["tag"], findings["finding"], strict=True)) == expected
+
+
+def test_a_network_without_substations_is_not_compared_with_the_point_list(files, tmp_path):
+    # A MATPOWER case names no substations (each bus is its own, named by its number): the
+    # point list's own substation names are kept and one warning says they are not checked,
+    # instead of one warning per point.
+    matpower_site(files, tmp_path)
+    site = load_site(tmp_path)
+    about = [p for p in site.problems if p.column == "substation"]
+    assert len(about) == 1 and about[0].row is None and about[0].count == 2
+    assert "names no substations" in about[0].message and "'Harrowdene'" in about[0].message
+    assert site.points.at["P12", "substation"] == "Harrowdene"
+    # an unknown element is still an error
+    files.points.set(2, "element", "1-2-9")
+    files.write(tmp_path)
+    assert "unknown branch '1-2-9'" in find(problems_of(tmp_path), "points.csv", 2,
+                                            "element").message
