@@ -105,11 +105,29 @@ def load_for_command(folder: Path, start: pd.Timestamp | None = None,
     return site
 
 
-def print_usable(site: Site) -> int:
-    """Print what was loaded, every problem and the verdict of a usable site; EXIT_OK."""
+#: Warnings printed one by one by a command that also writes them all to a file.
+WARNINGS_SHOWN = 20
+
+
+def print_problems(problems: Sequence[LoadProblem], listed: Path | None = None) -> None:
+    """Print every error and, when ``listed`` names a file that holds them all, the first
+    :data:`WARNINGS_SHOWN` warnings and a line counting the rest; else every warning."""
+    warnings = [p for p in problems if p.severity == "warning"]
+    shown = warnings[:WARNINGS_SHOWN] if listed is not None else warnings
+    for problem in problems:
+        if problem.severity != "warning" or any(problem is w for w in shown):
+            print(problem)
+    rest = warnings[len(shown):]
+    if rest:
+        print(f"... and {len(rest):,} more warnings ({sum(p.count for p in rest):,} values "
+              f"or rows): every problem is listed in {listed}")
+
+
+def print_usable(site: Site, listed: Path | None = None) -> int:
+    """Print what was loaded, the problems (:func:`print_problems`) and the verdict of a
+    usable site; EXIT_OK."""
     for line in site_summary_lines(site):
         print(line)
-    for problem in site.problems:
-        print(problem)
+    print_problems(site.problems, listed)
     print(f"result: usable ({tally(site.problems)})")
     return EXIT_OK

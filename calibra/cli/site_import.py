@@ -12,7 +12,14 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, UsageError, print_usable, tally
+from calibra.cli.common import (
+    EXIT_OK,
+    EXIT_UNUSABLE,
+    UsageError,
+    print_problems,
+    print_usable,
+    tally,
+)
 from calibra.io.import_report import plan_lines
 from calibra.io.site_import import (
     ImportRefused,
@@ -128,9 +135,8 @@ def run(args: argparse.Namespace) -> int:
         print(f"the folder that was there is kept as {outcome.replaced}")
     print(f"wrote {request.target}")
     if outcome.site is None:
-        for problem in outcome.problems:
-            print(problem)
+        print_problems(outcome.problems, outcome.problems_file)
         print(f"result: not usable ({tally(outcome.problems)}); the folder is written: correct "
               f"its site.toml or the files and run 'calibra check {request.target}'")
         return EXIT_UNUSABLE
-    return print_usable(outcome.site)
+    return print_usable(outcome.site, outcome.problems_file)

@@ -205,6 +205,11 @@ def _first(arrays: dict[str, np.ndarray], where: np.ndarray, ctx: Reading) -> tu
     return seq_place(int(arrays["seq"][where].min()), ctx.files)
 
 
+def _quality_column(ctx: Reading, rel: str) -> str:
+    layout = ctx.layouts[ctx.files.index(rel)]
+    return layout.names[layout.quality]
+
+
 def _report_point(arrays: dict[str, np.ndarray], rows: slice, tag: int, held: int,
                   unused: np.ndarray, scope: np.ndarray, ctx: Reading, timezone: str,
                   max_age: pd.Timedelta) -> None:
@@ -223,18 +228,22 @@ def _report_point(arrays: dict[str, np.ndarray], rows: slice, tag: int, held: in
                                   else layout.value]
             log.warning(rel, row, column, f"point '{name}': {len(where)} {quoted}, the first "
                         "in this row", count=len(where))
+    # Warnings read from the quality codes name the quality column and the point.
     questionable = seqs[scope & (arrays["validity"][rows] == Validity.QUESTIONABLE)]
     if len(questionable):
         rel, row = _first(arrays, questionable, ctx)
-        log.warning(rel, row, name, f"{len(questionable)} value(s) marked questionable "
-                    "(used), the first in this row", count=len(questionable))
+        log.warning(rel, row, _quality_column(ctx, rel),
+                    f"point '{name}': {len(questionable)} value(s) marked questionable (used), "
+                    "the first in this row", count=len(questionable))
     source = arrays["source"][rows]
     for code, word in SOURCE_WORDS.items():
         where = np.flatnonzero(scope & (source == code))
         if not len(where):
             continue
         rel, row = _first(arrays, seqs[where], ctx)
-        log.warning(rel, row, name, source_message(word, arrays["time"][rows][where], timezone)
+        log.warning(rel, row, _quality_column(ctx, rel),
+                    f"point '{name}': " + source_message(word, arrays["time"][rows][where],
+                                                         timezone)
                     + ", the first in this row", count=len(where))
     if held:
         rel, _ = _first(arrays, seqs, ctx)

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import csv
 import unicodedata
 from collections.abc import Iterable
 from dataclasses import replace
+from pathlib import Path
 
 from calibra.model.site import LoadProblem
 
@@ -86,3 +88,24 @@ class ProblemLog:
 
     def error_count(self) -> int:
         return sum(p.severity == "error" for p in self.items)
+
+
+#: The columns of a written problem list, in order.
+PROBLEM_COLUMNS = ("severity", "file", "row", "column", "count", "message")
+
+
+def write_problem_list(path: Path, problems: Iterable[LoadProblem]) -> int:
+    """Write ``problems`` (repeats left out, order kept) as a CSV table with
+    :data:`PROBLEM_COLUMNS`, one problem a row; the number written."""
+    seen: set[tuple] = set()
+    rows = []
+    for p in problems:
+        key = (p.severity, p.file, p.row, p.column, p.count, p.message)
+        if key not in seen:
+            seen.add(key)
+            rows.append(["" if v is None else v for v in key])
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        out = csv.writer(fh)
+        out.writerow(PROBLEM_COLUMNS)
+        out.writerows(rows)
+    return len(rows)

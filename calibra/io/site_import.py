@@ -29,7 +29,7 @@ from calibra.io.import_mapping import PointListMapping, csv_table, map_point_lis
 from calibra.io.matpower import MATPOWER_SUFFIXES, parse_matpower
 from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE
 from calibra.io.point_source import POINTS_FILE
-from calibra.io.problems import ProblemLog
+from calibra.io.problems import ProblemLog, write_problem_list
 from calibra.io.site_config import SITE_FILE, check_timezone
 from calibra.io.site_folder import CDF_SUFFIXES, load_site
 from calibra.io.snapshot_reports import SNAPSHOT_DIR
@@ -363,15 +363,21 @@ def build_site(plan: ImportPlan, progress: Progress | None = None) -> Path | Non
     return replaced
 
 
+#: Every problem of an import (planning and loading), written into the new folder.
+IMPORT_PROBLEMS_FILE = "import-problems.csv"
+
+
 @dataclass(frozen=True)
 class ImportOutcome:
     """A built folder: where it is, where a replaced folder went (None: none), the loaded
-    site (None when the loader refuses it) and every problem the loader found."""
+    site (None when the loader refuses it), every problem the loader found and the file
+    in the new folder that lists the plan's and the loader's problems together."""
 
     folder: Path
     replaced: Path | None
     site: Site | None
     problems: list[LoadProblem]
+    problems_file: Path | None = None
 
     @property
     def usable(self) -> bool:
@@ -385,6 +391,9 @@ def run_import(plan: ImportPlan, progress: Progress | None = None) -> ImportOutc
         progress.update(0, 0, "loading the new site")
     try:
         site = load_site(plan.request.target)
+        problems = list(site.problems)
     except SiteLoadError as exc:
-        return ImportOutcome(plan.request.target, replaced, None, list(exc.problems))
-    return ImportOutcome(plan.request.target, replaced, site, list(site.problems))
+        site, problems = None, list(exc.problems)
+    listed = Path(plan.request.target) / IMPORT_PROBLEMS_FILE
+    write_problem_list(listed, [*plan.warnings, *problems])
+    return ImportOutcome(plan.request.target, replaced, site, problems, listed)

@@ -23,11 +23,13 @@ from calibra.io import load_site
 from calibra.io.import_mapping import Placement, map_point_list
 from calibra.io.problems import ProblemLog
 from calibra.io.site_import import (
+    IMPORT_PROBLEMS_FILE,
     ImportRefused,
     ImportRequest,
     SiteFields,
     build_site,
     plan_import,
+    run_import,
     site_toml,
 )
 from calibra.progress import Cancelled, Progress
@@ -267,3 +269,20 @@ def test_point_list_headers_for_the_mapping_choices(exports, tmp_path):
                                                                     "Equipment"]
     assert point_list_headers(exports["points"], "Analogs", log) is None
     assert "a CSV file has no sheets" in log.items[-1].message
+
+
+def test_every_problem_is_written_into_the_new_folder(exports, tmp_path):
+    """Nothing the user gave is lost: the loader's problems and the plan's warnings are all
+    in import-problems.csv, one row each, with file, row and column (common practice, no
+    source)."""
+    history = tmp_path / "extra.csv"
+    history.write_text(exports["history"].read_text() + "GHOST.P,2024-03-04T09:00:00Z,1,good\n")
+    outcome = run_import(plan_import(request(exports, tmp_path / "site", history=(history,))))
+    assert outcome.usable and outcome.problems_file == tmp_path / "site" / IMPORT_PROBLEMS_FILE
+    listed = pd.read_csv(outcome.problems_file, dtype=str, keep_default_na=False)
+    assert list(listed.columns) == ["severity", "file", "row", "column", "count", "message"]
+    assert len(listed) == len({str(p) + str(p.count) for p in outcome.problems}) > 0
+    ghost = listed[listed["message"].str.contains("GHOST.P")]
+    assert len(ghost) == 1 and ghost.iloc[0]["file"] == "snapshots/extra.csv"
+    assert ghost.iloc[0]["row"] != ""  # the row of the unknown tag's first sample
+    assert load_site(tmp_path / "site").problems == outcome.problems  # the file does not count
