@@ -378,6 +378,8 @@ class ImportDialog(QDialog):
         self._show_problems(outcome.problems)
         kept = f" The folder that was there is kept as {outcome.replaced}." \
             if outcome.replaced else ""
+        if outcome.problems_file is not None:
+            kept += f" Every problem is also in {outcome.problems_file.name} there."
         if outcome.usable:
             self._say(f"Imported into {outcome.folder}: usable, with {len(outcome.problems)} "
                       f"warning(s) (skipped or repaired values, listed).{kept}")
