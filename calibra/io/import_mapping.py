@@ -94,8 +94,9 @@ def _read(path: Path, label: str, sheet: str | None, log: ProblemLog):
     None, with an error logged, when the file cannot be read."""
     suffix = path.suffix.lower()
     if suffix not in POINT_LIST_SUFFIXES:
-        log.error(label, None, None, f"not a point list this program reads (a {suffix or 'file'}"
-                  " without a known ending; give .csv, .xlsx, .xlsm or .ods)")
+        log.error(label, None, None, "not a point list this program reads (files ending "
+                  f"{suffix or 'in nothing'} are not; give {', '.join(POINT_LIST_SUFFIXES)}: "
+                  "save a spreadsheet in one of these formats)")
         return None
     if suffix == ".csv":
         if sheet is not None:

@@ -28,6 +28,12 @@ def read_point_table(folder: Path, config: PointsConfig, log: ProblemLog) -> Raw
                   + ", ".join(found) + "); keep one")
         return None
     required = ["tag"] + REQUIRED_POINT_COLUMNS
+    if not found:
+        others = sorted(p.name for p in folder.glob("points.*") if p.is_file())
+        if others:
+            log.error(others[0], None, None, "calibra does not read a point list in this format; "
+                      "save it as " + ", ".join(POINT_LIST_FILES))
+            return None
     if not found or found[0] == POINTS_FILE:
         if config.sheet is not None:
             log.warning(SITE_FILE, config.lines.get("sheet"), "sheet",

@@ -1,4 +1,5 @@
-"""Reading one sheet of a spreadsheet (``.xlsx``, ``.xlsm``, ``.ods``) as text cells.
+"""Reading one sheet of a spreadsheet (``.xlsx``, ``.xlsm``, ``.ods``, the older binary
+``.xls``) as text cells.
 
 python-calamine reads the values the file stores (a formula's last computed value, not its
 text). Each cell becomes the text a CSV export would hold: an integer-valued number without
@@ -20,7 +21,7 @@ from python_calamine import CalamineWorkbook
 
 from calibra.io.problems import ProblemLog
 
-SPREADSHEET_SUFFIXES = (".xlsx", ".xlsm", ".ods")
+SPREADSHEET_SUFFIXES = (".xlsx", ".xlsm", ".ods", ".xls")
 #: Integers a float carries exactly (2**53): larger integer-valued floats keep their exponent.
 _EXACT_INTEGERS = 2.0 ** 53
 

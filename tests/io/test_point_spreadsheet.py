@@ -1,8 +1,9 @@
 """Spreadsheet point lists (points.xlsx, points.ods), header aliases and [points] in site.toml.
 
 The spreadsheets are written here by independent implementations of the formats: openpyxl
-for Office Open XML workbooks (ECMA-376) and odfpy, through pandas' ``odf`` writer, for
-OpenDocument spreadsheets (OASIS ODF 1.2); calibra reads them with python-calamine.
+for Office Open XML workbooks (ECMA-376), odfpy, through pandas' ``odf`` writer, for
+OpenDocument spreadsheets (OASIS ODF 1.2) and xlwt for the older binary Excel workbooks
+(BIFF8, .xls); calibra reads them with python-calamine.
 """
 
 from __future__ import annotations
@@ -14,6 +15,7 @@ from pathlib import Path
 import openpyxl
 import pandas as pd
 import pytest
+import xlwt
 from openpyxl.utils import get_column_letter
 
 from calibra.io import load_site
@@ -76,6 +78,19 @@ def write_ods(path: Path, header: list[str], rows: list[list[str]], sheet: str) 
     frame = pd.DataFrame([[as_cell(c) for c in row] for row in rows], columns=header,
                          dtype=object)
     frame.to_excel(path, sheet_name=sheet, index=False, engine="odf")
+    return path
+
+
+def write_xls(path: Path, header: list[str], rows: list[list[str]], sheet: str) -> Path:
+    """A binary Excel workbook (BIFF8) written by xlwt: numbers stored as numbers."""
+    book = xlwt.Workbook()
+    page = book.add_sheet(sheet)
+    for r, row in enumerate([header, *rows]):
+        for c, cell in enumerate(row):
+            value = as_cell(cell) if r else cell
+            if value is not None:
+                page.write(r, c, value)
+    book.save(str(path))
     return path
 
 
@@ -146,6 +161,21 @@ def test_ods_point_list_loads_like_the_csv(tmp_path, files):
     root, files = small_site(tmp_path, files)
     write_ods(root / "points.ods", files.points.header, files.points.rows, "Telemetry")
     pd.testing.assert_frame_equal(load_site(root).points, csv)
+
+
+def test_xls_point_list_loads_like_the_csv(tmp_path, files):
+    csv = load_site(files.write(tmp_path / "csv")).points
+    root, files = small_site(tmp_path, files)
+    write_xls(root / "points.xls", files.points.header, files.points.rows, "Telemetry")
+    pd.testing.assert_frame_equal(load_site(root).points, csv)
+
+
+def test_a_point_list_in_a_format_not_read_is_named(tmp_path, files):
+    root = files.write(tmp_path)
+    (root / "points.csv").rename(root / "points.numbers")
+    problem = find(problems_of(root), "points.numbers", None, None)
+    assert "does not read a point list in this format" in problem.message
+    assert "points.xlsx" in problem.message
 
 
 def test_bad_cell_in_ods_names_its_sheet(tmp_path):
