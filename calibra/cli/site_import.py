@@ -41,7 +41,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                        help="historian export(s): long (tag, time, value, quality) or wide "
                        "tables; .csv, .csv.gz or .parquet")
     given.add_argument("--points", type=Path, required=True, metavar="FILE",
-                       help="the point list: .csv, .xlsx, .xlsm or .ods")
+                       help="the point list: .csv, .xlsx, .xlsm, .ods or .xls")
     given.add_argument("--network", type=Path, nargs="+", required=True, metavar="FILE",
                        help="a MATPOWER case (.m), an IEEE Common Data Format file (.cdf, .txt), "
                        "or the two tables buses.csv and branches.csv")
