@@ -13,8 +13,8 @@ from pathlib import Path
 import pandas as pd
 
 from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, UsageError, site_timezone
-from calibra.diagnosis.findings import CORRECTABLE_KINDS, FACTOR_KINDS, FindingKind
 from calibra.ledger import Ledger, LedgerError
+from calibra.ledger.software_fixes import apply_fixes, plan_fixes
 from calibra.ledger.states import OPEN_STATES, FindingState
 from calibra.model.times import for_people, read_local
 
@@ -99,30 +99,13 @@ def _list(ledger: Ledger, tz: str) -> None:
 
 def _correct(ledger: Ledger, rows: pd.DataFrame, args, tz: str) -> list[str]:
     valid_from = read_local(args.valid_from, tz, "--from") if args.valid_from else None
-    done = []
-    for tag, group in rows.groupby("tag", sort=True):
-        kinds = [k for k in group["finding"] if k in CORRECTABLE_KINDS]
-        if not kinds:
-            raise UsageError(f"{tag}: {', '.join(group['finding'])} cannot be corrected in "
-                             "software (only reversed, scale and offset findings); confirm it "
-                             "for the field work")
-        r = group[group["finding"] == kinds[0]].iloc[0]
-        if kinds[0] == FindingKind.REVERSED and args.factor is None:
-            ledger.mark_reversed(tag, args.user, valid_from, args.note)
-            done.append(f"{tag}: corrected in software (sign reversed)")
-        elif kinds[0] in FACTOR_KINDS:
-            factor = args.factor if args.factor is not None else r["factor"]
-            if pd.isna(factor):
-                raise UsageError(f"{tag}: no fitted factor; give --factor")
-            ledger.apply_scale(tag, float(factor), args.user, valid_from, args.note)
-            done.append(f"{tag}: corrected in software (measured = {float(factor):g} × true)")
-        else:
-            offset = args.offset if args.offset is not None else r["offset"]
-            if pd.isna(offset):
-                raise UsageError(f"{tag}: no fitted offset; give --offset")
-            ledger.apply_offset(tag, float(offset), args.user, valid_from, args.note)
-            done.append(f"{tag}: corrected in software (offset {float(offset):g} removed)")
-    return done
+    try:
+        plan = plan_fixes(rows, args.factor, args.offset)
+    except LedgerError as exc:
+        raise UsageError(str(exc).replace("factor; give one", "factor; give --factor")
+                         .replace("offset; give one", "offset; give --offset")) from None
+    apply_fixes(ledger, plan, args.user, valid_from, args.note)
+    return [fix.describe() for fix in plan.fixes] + [f"left as is: {why}" for why in plan.left]
 
 
 def _history(ledger: Ledger, item: str | None, tz: str) -> None:

@@ -8,13 +8,13 @@ from typing import TYPE_CHECKING
 import pandas as pd
 from PySide6.QtGui import QAction, QKeySequence
 
-from calibra.diagnosis.findings import CORRECTABLE_KINDS, FindingKind
+from calibra.diagnosis.findings import CORRECTABLE_KINDS
 from calibra.ledger import LedgerError
+from calibra.ledger.software_fixes import apply_fixes, plan_fixes
 from calibra.ledger.states import AWAITING_ACTION_STATES, FindingState
 
 if TYPE_CHECKING:
     from calibra.gui.qt_main import MainWindow
-
 
 
 class DeviceActions:
@@ -46,31 +46,23 @@ class DeviceActions:
                      & table["in_review"]]
 
     def correct_device(self) -> list[str]:
-        """Correct each point of the device once, by its first correctable finding."""
+        """Correct each point of the device once, by its first correctable finding and its
+        fitted value (:mod:`calibra.ledger.software_fixes`, the command line's rule); nothing
+        is written when one of them cannot be corrected."""
         rows = self.device_findings()
-        rows = rows[rows["finding"].isin(CORRECTABLE_KINDS)] if len(rows) else rows
-        if rows.empty:
+        if rows.empty or not rows["finding"].isin(CORRECTABLE_KINDS).any():
             self.w.say("The selected point's device has no open finding that a software "
                        "correction can undo.")
             return []
-        led, done = self.state.ledger, []
         try:
-            for tag, group in rows.groupby("tag", sort=True):
-                r = group.iloc[0]
-                if r["finding"] == FindingKind.REVERSED:
-                    led.mark_reversed(tag)
-                    done.append(f"{tag} sign reversed")
-                elif r["finding"] == FindingKind.SCALE and pd.notna(r["factor"]):
-                    led.apply_scale(tag, float(r["factor"]))
-                    done.append(f"{tag} × {float(r['factor']):g}")
-                elif r["finding"] == FindingKind.OFFSET and pd.notna(r["offset"]):
-                    led.apply_offset(tag, float(r["offset"]))
-                    done.append(f"{tag} offset {float(r['offset']):+g}")
+            plan = plan_fixes(rows)
+            apply_fixes(self.state.ledger, plan)
         except (LedgerError, ValueError) as exc:
-            self.w.say(f"Device correction stopped: {exc}", warn=True)
-        if done:
-            self.state.ledger_written()
-            self.w.report_written("corrected in software: " + ", ".join(done))
+            self.w.say(f"Device not corrected: {exc}", warn=True)
+            return []
+        done = [fix.describe() for fix in plan.fixes]
+        self.state.ledger_written()
+        self.w.report_written("; ".join(done + [f"left as is: {why}" for why in plan.left]))
         return done
 
     def confirm_device(self) -> list[str]:
