@@ -13,7 +13,6 @@ from calibra.diagnosis.classify import ClassifySettings, PointDiagnosis, PointSe
 from calibra.diagnosis.describe import build_findings
 from calibra.diagnosis.evidence import EvidenceSettings, WeekEvidence, gather_evidence
 from calibra.diagnosis.findings import NO_FAULT, DiagnosisKind
-from calibra.diagnosis.fits import reporting_deadband
 from calibra.diagnosis.mismap import (
     QuantityEvaluator,
     best_match,
@@ -27,7 +26,8 @@ from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.engine import PeriodEngine
 from calibra.estimation.period import PreparedPeriod, prepare_period
 from calibra.estimation.runtime import fork_map
-from calibra.model.points import analog_points, class_limit
+from calibra.model.points import analog_points, class_limit, stated_reporting
+from calibra.model.reporting import reading_resolution, reporting_deadband
 from calibra.model.site import Site
 from calibra.progress import Progress
 
@@ -54,7 +54,15 @@ class ReviewResult:
     summary: ReviewSummary
 
 
-def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSeries:
+def period_days(ev: WeekEvidence) -> np.ndarray:
+    """The evidence's snapshot times in days from the period's start."""
+    return ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
+
+
+def point_series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSeries:
+    """What point ``i`` of the evidence is classified on: its measured and implied week, σ,
+    class limit, and its deadband and resolution (stated in the point list, else read from
+    its series)."""
     model = ev.model
     tag = model.tags[i]
     pt = site.points.loc[tag]
@@ -70,14 +78,22 @@ def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSe
         return known_scale_cause(factor, quantity, ct_ratio)
 
     measured = ev.measured[:, i].astype(float)
-    return PointSeries(t_days, measured, ev.implied[:, i].astype(float), sigma, limit, sig_y,
-                       known_factor=known, deadband=reporting_deadband(measured))
+    # The point list's word where it states them; otherwise read from the series.
+    deadband = stated_reporting(pt, "deadband")
+    resolution = stated_reporting(pt, "resolution")
+    return PointSeries(
+        t_days, measured, ev.implied[:, i].astype(float), sigma, limit, sig_y,
+        known_factor=known,
+        deadband=reporting_deadband(measured) if deadband is None else deadband,
+        resolution=reading_resolution(measured) if resolution is None else resolution,
+        stated=tuple(c for c, v in (("deadband", deadband), ("resolution", resolution))
+                     if v is not None))
 
 
 def _classify_all(site: Site, ev: WeekEvidence, settings: ClassifySettings) -> dict:
-    t_days = ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
+    t_days = period_days(ev)
     # Points are independent: classified on the worker processes where possible.
-    found = fork_map(lambda i: classify_point(_series(site, ev, t_days, i), settings),
+    found = fork_map(lambda i: classify_point(point_series(site, ev, t_days, i), settings),
                      range(ev.model.m))
     return {str(ev.model.tags[i]): d for i, d in enumerate(found)}
 
