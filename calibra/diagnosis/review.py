@@ -26,7 +26,7 @@ from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.engine import PeriodEngine
 from calibra.estimation.period import PreparedPeriod, prepare_period
 from calibra.estimation.runtime import fork_map
-from calibra.model.points import analog_points, class_limit, stated_reporting
+from calibra.model.points import analog_points, class_limit, default_sigma, stated_reporting
 from calibra.model.reporting import reading_resolution, reporting_deadband
 from calibra.model.site import Site
 from calibra.progress import Progress
@@ -59,14 +59,17 @@ def period_days(ev: WeekEvidence) -> np.ndarray:
     return ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
 
 
-def point_series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSeries:
-    """What point ``i`` of the evidence is classified on: its measured and implied week, σ,
-    class limit, and its deadband and resolution (stated in the point list, else read from
-    its series)."""
+def point_series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int,
+                 sigma: float | None = None) -> PointSeries:
+    """What point ``i`` of the evidence is classified on: its measured and implied week, the
+    transducer's σ (``sigma``, default from the point list), class limit, and its deadband
+    and resolution (stated in the point list, else read from its series). The estimator's
+    weights hold the stated storage too; the classification adds it itself, stated or read."""
     model = ev.model
     tag = model.tags[i]
     pt = site.points.loc[tag]
-    sigma = float(model.sigma_pu[i] / model.to_pu[i])
+    if sigma is None:
+        sigma = float(default_sigma(site.points.loc[[tag]]).iloc[0])
     limit = class_limit(pt)
     sig_y = 0.0
     rep = ev.representative
@@ -92,8 +95,10 @@ def point_series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> Po
 
 def _classify_all(site: Site, ev: WeekEvidence, settings: ClassifySettings) -> dict:
     t_days = period_days(ev)
+    sigma = default_sigma(site.points.loc[ev.model.tags]).to_numpy(float)
     # Points are independent: classified on the worker processes where possible.
-    found = fork_map(lambda i: classify_point(point_series(site, ev, t_days, i), settings),
+    found = fork_map(lambda i: classify_point(point_series(site, ev, t_days, i, sigma[i]),
+                                              settings),
                      range(ev.model.m))
     return {str(ev.model.tags[i]): d for i, d in enumerate(found)}
 

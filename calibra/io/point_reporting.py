@@ -92,8 +92,9 @@ def reporting_cells(t: RawTable, column: str, quantity: np.ndarray, unit: np.nda
         pct = 100.0 * value / full_scale[i] if full_scale[i] > 0 else np.nan
         if pct > REPORTING_WARN_PCT:
             log.warning(t.file, row, column,
-                        f"{text} is {pct:.3g} % of full scale, more than {REPORTING_WARN_PCT:g} "
-                        "%: unusually large, check it (the value is used as given)")
+                        f"{value:.4g} {unit[i]} is {pct:.3g} % of full scale, more than "
+                        f"{REPORTING_WARN_PCT:g} %: unusually large, check it (the value is "
+                        "used as given)")
     return out
 
 

@@ -157,6 +157,27 @@ def default_sigma(points: pd.DataFrame) -> pd.Series:
     return sigma
 
 
+def storage_spread(points: pd.DataFrame) -> pd.Series:
+    """The standard deviation a reading's storage adds, in the point's unit, from the stated
+    deadband and resolution: deadband/√3 (a held reading lags the true value by up to the
+    deadband, evenly spread) and step/√12 (uniform quantization error); common practice, no
+    source. 0 where the point list states neither."""
+    spread = pd.Series(0.0, index=points.index)
+    for column, divisor in (("deadband", 3.0), ("resolution", 12.0)):
+        if column in points:
+            spread = spread + pd.to_numeric(points[column], errors="coerce").fillna(0.0) ** 2 \
+                / divisor
+    return np.sqrt(spread)
+
+
+def measurement_sigma(points: pd.DataFrame) -> pd.Series:
+    """σ of each point in the estimator's weights: the transducer's (:func:`default_sigma`)
+    and the spread of its stated storage (:func:`storage_spread`) together. A deadband or
+    resolution the point list leaves empty is not in the weights (it is read from the data
+    by the diagnosis, after the estimate)."""
+    return np.sqrt(default_sigma(points) ** 2 + storage_spread(points) ** 2)
+
+
 def stated_reporting(point: pd.Series, column: str) -> float | None:
     """A point's stated ``deadband`` or ``resolution`` (one of :data:`REPORTING_COLUMNS`) in
     its unit, None when the point list leaves it to be inferred from the data."""

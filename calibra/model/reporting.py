@@ -118,24 +118,24 @@ def reporting_disagreements(z: np.ndarray, deadband: float | None, resolution: f
         floor = max(deadband, resolution or 0.0, reading_resolution(v))
         if deadband > 0 and low * DISAGREEMENT_FACTOR < deadband:
             out.append(Disagreement("deadband", low, (
-                f"the readings change by as little as {low:.4g} {unit} between stored values, "
-                f"less than half the stated deadband of {deadband:.4g} {unit}")))
+                f"the readings change by as little as {low:.3g} {unit} between stored values, "
+                f"less than half the stated deadband of {deadband:.3g} {unit}")))
         elif held > DISAGREEMENT_FACTOR * floor:
             out.append(Disagreement("deadband", held, (
-                f"the readings are held and change by at least {held:.4g} {unit} between "
-                f"stored values, more than twice the stated deadband of {deadband:.4g} {unit}")))
+                f"the readings are held and change by at least {held:.3g} {unit} between "
+                f"stored values, more than twice the stated deadband of {deadband:.3g} {unit}")))
     if resolution is not None:
         seen = reading_resolution(v)
         distinct = np.diff(np.unique(v))
         distinct = distinct[distinct > _tolerance(v)]
         if seen > DISAGREEMENT_FACTOR * resolution and seen > 0:
             out.append(Disagreement("resolution", seen, (
-                f"the readings lie on steps of about {seen:.4g} {unit}, more than twice the "
-                f"stated resolution of {resolution:.4g} {unit}")))
+                f"the readings lie on steps of about {seen:.3g} {unit}, more than twice the "
+                f"stated resolution of {resolution:.3g} {unit}")))
         elif resolution > 0 and distinct.size >= MIN_VALUES // 5:
             fine = float(np.quantile(distinct, DEADBAND_QUANTILE))
             if fine * DISAGREEMENT_FACTOR < resolution:
                 out.append(Disagreement("resolution", fine, (
-                    f"the readings take values {fine:.4g} {unit} apart, less than half the "
-                    f"stated resolution of {resolution:.4g} {unit}")))
+                    f"the readings take values {fine:.3g} {unit} apart, less than half the "
+                    f"stated resolution of {resolution:.3g} {unit}")))
     return out

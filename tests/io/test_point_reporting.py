@@ -95,7 +95,7 @@ def test_a_deadband_above_a_tenth_of_full_scale_is_a_warning(files, tmp_path):
     _with_columns(files, {2: "25", 3: "20"})
     site = load_site(files.write(tmp_path))
     p = find(site.problems, POINTS, 2, "deadband", "warning")
-    assert "12.5 % of full scale" in p.message
+    assert p.message.startswith("25 MW is 12.5 % of full scale, more than 10 %")
     assert site.points.at["FNH.TLR1.P", "deadband"] == 25.0
     assert not [q for q in site.problems if q.row == 3]  # exactly 10 %: no warning
 
