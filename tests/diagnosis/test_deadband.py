@@ -18,16 +18,7 @@ from calibra.model.reporting import reading_resolution, reporting_deadband
 from calibra.simulate.telemetry import TelemetryOptions
 from tests.diagnosis.scenarios import detectable_faults, generated_scenario
 from tests.diagnosis.scoring import score
-
-
-def _by_exception(x: np.ndarray, deadband: float) -> np.ndarray:
-    out = np.empty_like(x)
-    last = x[0]
-    for i, v in enumerate(x):
-        if abs(v - last) > deadband:
-            last = v
-        out[i] = last
-    return out
+from tests.held_series import by_exception
 
 
 def _voltage_week(n: int = 2016, seed: int = 5) -> tuple[np.ndarray, np.ndarray]:
@@ -44,7 +35,7 @@ def test_the_deadband_is_read_from_the_series():
     rng = np.random.default_rng(1)
     measured = true + rng.normal(0, 0.05, true.size)
     assert reporting_deadband(measured) == 0.0  # full resolution: no deadband
-    held = _by_exception(measured, 0.5)
+    held = by_exception(measured, 0.5)
     assert 0.5 <= reporting_deadband(held) <= 0.65
     # a converter step of 0.04 kV and no deadband: the step (values repeat at slow change)
     slow = np.round(true / 0.04) * 0.04
@@ -69,7 +60,7 @@ def test_report_by_exception_week_gives_no_false_alarm(case_name, seed):
 def test_an_offset_beyond_class_limit_and_deadband_is_still_found():
     t, true = _voltage_week()
     rng = np.random.default_rng(9)
-    z = _by_exception(true + 2.0 + rng.normal(0, 0.11, true.size), 0.5)
+    z = by_exception(true + 2.0 + rng.normal(0, 0.11, true.size), 0.5)
     y = true + rng.normal(0, 0.05, true.size)
     d = classify_point(PointSeries(t, z, y, 0.11, 0.332, 0.05, deadband=reporting_deadband(z)))
     assert d.kind == "offset" and abs(d.params["offset"] - 2.0) < 0.3, d
@@ -88,9 +79,9 @@ def test_the_resolution_is_read_from_the_grid_of_the_values():
     # the historian rounds the converter's step to 0.01 kV: gaps of 0.08 and 0.09 kV
     assert 0.079 <= reading_resolution(np.round(on_grid, 2)) <= 0.081
     # held by exception on the grid: the values still return to the grid's levels
-    held = _by_exception(on_grid, 0.5)
+    held = by_exception(on_grid, 0.5)
     assert reading_resolution(held) == pytest.approx(step, rel=1e-3)
-    assert reading_resolution(_by_exception(measured, 0.5)) == 0.0
+    assert reading_resolution(by_exception(measured, 0.5)) == 0.0
 
 
 def test_a_coarse_grid_makes_no_healthy_meter_noisy():

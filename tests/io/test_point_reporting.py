@@ -15,6 +15,7 @@ from openpyxl.utils import get_column_letter
 
 from calibra.io import load_site
 from calibra.model.points import POINT_COLUMNS
+from tests.held_series import by_exception
 from tests.io.site_builder import Table, find, problem_for_cell, problems_of
 from tests.io.test_point_spreadsheet import write_xlsx
 
@@ -156,15 +157,6 @@ def _week(files, tmp_path, series: dict[str, np.ndarray]):
     return files.write(tmp_path)
 
 
-def _by_exception(x: np.ndarray, band: float) -> np.ndarray:
-    out, last = np.empty_like(x), x[0]
-    for i, v in enumerate(x):
-        if abs(v - last) > band:
-            last = v
-        out[i] = last
-    return out
-
-
 def _flow(seed: int = 3) -> np.ndarray:
     rng = np.random.default_rng(seed)
     return 60 + 4 * np.sin(np.arange(300) / 40) + np.cumsum(rng.normal(0, 0.05, 300))
@@ -172,13 +164,13 @@ def _flow(seed: int = 3) -> np.ndarray:
 
 def test_a_stated_deadband_the_data_agree_with_gives_no_warning(files, tmp_path):
     _with_columns(files, {2: "0.3%"})  # 0.6 MW
-    root = _week(files, tmp_path, {"FNH.TLR1.P": np.round(_by_exception(_flow(), 0.6), 2)})
+    root = _week(files, tmp_path, {"FNH.TLR1.P": np.round(by_exception(_flow(), 0.6), 2)})
     assert [p for p in load_site(root).problems if p.column == "deadband"] == []
 
 
 def test_a_stated_deadband_much_wider_than_the_data_show_is_a_warning(files, tmp_path):
     _with_columns(files, {2: "1%"})  # 2 MW stated; the readings are stored every 0.1 MW
-    root = _week(files, tmp_path, {"FNH.TLR1.P": np.round(_by_exception(_flow(), 0.1), 2)})
+    root = _week(files, tmp_path, {"FNH.TLR1.P": np.round(by_exception(_flow(), 0.1), 2)})
     p = find(load_site(root).problems, POINTS, 2, "deadband", "warning")
     assert "less than half the stated deadband of 2 MW" in p.message
     assert "the stated value is used" in p.message
@@ -186,7 +178,7 @@ def test_a_stated_deadband_much_wider_than_the_data_show_is_a_warning(files, tmp
 
 def test_a_stated_deadband_much_narrower_than_the_data_show_is_a_warning(files, tmp_path):
     _with_columns(files, {2: "0.1"})  # 0.1 MW stated; the readings are held within 0.6 MW
-    root = _week(files, tmp_path, {"FNH.TLR1.P": np.round(_by_exception(_flow(), 0.6), 2)})
+    root = _week(files, tmp_path, {"FNH.TLR1.P": np.round(by_exception(_flow(), 0.6), 2)})
     p = find(load_site(root).problems, POINTS, 2, "deadband", "warning")
     assert "more than twice the stated deadband of 0.1 MW" in p.message
 

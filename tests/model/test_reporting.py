@@ -15,6 +15,7 @@ import scipy.stats
 
 from calibra.model.points import default_sigma, measurement_sigma, storage_spread
 from calibra.model.reporting import reporting_disagreements
+from tests.held_series import by_exception
 
 
 def _points(deadband: float, resolution: float) -> pd.DataFrame:
@@ -40,17 +41,6 @@ def test_a_point_list_without_the_columns_weighs_by_the_class_alone():
     assert (measurement_sigma(pts) == default_sigma(pts)).all()
 
 
-def _held(x: np.ndarray, band: float) -> np.ndarray:
-    """Report by exception: a value is stored when it moves more than ``band`` from the last
-    stored one (common practice, no source)."""
-    out, last = np.empty_like(x), x[0]
-    for i, v in enumerate(x):
-        if abs(v - last) > band:
-            last = v
-        out[i] = last
-    return out
-
-
 def _wander(n: int = 1000, seed: int = 1) -> np.ndarray:
     rng = np.random.default_rng(seed)
     return 100 + 5 * np.sin(np.arange(n) / 60) + np.cumsum(rng.normal(0, 0.05, n))
@@ -59,7 +49,7 @@ def _wander(n: int = 1000, seed: int = 1) -> np.ndarray:
 @pytest.mark.parametrize("stated, column", [(0.5, None), (2.0, "deadband"),
                                             (0.1, "deadband"), (0.0, "deadband")])
 def test_a_stated_deadband_against_a_held_series(stated, column):
-    found = reporting_disagreements(_held(_wander(), 0.5), stated, None, "MW")
+    found = reporting_disagreements(by_exception(_wander(), 0.5), stated, None, "MW")
     assert [d.column for d in found] == ([column] if column else [])
     if column is not None:
         assert found[0].shown >= 0.5 if stated < 0.5 else found[0].shown < 1.0
