@@ -27,10 +27,15 @@ MIN_VALUES = 50
 #: A grid is seen when the series takes at most this share as many distinct values as it has
 #: stored values (runs of equal values): it returns to the same values again and again.
 GRID_SHARE = 0.5
-#: The resolution is read as this quantile of the gaps between adjacent distinct values (the
-#: grid's step where neighbouring values are all taken; a historian rounding a converter's
-#: step to its own leaves gaps of two sizes, and the lower quartile takes the smaller).
-RESOLUTION_QUANTILE = 0.25
+#: The resolution is read as this low quantile of the gaps between adjacent distinct values
+#: (the grid's step wherever neighbouring values are both taken; a reading held by a deadband
+#: skips levels, leaving gaps of several steps, and a historian rounding a converter's step to
+#: its own leaves gaps of two sizes: the low quantile takes the smallest that recurs).
+RESOLUTION_QUANTILE = 0.05
+#: Fewest gaps between distinct values from which the series is said to contradict a stated
+#: resolution (a reading that takes three or four values in a week, e.g. held by a deadband
+#: wider than its movement, shows a step but proves no grid).
+MIN_GAPS = 10
 #: A stated value and the series disagree when they differ by more than this factor.
 DISAGREEMENT_FACTOR = 2.0
 
@@ -112,7 +117,7 @@ def reporting_disagreements(z: np.ndarray, deadband: float | None, resolution: f
     if v.size < MIN_VALUES:
         return out
     changes = _changes(v)
-    if deadband is not None and changes.size >= MIN_VALUES // 5:
+    if deadband is not None and changes.size >= MIN_GAPS:
         low = float(np.quantile(changes, DEADBAND_QUANTILE))
         held = reporting_deadband(v)
         floor = max(deadband, resolution or 0.0, reading_resolution(v))
@@ -128,11 +133,11 @@ def reporting_disagreements(z: np.ndarray, deadband: float | None, resolution: f
         seen = reading_resolution(v)
         distinct = np.diff(np.unique(v))
         distinct = distinct[distinct > _tolerance(v)]
-        if seen > DISAGREEMENT_FACTOR * resolution and seen > 0:
+        if seen > DISAGREEMENT_FACTOR * resolution and distinct.size >= MIN_GAPS:
             out.append(Disagreement("resolution", seen, (
                 f"the readings lie on steps of about {seen:.3g} {unit}, more than twice the "
                 f"stated resolution of {resolution:.3g} {unit}")))
-        elif resolution > 0 and distinct.size >= MIN_VALUES // 5:
+        elif resolution > 0 and distinct.size >= MIN_GAPS:
             fine = float(np.quantile(distinct, DEADBAND_QUANTILE))
             if fine * DISAGREEMENT_FACTOR < resolution:
                 out.append(Disagreement("resolution", fine, (

@@ -13,10 +13,11 @@ import pandas as pd
 import pytest
 from openpyxl.utils import get_column_letter
 
-from calibra.io import load_site
+from calibra.io import load_site, summarize
+from calibra.io.site_summary import site_summary_lines
 from calibra.model.points import POINT_COLUMNS
 from tests.held_series import by_exception
-from tests.io.site_builder import Table, find, problem_for_cell, problems_of
+from tests.io.site_builder import SiteFiles, Table, find, problem_for_cell, problems_of
 from tests.io.test_point_spreadsheet import write_xlsx
 
 POINTS = "points.csv"
@@ -188,3 +189,13 @@ def test_a_stated_resolution_finer_than_the_grid_of_the_data_is_a_warning(files,
     root = _week(files, tmp_path, {"FNH.TLR1.P": np.round(_flow() / 0.25) * 0.25})
     p = find(load_site(root).problems, POINTS, 2, "resolution", "warning")
     assert "steps of about 0.25 MW" in p.message
+
+
+def test_the_site_summary_counts_the_stated_values(files, tmp_path):
+    _with_columns(files, {2: "0.3%", 3: "0.5"}, {2: "0.1"})
+    site = load_site(files.write(tmp_path))
+    assert summarize(site)["stated"] == {"deadband": 2, "resolution": 1}
+    assert ("stated in the point list: deadband for 2, resolution for 1 (the others read from "
+            "the data)") in site_summary_lines(site)
+    plain = load_site(SiteFiles().write(tmp_path / "plain"))
+    assert not any(line.startswith("stated") for line in site_summary_lines(plain))
