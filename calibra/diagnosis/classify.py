@@ -12,8 +12,7 @@ The decision rules (all documented in DEVELOPERS.md):
    point's typical reading and statistically significant. The candidate with the lowest mean
    error wins; simpler models win near-ties (scale, offset, then drift).
 4. Otherwise, a scatter well beyond the expected noise (meter class, the implied value's
-   own uncertainty and the reading's deadband) → noisy; a reading held within a deadband is
-   also judged on its stored changes alone, where it carries no lag.
+   own uncertainty and the reading's deadband) → noisy.
 
 A point stored by exception lags the true value by up to its deadband, and a reading on a
 coarse grid (converter or historian) is off by up to half its resolution: both enter the
@@ -246,47 +245,17 @@ def _tie_break(candidates: list[Candidate], ps: PointSeries) -> Candidate:
     return min(near, key=lambda cand: (prior(cand), cand[0]))
 
 
-def _stored_changes(w: _Week) -> tuple[float, float, int] | None:
-    """A held reading's scatter where a new value was stored: there the reading is fresh, off
-    the true value by its transducer's error and rounding only, not by a lag within the
-    deadband (a lag of at most the implied value's change since the snapshot before is
-    allowed, for a value reported between snapshots). (scatter in the point's unit, the same
-    in units of the error expected there, snapshots); None without a deadband or with fewer
-    than half ``min_snapshots`` stored changes."""
-    ps, z = w.ps, w.z
-    if ps.deadband <= 0:
-        return None
-    fresh = np.r_[False, np.abs(np.diff(z)) > 1e-9 * max(1.0, float(np.abs(z).max()))]
-    if fresh.sum() < w.st.min_snapshots // 2:
-        return None
-    lag = np.minimum(ps.deadband, np.r_[np.inf, np.abs(np.diff(w.y))])
-    expected = np.sqrt(ps.sigma ** 2 + ps.sigma_implied ** 2 + ps.resolution ** 2 / 12.0
-                       + lag ** 2 / 3.0)
-    return (robust_scale(w.e0[fresh]), robust_scale((w.e0 / expected)[fresh]),
-            int(fresh.sum()))
-
-
 def _noisy_or_healthy(w: _Week) -> PointDiagnosis:
-    """A scatter well beyond the expected noise → noisy; otherwise healthy. A reading held
-    within a deadband is judged a second time on its stored changes alone, where the
-    deadband's lag does not hide a noisy transducer."""
+    """A scatter well beyond the expected noise → noisy; otherwise healthy."""
     st, noise, loss0, n = w.st, w.noise, w.loss0, w.n
     scatter = robust_scale(w.e0)
-    floor = w.ps.class_limit / 3.0 * st.noisy_factor
-    found = None
-    if scatter > st.noisy_factor * noise and scatter > floor:
-        found = {"scatter": scatter, **_storage(w.ps, noise)}
-    elif (fresh := _stored_changes(w)) is not None:
-        fresh_scatter, ratio, count = fresh
-        if ratio > st.noisy_factor and fresh_scatter > floor:
-            found = {"scatter": fresh_scatter, **_storage(w.ps, fresh_scatter / ratio),
-                     "stored_changes": count}
-    if found is not None:
+    if scatter > st.noisy_factor * noise and scatter > w.ps.class_limit / 3.0 * st.noisy_factor:
         return PointDiagnosis(
             DiagnosisKind.NOISY,
-            confidence=float(min(1.0, 1 - st.noisy_factor * found["expected"]
-                                 / found["scatter"] + 0.5)),
-            params=found, n_used=n, loss_healthy=loss0, loss_model=loss0,
+            confidence=float(min(1.0, 1 - st.noisy_factor * noise / scatter + 0.5)),
+            params={"scatter": scatter, **_storage(w.ps, noise)}, n_used=n,
+            loss_healthy=loss0,
+            loss_model=loss0,
         )
     return PointDiagnosis(DiagnosisKind.HEALTHY, n_used=n, loss_healthy=loss0, loss_model=loss0,
                           params={"scatter": scatter, "bias": float(np.median(w.e0))})

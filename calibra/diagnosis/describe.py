@@ -45,8 +45,7 @@ def _storage_words(params: dict, unit: str) -> str:
     parts = [f"{key} of {_fmt(params[key], unit, False)} "
              f"({'stated' if key in stated else 'from the data'})"
              for key, spread in _STORAGE_SPREAD.items()
-             if params.get(key, 0.0) / spread >= 0.2 * expected > 0
-             and not (key == "deadband" and params.get("stored_changes"))]
+             if params.get(key, 0.0) / spread >= 0.2 * expected > 0]
     return "its " + " and ".join(parts) if parts else ""
 
 
@@ -79,10 +78,7 @@ def _evidence(kind: FindingKind, d: PointDiagnosis, z: np.ndarray, y: np.ndarray
         return text
     if kind == FindingKind.NOISY:
         band = _storage_words(p, unit)
-        where = (f" where a new value was stored ({p['stored_changes']:,} snapshots)"
-                 if p.get("stored_changes") else "")
-        return (f"scatters ±{_fmt(p['scatter'], unit, False)} (1σ) around the implied "
-                f"value{where}, "
+        return (f"scatters ±{_fmt(p['scatter'], unit, False)} (1σ) around the implied value, "
                 f"{p['scatter'] / max(p['expected'], 1e-12):.1f}× what its accuracy class"
                 + (f", {band}" if band else "") + f" and the network explain; {n} snapshots")
     if kind == FindingKind.MISMAPPED:

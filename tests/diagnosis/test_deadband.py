@@ -12,7 +12,6 @@ import pytest
 
 from calibra.diagnosis.classify import PointSeries, classify_point
 from calibra.diagnosis.findings import findings_table
-from calibra.diagnosis.fits import robust_scale
 from calibra.diagnosis.review import period_days, point_series, review_site
 from calibra.model.points import analog_points
 from calibra.model.reporting import reading_resolution, reporting_deadband
@@ -128,22 +127,3 @@ def test_stated_deadband_and_resolution_in_the_point_list(case_name, seed):
         assert ps.deadband == points.at[tag, "deadband"]
         assert ps.resolution == points.at[tag, "resolution"]
         assert ps.stated == ("deadband", "resolution")
-
-
-def test_a_noisy_transducer_held_within_a_deadband_is_found_on_its_stored_changes():
-    """A 138 kV bus voltage held within a 0.5 kV deadband: the lag within it (up to 0.5 kV)
-    hides a transducer six times noisier than its 0.05 kV class σ from the scatter of the
-    whole week, but where a new value is stored the reading is fresh and its scatter is the
-    transducer's. A healthy transducer held the same way stays healthy."""
-    t, true = _voltage_week()
-    rng = np.random.default_rng(12)
-    y = true + rng.normal(0, 0.02, true.size)
-    noisy = by_exception(true + rng.normal(0, 0.3, true.size), 0.5)
-    healthy = by_exception(true + rng.normal(0, 0.05, true.size), 0.5)
-    found = classify_point(PointSeries(t, noisy, y, 0.05, 0.15, 0.02, deadband=0.5))
-    assert found.kind == "noisy" and found.params["stored_changes"] > 60, found
-    assert found.params["scatter"] > 3 * 0.05
-    # without the stored changes the week's scatter stays within 3 × the expected one
-    assert robust_scale(noisy - y) < 3 * np.sqrt(0.05 ** 2 + 0.02 ** 2 + 0.5 ** 2 / 3)
-    assert classify_point(PointSeries(t, healthy, y, 0.05, 0.15, 0.02,
-                                      deadband=0.5)).kind == "healthy"
