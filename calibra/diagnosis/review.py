@@ -148,6 +148,11 @@ def _propagate_device(site: Site, ev: WeekEvidence, diagnoses: dict) -> None:
                 )
 
 
+#: A frozen point that reads its own quantity at noise level in at least this share of the
+#: week is a meter that froze, never a crossed point (common practice, no source).
+STUCK_OWN_SHARE = 0.05
+
+
 def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
     """Check suspicious points against the other quantities of their substation."""
     pts = site.points
@@ -178,6 +183,16 @@ def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
                 continue
             sigma = float(ev.model.sigma_pu[i] / ev.model.to_pu[i])
             rival = d.loss_model if np.isfinite(d.loss_model) else d.loss_healthy
+            if d.kind == DiagnosisKind.STUCK:
+                # The frozen fit is exact on its frozen runs only (loss 0 there); a point that
+                # reads another quantity held within its deadband looks frozen against its own.
+                # It is compared as with no model, unless it reads its own quantity at noise
+                # level anywhere in the week (a meter that froze after it read right).
+                y = ev.implied[:, i].astype(float)
+                ok = np.isfinite(z) & np.isfinite(y)
+                if np.mean(np.abs(z[ok] - y[ok]) < 2.0 * sigma) >= STUCK_OWN_SHARE:
+                    continue
+                rival = d.loss_healthy
             # Reading another quantity needs no fitted parameter: it wins when it explains the
             # point about as well as the best fault model, at noise level, where the point's
             # own quantity does not.
