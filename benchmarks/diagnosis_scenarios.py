@@ -8,13 +8,15 @@ required.
 
     python benchmarks/diagnosis_scenarios.py [--cases case57 case118] [--seeds 1 2 3]
            [--periods 2016] [--freq 5min] [--coverage 0.55 --sparse] [--bare-status]
-           [--deadband 0.3 --bits 12] [--clean]
+           [--deadband 0.3 --bits 12 [--stated]] [--clean]
 
 ``--cases`` takes pypower's IEEE cases and pandapower's published networks
 (``tests/published.py``: case89pegase, iceland, GBreducednetwork, case1354pegase, …).
 ``--coverage`` is the chance that a branch end is metered; ``--sparse`` meters each end on its
 own (branches without any flow meter, unobservable parts); ``--clean`` runs the same weeks with
-no fault (every finding is a false alarm). Peak memory: proportional set size of the process
+no fault (every finding is a false alarm); ``--stated`` writes the deadband and resolution the
+readings were stored with into the point list (otherwise the review infers them from the data).
+Peak memory: proportional set size of the process
 tree (benchmarks/process_memory.py).
 """
 
@@ -54,6 +56,8 @@ def main() -> None:
                     help="status points without device, full scale or accuracy class")
     ap.add_argument("--deadband", type=float, default=0.0, help="report by exception, %% FS")
     ap.add_argument("--bits", type=int, default=0, help="converter resolution (0: none)")
+    ap.add_argument("--stated", action="store_true",
+                    help="the point list states each point's deadband and resolution")
     ap.add_argument("--clean", action="store_true", help="no faults: count false alarms")
     args = ap.parse_args()
     metering = MeteringOptions(independent_ends=args.sparse,
@@ -62,7 +66,8 @@ def main() -> None:
         metering = MeteringOptions(branch_end_coverage=args.coverage,
                                    independent_ends=args.sparse,
                                    bare_status_points=args.bare_status)
-    telemetry = TelemetryOptions(deadband_pct=args.deadband, resolution_bits=args.bits)
+    telemetry = TelemetryOptions(deadband_pct=args.deadband, resolution_bits=args.bits,
+                                 state_storage=args.stated)
     rows = []
     for case in args.cases:
         for seed in args.seeds:

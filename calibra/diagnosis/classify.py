@@ -14,10 +14,12 @@ The decision rules (all documented in DEVELOPERS.md):
 4. Otherwise, a scatter well beyond the expected noise (meter class, the implied value's
    own uncertainty and the reading's deadband) → noisy.
 
-A point stored by exception (or with a coarse converter) lags the true value by up to its
-deadband: that enters the expected noise (deadband/√3) and the limit a systematic error must
-pass (class limit + deadband), and a frozen run counts only while the implied value moves by
-more than the class limit and twice the deadband.
+A point stored by exception lags the true value by up to its deadband, and a reading on a
+coarse grid (converter or historian) is off by up to half its resolution: both enter the
+expected noise (deadband/√3, resolution/√12) and the limit a systematic error must pass (class
+limit + deadband + resolution/2), and a frozen run counts only while the implied value moves by
+more than that limit and another deadband. Both are the point list's stated values, or read
+from the series where it leaves them empty (:mod:`calibra.model.reporting`).
 
 Confidence is the share of snapshots, among those where the chosen model and "healthy" predict
 clearly different values, in which the chosen model is the closer one.
@@ -61,11 +63,17 @@ class PointSeries:
     sigma: float
     class_limit: float
     sigma_implied: float = 0.0
-    resolution: float = 0.0  #: historian rounding step, for frozen-value detection
+    #: The step of the stored readings (converter or historian), in the point's unit: a
+    #: healthy reading is off by up to half of it (see
+    #: :func:`calibra.model.reporting.reading_resolution`).
+    resolution: float = 0.0
     #: The change a reading must make before it is stored again (report by exception, or the
     #: converter's step), in the point's unit: a healthy reading may lag the true value by up
-    #: to this much (see :func:`calibra.diagnosis.fits.reporting_deadband`).
+    #: to this much (see :func:`calibra.model.reporting.reporting_deadband`).
     deadband: float = 0.0
+    #: Which of ``deadband`` and ``resolution`` the point list states (the others were read
+    #: from the series): the evidence says which.
+    stated: tuple[str, ...] = ()
     #: Whether a gain is one a known cause explains (CT taps, √3, units); decides near-ties
     #: between a scale and an offset, which a nearly constant reading cannot tell apart.
     known_factor: Callable[[float], bool] | None = None
@@ -134,6 +142,13 @@ class _Week:
         return float(np.mean(np.abs(e_m))) / float(np.hypot(ps.sigma, gain * ps.sigma_implied))
 
 
+def _storage(ps: PointSeries, noise: float) -> dict:
+    """The deadband and resolution a finding was judged with, which were stated, and the
+    expected scatter they entered."""
+    return {"deadband": ps.deadband, "resolution": ps.resolution, "stated": ps.stated,
+            "expected": noise}
+
+
 #: A fault model that explains the week: (mean loss, order, kind, parameters, its errors).
 Candidate = tuple[float, int, DiagnosisKind, dict, np.ndarray]
 
@@ -141,7 +156,9 @@ Candidate = tuple[float, int, DiagnosisKind, dict, np.ndarray]
 def _stuck(w: _Week) -> PointDiagnosis | None:
     """Frozen values while the implied value moves (runs of at least ``stuck_minutes``)."""
     ps, st, t, z, y, n = w.ps, w.st, w.t, w.z, w.y, w.n
-    runs = find_stuck_runs(z, y, max(ps.resolution, 1e-9 * max(1.0, np.abs(z).max())),
+    # Frozen means the very same stored value: a healthy reading on a coarse grid moves one
+    # step at a time, and a tolerance of a step would join those steps into a "frozen" run.
+    runs = find_stuck_runs(z, y, 1e-9 * max(1.0, np.abs(z).max()),
                            st.stuck_minutes, max(4 * w.noise, w.limit + ps.deadband))
     if not runs:
         return None
@@ -158,7 +175,7 @@ def _stuck(w: _Week) -> PointDiagnosis | None:
                 "until_days": float(t[last.stop - 1]) if last.stop < n else None,
                 "frozen_snapshots": int(frozen.sum()),
                 "implied_min": float(y[frozen].min()),
-                "implied_max": float(y[frozen].max())},
+                "implied_max": float(y[frozen].max()), **_storage(ps, w.noise)},
         loss_healthy=float(np.median(np.abs(e_f))), loss_model=0.0,
     )
 
@@ -236,7 +253,8 @@ def _noisy_or_healthy(w: _Week) -> PointDiagnosis:
         return PointDiagnosis(
             DiagnosisKind.NOISY,
             confidence=float(min(1.0, 1 - st.noisy_factor * noise / scatter + 0.5)),
-            params={"scatter": scatter, "expected": noise}, n_used=n, loss_healthy=loss0,
+            params={"scatter": scatter, **_storage(w.ps, noise)}, n_used=n,
+            loss_healthy=loss0,
             loss_model=loss0,
         )
     return PointDiagnosis(DiagnosisKind.HEALTHY, n_used=n, loss_healthy=loss0, loss_model=loss0,
@@ -254,11 +272,14 @@ def classify_point(ps: PointSeries, settings: ClassifySettings | None = None) ->
         return PointDiagnosis(DiagnosisKind.INSUFFICIENT, n_used=n,
                               reason=f"only {n} snapshots with a measured and an implied value")
     # A reading held within its deadband lags the true value by up to the deadband, evenly
-    # spread (σ = deadband/√3): part of the expected scatter, and a systematic error smaller
-    # than class limit plus deadband is not a fault a healthy meter could not show.
-    noise = float(np.sqrt(ps.sigma ** 2 + ps.sigma_implied ** 2 + ps.deadband ** 2 / 3.0))
+    # spread (σ = deadband/√3), and one rounded to its resolution is off by up to half a step
+    # (σ = step/√12, uniform quantization error; common practice, no source): both are part
+    # of the expected scatter, and a systematic error smaller than class limit plus deadband
+    # plus half a step is not a fault a healthy meter could not show.
+    noise = float(np.sqrt(ps.sigma ** 2 + ps.sigma_implied ** 2 + ps.deadband ** 2 / 3.0
+                          + ps.resolution ** 2 / 12.0))
     w = _Week(ps, st, ps.t_days[valid], ps.z[valid], ps.y[valid], noise,
-              ps.class_limit * st.class_margin + ps.deadband)
+              ps.class_limit * st.class_margin + ps.deadband + ps.resolution / 2.0)
     # Frozen values first: they would distort every other fit.
     stuck = _stuck(w)
     if stuck is not None:

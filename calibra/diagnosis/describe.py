@@ -32,6 +32,23 @@ def _representative_pair(z: np.ndarray, y: np.ndarray) -> tuple[float, float]:
     return float(zz[j]), float(yy[j])
 
 
+#: The spread (σ) each way of storing a reading adds: a deadband's lag, a grid's rounding.
+_STORAGE_SPREAD = {"deadband": np.sqrt(3.0), "resolution": np.sqrt(12.0)}
+
+
+def _storage_words(params: dict, unit: str) -> str:
+    """'its deadband of 0.50 kV (stated) and resolution of 0.08 kV (from the data)': how the
+    reading is stored, where that is a noticeable part (a fifth or more) of the expected
+    scatter the finding was judged against ('' when neither is)."""
+    stated = params.get("stated", ())
+    expected = params.get("expected", 0.0)
+    parts = [f"{key} of {_fmt(params[key], unit, False)} "
+             f"({'stated' if key in stated else 'from the data'})"
+             for key, spread in _STORAGE_SPREAD.items()
+             if params.get(key, 0.0) / spread >= 0.2 * expected > 0]
+    return "its " + " and ".join(parts) if parts else ""
+
+
 def _evidence(kind: FindingKind, d: PointDiagnosis, z: np.ndarray, y: np.ndarray, unit: str,
               limit: float, index: pd.DatetimeIndex, tz: str, extra: dict) -> str:
     n = f"{d.n_used:,}"
@@ -53,14 +70,17 @@ def _evidence(kind: FindingKind, d: PointDiagnosis, z: np.ndarray, y: np.ndarray
                 f"±{_fmt(limit, unit, False)}); {n} snapshots")
     if kind == FindingKind.STUCK:
         onset = index[0] + pd.Timedelta(days=p["onset_days"])
+        band = _storage_words(p, unit)
         text = (f"frozen at {_fmt(p['value'], unit, False)} from {_stamp(onset, tz)} "
                 f"({p['frozen_snapshots']:,} snapshots) while the network implies "
-                f"{_fmt(p['implied_min'], unit)} … {_fmt(p['implied_max'], unit)}")
+                f"{_fmt(p['implied_min'], unit)} … {_fmt(p['implied_max'], unit)}"
+                + (f", beyond {band}" if band else ""))
         return text
     if kind == FindingKind.NOISY:
+        band = _storage_words(p, unit)
         return (f"scatters ±{_fmt(p['scatter'], unit, False)} (1σ) around the implied value, "
-                f"{p['scatter'] / max(p['expected'], 1e-12):.1f}× what its accuracy class and "
-                f"the network explain; {n} snapshots")
+                f"{p['scatter'] / max(p['expected'], 1e-12):.1f}× what its accuracy class"
+                + (f", {band}" if band else "") + f" and the network explain; {n} snapshots")
     if kind == FindingKind.MISMAPPED:
         return (f"follows {extra['matched']} (median difference "
                 f"{_fmt(extra['loss'], unit, False)}) rather than its own quantity "

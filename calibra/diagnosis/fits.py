@@ -115,29 +115,3 @@ def find_stuck_runs(z: np.ndarray, y: np.ndarray, resolution: float, min_length:
         if np.ptp(y[a:b]) > min_implied_spread:
             runs.append(StuckRun(int(a), int(b), float(np.median(z[a:b]))))
     return runs
-
-
-#: A reading repeats its previous value in at least this share of snapshots before it is taken
-#: as stored by exception (a full-resolution reading of a live quantity almost never repeats).
-HELD_SHARE = 0.3
-#: The deadband is read as this low quantile of the steps between stored values (a stored
-#: value differs from the one before by at least the deadband; the quantile keeps a few
-#: smaller steps, e.g. at a forced periodic update, from deciding it).
-DEADBAND_QUANTILE = 0.05
-
-
-def reporting_deadband(z: np.ndarray) -> float:
-    """The deadband of a reading stored by exception, inferred from its series (in time order,
-    NaN where missing): 0 when the reading rarely repeats its previous value, else the low
-    quantile :data:`DEADBAND_QUANTILE` of the steps between stored values (the smallest change
-    that made the historian store a new value; with no deadband, the converter's step).
-    Common practice, no source."""
-    v = np.asarray(z, float)
-    v = v[np.isfinite(v)]
-    if v.size < 50:
-        return 0.0
-    steps = np.abs(np.diff(v))
-    moved = steps > 1e-9 * max(1.0, float(np.abs(v).max()))
-    if moved.sum() < 2 or 1.0 - moved.mean() < HELD_SHARE:
-        return 0.0
-    return float(np.quantile(steps[moved], DEADBAND_QUANTILE))

@@ -13,7 +13,6 @@ from calibra.diagnosis.classify import ClassifySettings, PointDiagnosis, PointSe
 from calibra.diagnosis.describe import build_findings
 from calibra.diagnosis.evidence import EvidenceSettings, WeekEvidence, gather_evidence
 from calibra.diagnosis.findings import NO_FAULT, DiagnosisKind
-from calibra.diagnosis.fits import reporting_deadband
 from calibra.diagnosis.mismap import (
     QuantityEvaluator,
     best_match,
@@ -27,7 +26,8 @@ from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.engine import PeriodEngine
 from calibra.estimation.period import PreparedPeriod, prepare_period
 from calibra.estimation.runtime import fork_map
-from calibra.model.points import analog_points, class_limit
+from calibra.model.points import analog_points, class_limit, default_sigma, stated_reporting
+from calibra.model.reporting import reading_resolution, reporting_deadband
 from calibra.model.site import Site
 from calibra.progress import Progress
 
@@ -54,11 +54,22 @@ class ReviewResult:
     summary: ReviewSummary
 
 
-def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSeries:
+def period_days(ev: WeekEvidence) -> np.ndarray:
+    """The evidence's snapshot times in days from the period's start."""
+    return ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
+
+
+def point_series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int,
+                 sigma: float | None = None) -> PointSeries:
+    """What point ``i`` of the evidence is classified on: its measured and implied week, the
+    transducer's σ (``sigma``, default from the point list), class limit, and its deadband
+    and resolution (stated in the point list, else read from its series). The estimator's
+    weights hold the stated storage too; the classification adds it itself, stated or read."""
     model = ev.model
     tag = model.tags[i]
     pt = site.points.loc[tag]
-    sigma = float(model.sigma_pu[i] / model.to_pu[i])
+    if sigma is None:
+        sigma = float(default_sigma(site.points.loc[[tag]]).iloc[0])
     limit = class_limit(pt)
     sig_y = 0.0
     rep = ev.representative
@@ -70,14 +81,24 @@ def _series(site: Site, ev: WeekEvidence, t_days: np.ndarray, i: int) -> PointSe
         return known_scale_cause(factor, quantity, ct_ratio)
 
     measured = ev.measured[:, i].astype(float)
-    return PointSeries(t_days, measured, ev.implied[:, i].astype(float), sigma, limit, sig_y,
-                       known_factor=known, deadband=reporting_deadband(measured))
+    # The point list's word where it states them; otherwise read from the series.
+    deadband = stated_reporting(pt, "deadband")
+    resolution = stated_reporting(pt, "resolution")
+    return PointSeries(
+        t_days, measured, ev.implied[:, i].astype(float), sigma, limit, sig_y,
+        known_factor=known,
+        deadband=reporting_deadband(measured) if deadband is None else deadband,
+        resolution=reading_resolution(measured) if resolution is None else resolution,
+        stated=tuple(c for c, v in (("deadband", deadband), ("resolution", resolution))
+                     if v is not None))
 
 
 def _classify_all(site: Site, ev: WeekEvidence, settings: ClassifySettings) -> dict:
-    t_days = ((ev.index - ev.index[0]).total_seconds() / 86400.0).to_numpy()
+    t_days = period_days(ev)
+    sigma = default_sigma(site.points.loc[ev.model.tags]).to_numpy(float)
     # Points are independent: classified on the worker processes where possible.
-    found = fork_map(lambda i: classify_point(_series(site, ev, t_days, i), settings),
+    found = fork_map(lambda i: classify_point(point_series(site, ev, t_days, i, sigma[i]),
+                                              settings),
                      range(ev.model.m))
     return {str(ev.model.tags[i]): d for i, d in enumerate(found)}
 
@@ -127,6 +148,11 @@ def _propagate_device(site: Site, ev: WeekEvidence, diagnoses: dict) -> None:
                 )
 
 
+#: A frozen point that reads its own quantity at noise level in at least this share of the
+#: week is a meter that froze, never a crossed point (common practice, no source).
+STUCK_OWN_SHARE = 0.05
+
+
 def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
     """Check suspicious points against the other quantities of their substation."""
     pts = site.points
@@ -157,6 +183,16 @@ def _mismapped(site: Site, ev: WeekEvidence, diagnoses: dict) -> dict:
                 continue
             sigma = float(ev.model.sigma_pu[i] / ev.model.to_pu[i])
             rival = d.loss_model if np.isfinite(d.loss_model) else d.loss_healthy
+            if d.kind == DiagnosisKind.STUCK:
+                # The frozen fit is exact on its frozen runs only (loss 0 there); a point that
+                # reads another quantity held within its deadband looks frozen against its own.
+                # It is compared as with no model, unless it reads its own quantity at noise
+                # level anywhere in the week (a meter that froze after it read right).
+                y = ev.implied[:, i].astype(float)
+                ok = np.isfinite(z) & np.isfinite(y)
+                if np.mean(np.abs(z[ok] - y[ok]) < 2.0 * sigma) >= STUCK_OWN_SHARE:
+                    continue
+                rival = d.loss_healthy
             # Reading another quantity needs no fitted parameter: it wins when it explains the
             # point about as well as the best fault model, at noise level, where the point's
             # own quantity does not.

@@ -16,7 +16,7 @@ from calibra.estimation.measurements import (
     MeasurementFunctions,
 )
 from calibra.model.network import Network
-from calibra.model.points import analog_points, default_sigma
+from calibra.model.points import analog_points, measurement_sigma
 
 SQRT3 = np.sqrt(3.0)
 
@@ -71,7 +71,7 @@ class MeasurementModel:
         # Base current in A at the terminal bus: S_base / (√3 · V_base).
         i_base = base * 1e3 / (SQRT3 * kv)
         to_pu[code == I_MAG] = 1.0 / i_base[code == I_MAG]
-        sigma_pu = default_sigma(pts).to_numpy(float) * to_pu
+        sigma_pu = measurement_sigma(pts).to_numpy(float) * to_pu
 
         zi = network.zero_injection_positions
         cons = MeasurementFunctions(

@@ -29,6 +29,7 @@ _METADATA = [("quantity", "Quantity"), ("element", "Element"), ("end", "End"),
              ("unit", "Unit"), ("full_scale", "Full scale"), ("accuracy_pct", "Accuracy (%)"),
              ("substation", "Substation"), ("device", "Device"), ("rtu", "RTU"),
              ("channel", "Channel"), ("ct_ratio", "CT ratio"), ("vt_ratio", "VT ratio"),
+             ("deadband", "Deadband (stated)"), ("resolution", "Resolution (stated)"),
              ("note", "Note")]
 _FINDING = [("finding", "Finding"), ("confidence", "Confidence"), ("factor", "Factor"),
             ("offset", "Offset"), ("drift_per_day", "Drift per day"), ("onset", "Onset"),

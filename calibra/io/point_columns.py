@@ -27,6 +27,10 @@ COLUMN_ALIASES: dict[str, tuple[str, ...]] = {
     "ct_ratio": ("ct", "ct ratio"),
     "vt_ratio": ("vt", "pt", "pt ratio", "vt ratio"),
     "sigma": ("standard deviation", "std dev"),
+    "deadband": ("dead band", "report deadband", "reporting deadband", "analog deadband",
+                 "deadband value"),
+    "resolution": ("reading resolution", "converter resolution", "quantization step",
+                   "quantisation step", "resolution step"),
     "note": ("notes", "comment", "comments", "remark", "remarks"),
 }
 

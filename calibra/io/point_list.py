@@ -15,6 +15,7 @@ from calibra.io.cells import (
     number_cells,
     text_cells,
 )
+from calibra.io.point_reporting import reporting_cells
 from calibra.io.point_source import POINT_LIST_FILES, POINTS_FILE, read_point_table
 from calibra.io.points_config import PointsConfig
 from calibra.io.problems import ProblemLog
@@ -23,6 +24,7 @@ from calibra.model.points import (
     ENDS,
     POINT_COLUMNS,
     QUANTITIES,
+    REPORTING_COLUMNS,
     STATUS_QUANTITY,
     UNIT_SPELLINGS,
     canonical_ratio,
@@ -48,9 +50,11 @@ def read_points(
 
     ``buses`` and ``branches`` are for checking elements and substations (None when a table
     could not be read: its references are then not checked).
-    Empty optional cells are "" (text) or NaN (``sigma``); ``end`` is "" for quantities
-    without an end. A ``branch_status`` point may leave ``device`` empty (stored as "") and
-    leave ``full_scale``/``accuracy_pct`` empty or give 0 (stored as NaN: not applicable).
+    Empty optional cells are "" (text) or NaN (``sigma``, ``deadband``, ``resolution``: the
+    last two in the point's unit, a percentage of full scale converted); ``end`` is "" for
+    quantities without an end. A ``branch_status`` point may leave ``device`` empty (stored
+    as "") and leave ``full_scale``/``accuracy_pct`` empty or give 0 (stored as NaN: not
+    applicable).
     """
     since = len(log.items)
     t = read_point_table(folder, config or PointsConfig(), log)
@@ -58,7 +62,7 @@ def read_points(
         return None, pd.Series(dtype=int)
     points, rows = _points(t, buses, branches, log)
     log.relabel(since, t.file, t.labels)
-    rows.attrs.update(file=t.file, tag_column=t.labels.get("tag", "tag"))
+    rows.attrs.update(file=t.file, tag_column=t.labels.get("tag", "tag"), labels=dict(t.labels))
     return points, rows
 
 
@@ -90,6 +94,8 @@ def _points(
         "sigma": number_cells(t, "sigma", log, required=False, positive=True),
         "note": text_cells(t, "note", log, required=False),
     })
+    columns.update({c: reporting_cells(t, c, quantity, columns["unit"], columns["full_scale"],
+                                       log) for c in REPORTING_COLUMNS})
     _check_meaning(t, columns, log)
     _check_elements(t, columns, buses, branches, log)
     keep = first_occurrences(tags)

@@ -19,6 +19,7 @@ from calibra.io.cdf import parse_cdf
 from calibra.io.matpower import MATPOWER_SUFFIXES, parse_matpower
 from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE, read_branches, read_buses
 from calibra.io.point_list import POINTS_FILE, read_points
+from calibra.io.point_reporting import report_reporting_disagreements
 from calibra.io.problems import ProblemLog
 from calibra.io.site_config import (
     NETWORK_TABLE,
@@ -97,6 +98,7 @@ def _site(folder: Path, config, network, points, point_rows, snapshots, log: Pro
     (with ``strict``, any problem at all)."""
     if points is not None and snapshots is not None and len(snapshots.index):
         _report_points_without_data(points, point_rows, snapshots, log)
+        report_reporting_disagreements(points, point_rows, snapshots, log)
     unusable = log.has_errors or (strict and log.items)
     if unusable or config is None or network is None or points is None or snapshots is None:
         raise SiteLoadError(log.items)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import QUANTITIES
+from calibra.model.points import QUANTITIES, REPORTING_COLUMNS
 from calibra.model.site import Site
 
 
@@ -14,7 +14,8 @@ def summarize(site: Site) -> dict:
 
     Keys: ``name``, ``timezone``, ``buses``, ``branches``, ``branches_in_service``,
     ``substations``, ``zero_injection_buses``, ``points``, ``points_by_quantity``
-    (quantity → count, every quantity listed), ``snapshots``, ``first_snapshot`` and
+    (quantity → count, every quantity listed), ``stated`` (``deadband`` and ``resolution`` →
+    the number of points that state one), ``snapshots``, ``first_snapshot`` and
     ``last_snapshot`` (UTC Timestamps or None), ``typical_interval`` (median spacing,
     Timedelta or None), ``missing_fraction`` (of all point × snapshot cells),
     ``missing_by_point`` (tag → number of missing snapshots), ``errors``, ``warnings``.
@@ -34,6 +35,8 @@ def summarize(site: Site) -> dict:
         "zero_injection_buses": int(net.buses["zero_injection"].sum()),
         "points": len(points),
         "points_by_quantity": {q: int(by_quantity.get(q, 0)) for q in QUANTITIES},
+        "stated": {c: int(points[c].notna().sum()) if c in points else 0
+                   for c in REPORTING_COLUMNS},
         "snapshots": len(index),
         "first_snapshot": index[0] if len(index) else None,
         "last_snapshot": index[-1] if len(index) else None,
@@ -59,6 +62,9 @@ def site_summary_lines(site: Site) -> list[str]:
         f"{s['branches_in_service']} in service",
         f"points: {s['points']}" + (f" ({quantities})" if quantities else ""),
     ]
+    if any(s["stated"].values()):
+        stated = ", ".join(f"{c} for {n}" for c, n in s["stated"].items())
+        lines.append(f"stated in the point list: {stated} (the others read from the data)")
     if s["snapshots"]:
         step = s["typical_interval"]
         lines.append(

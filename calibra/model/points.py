@@ -117,8 +117,16 @@ def end_place(buses: pd.DataFrame, branches: pd.DataFrame, branch: str, end: str
 REQUIRED_POINT_COLUMNS = [
     "quantity", "element", "end", "unit", "full_scale", "accuracy_pct", "substation", "device",
 ]
-OPTIONAL_POINT_COLUMNS = ["rtu", "channel", "ct_ratio", "vt_ratio", "sigma", "note"]
+#: How a reading is stored, stated in the point's unit (NaN: inferred from the data): the
+#: report-by-exception deadband (a new value is stored only when the reading moves more than
+#: this from the last stored one) and the resolution (the step of the converter or historian).
+REPORTING_COLUMNS = ["deadband", "resolution"]
+OPTIONAL_POINT_COLUMNS = ["rtu", "channel", "ct_ratio", "vt_ratio", "sigma",
+                          *REPORTING_COLUMNS, "note"]
 POINT_COLUMNS = REQUIRED_POINT_COLUMNS + OPTIONAL_POINT_COLUMNS
+#: A stated deadband or resolution above this share of full scale is unusual (a warning):
+#: deadbands are typically well under a few percent of full scale. Common practice, no source.
+REPORTING_WARN_PCT = 10.0
 
 
 def class_limit(points: pd.DataFrame | pd.Series) -> pd.Series | float:
@@ -147,6 +155,36 @@ def default_sigma(points: pd.DataFrame) -> pd.Series:
         given = pd.to_numeric(points["sigma"], errors="coerce")
         sigma = given.where(given.notna() & (given > 0), sigma)
     return sigma
+
+
+def storage_spread(points: pd.DataFrame) -> pd.Series:
+    """The standard deviation a reading's storage adds, in the point's unit, from the stated
+    deadband and resolution: deadband/√3 (a held reading lags the true value by up to the
+    deadband, evenly spread) and step/√12 (uniform quantization error); common practice, no
+    source. 0 where the point list states neither."""
+    spread = pd.Series(0.0, index=points.index)
+    for column, divisor in (("deadband", 3.0), ("resolution", 12.0)):
+        if column in points:
+            spread = spread + pd.to_numeric(points[column], errors="coerce").fillna(0.0) ** 2 \
+                / divisor
+    return np.sqrt(spread)
+
+
+def measurement_sigma(points: pd.DataFrame) -> pd.Series:
+    """σ of each point in the estimator's weights: the transducer's (:func:`default_sigma`)
+    and the spread of its stated storage (:func:`storage_spread`) together. A deadband or
+    resolution the point list leaves empty is not in the weights (it is read from the data
+    by the diagnosis, after the estimate)."""
+    return np.sqrt(default_sigma(points) ** 2 + storage_spread(points) ** 2)
+
+
+def stated_reporting(point: pd.Series, column: str) -> float | None:
+    """A point's stated ``deadband`` or ``resolution`` (one of :data:`REPORTING_COLUMNS`) in
+    its unit, None when the point list leaves it to be inferred from the data."""
+    value = point.get(column)
+    if value is None or pd.isna(value):
+        return None
+    return float(value)
 
 
 def analog_points(points: pd.DataFrame) -> pd.DataFrame:

@@ -19,7 +19,12 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.model.points import FLOW_QUANTITIES, INJECTION_QUANTITIES, POINT_COLUMNS
+from calibra.model.points import (
+    FLOW_QUANTITIES,
+    INJECTION_QUANTITIES,
+    POINT_COLUMNS,
+    REPORTING_COLUMNS,
+)
 from calibra.simulate.case import GridCase
 from calibra.simulate.powerflow import solve_power_flow_batch
 from calibra.simulate.quantities import branch_end_power, bus_injection
@@ -330,6 +335,8 @@ def _finish(rows: list[dict], opts: MeteringOptions, sub_order: list[str]) -> pd
     pts["rtu"] = "RTU-" + pts["substation"].map(substation_code)
     pts["channel"] = pts.groupby("rtu").cumcount() + 1
     pts["sigma"] = np.nan
+    for col in REPORTING_COLUMNS:
+        pts[col] = np.nan  # inferred from the data unless a caller states them
     for col in ("end", "ct_ratio", "vt_ratio"):
         pts[col] = pts[col].fillna("")
     pts.loc[pts["quantity"] == "branch_status", "vt_ratio"] = ""

@@ -43,7 +43,9 @@ class TelemetryOptions:
     ``resolution_bits``: the transducer's converter resolution (0: none), readings quantized to
     steps of 2 × full scale / 2**bits; ``deadband_pct``: report by exception, a value is stored
     only when it moves more than this share (% of full scale) from the last stored one, which is
-    held until then.
+    held until then. ``state_storage``: the site's point list states the deadband and the
+    resolution the readings were stored with (:func:`stated_storage`); otherwise it leaves
+    them to be inferred from the data.
     """
 
     missing_rate: float = 0.002
@@ -52,6 +54,7 @@ class TelemetryOptions:
     rtu_outage: str | None = None
     resolution_bits: int = 0
     deadband_pct: float = 0.0
+    state_storage: bool = False
 
 
 @dataclass
@@ -121,6 +124,20 @@ def hold_within_deadband(values: np.ndarray, points: pd.DataFrame, deadband_pct:
         move = ~np.isfinite(held) | (np.abs(v - held) > band)
         held = np.where(move & np.isfinite(v), v, held)
         out[t] = np.where(analog, held, v)
+    return out
+
+
+def stated_storage(points: pd.DataFrame, opts: TelemetryOptions) -> pd.DataFrame:
+    """The point list stating, for every analog point, the deadband (``deadband_pct`` % of
+    full scale, 0 for none) and the resolution its readings are stored with: the converter's
+    step or the historian's, whichever is coarser."""
+    out = points.copy()
+    analog = out["quantity"].isin(ANALOG_QUANTITIES).to_numpy()
+    fs = pd.to_numeric(out["full_scale"], errors="coerce").to_numpy(float)
+    converter = 2.0 * fs / 2.0 ** opts.resolution_bits if opts.resolution_bits > 0 else 0.0
+    step = np.maximum(converter, historian_resolution(out).to_numpy(float))
+    out["deadband"] = np.where(analog, opts.deadband_pct / 100.0 * fs, np.nan)
+    out["resolution"] = np.where(analog, step, np.nan)
     return out
 
 
@@ -242,7 +259,8 @@ def simulate_site(
     values[mask] = np.nan
     snapshots = pd.DataFrame(values, index=index, columns=points.index)
     snapshots.columns.name = None
-    site = Site(None, name or net.name, timezone, net, points.copy(), snapshots)
+    listed = stated_storage(points, opts) if opts.state_storage else points.copy()
+    site = Site(None, name or net.name, timezone, net, listed, snapshots)
     buses = net.buses.index
     return SimulationResult(
         site=site,

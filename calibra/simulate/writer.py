@@ -18,7 +18,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS
-from calibra.model.points import POINT_COLUMNS
+from calibra.model.points import POINT_COLUMNS, REPORTING_COLUMNS
 from calibra.model.site import Site
 
 TRUTH_FILE = Path("truth") / "faults.csv"
@@ -59,7 +59,12 @@ def write_network(site: Site, folder: Path) -> None:
 
 
 def write_points(points: pd.DataFrame, path: Path) -> None:
-    table = points.reindex(columns=POINT_COLUMNS).copy()
+    """points.csv with the columns of :data:`POINT_COLUMNS`; the stated deadband and resolution
+    (:data:`REPORTING_COLUMNS`) only when some point states one, so a point list that leaves
+    them to the data is written as before."""
+    columns = [c for c in POINT_COLUMNS if c not in REPORTING_COLUMNS
+               or (c in points and points[c].notna().any())]
+    table = points.reindex(columns=columns).copy()
     if "channel" in table:
         table["channel"] = table["channel"].astype("Int64")
     table.rename_axis("tag").to_csv(path, encoding="utf-8")
