@@ -133,7 +133,8 @@ def test_imported_values_are_the_sample_values_less_what_the_codes_remove(sample
     np.testing.assert_allclose(got[plain].to_numpy(), want[plain].to_numpy(), rtol=2e-7,
                                equal_nan=True)
     tag, start, end = record.substituted
-    reported = [p for p in site.problems if p.column == tag and "substituted" in p.message]
+    reported = [p for p in site.problems if p.column == "quality"
+                and f"point '{tag}'" in p.message and "substituted" in p.message]
     assert reported and "09:00 CET" in reported[0].message and "11:30 CET" in reported[0].message
 
 
