@@ -82,7 +82,8 @@ def main() -> None:
             s = score(table, sim.truth, detectable_faults(sim))
             rows.append({"case": case, "seed": seed, "points": len(sim.site.points),
                          "faults": len(sim.truth) - (sim.rtu_lag is not None),
-                         "undetectable": len(s.undetectable), "found": len(s.found) - len(s.clock_errors_s),
+                         "undetectable": len(s.undetectable),
+                         "found": len(s.found) - len(s.clock_errors_s),
                          "missed": len(s.missed), "wrong": len(s.wrong_kind),
                          "false": len(s.false_alarms),
                          "unverifiable": int((table.finding == "unverifiable").sum()),

@@ -13,7 +13,7 @@ from pathlib import Path
 import pandas as pd
 
 from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, UsageError, site_timezone
-from calibra.diagnosis.findings import CORRECTABLE_KINDS, FACTOR_KINDS, FindingKind
+from calibra.diagnosis.findings import CORRECTABLE_KINDS, FACTOR_KINDS, RTU_KINDS, FindingKind
 from calibra.ledger import Ledger, LedgerError
 from calibra.ledger.states import OPEN_STATES, FindingState
 from calibra.model.times import for_people, read_local
@@ -102,6 +102,10 @@ def _correct(ledger: Ledger, rows: pd.DataFrame, args, tz: str) -> list[str]:
     done = []
     for tag, group in rows.groupby("tag", sort=True):
         kinds = [k for k in group["finding"] if k in CORRECTABLE_KINDS]
+        if set(group["finding"]) <= set(RTU_KINDS):
+            raise UsageError(f"{tag}: an RTU clock is set right in the RTU, not in software; "
+                             f"then mark it: calibra ledger SITE repaired {tag} --at TIME "
+                             "(the next review verifies it)")
         if not kinds:
             raise UsageError(f"{tag}: {', '.join(group['finding'])} cannot be corrected in "
                              "software (only reversed, scale and offset findings); confirm it "

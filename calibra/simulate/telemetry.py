@@ -290,9 +290,9 @@ def simulate_site(
     else:
         truth = pd.DataFrame(columns=TRUTH_COLUMNS)
     if lagging is not None:
-        truth = pd.concat([truth, clock_truth(lagging[0], opts.rtu_lag_minutes, index,
-                                              int(truth["fault"].max()) if len(truth) else 0)],
-                          ignore_index=True)
+        clock = clock_truth(lagging[0], opts.rtu_lag_minutes, index,
+                            int(truth["fault"].max()) if len(truth) else 0)
+        truth = pd.concat([truth, clock], ignore_index=True) if len(truth) else clock
     step = historian_resolution(points).to_numpy(float)
     values = quantize(measured.to_numpy(float), points, opts.resolution_bits)
     values = hold_within_deadband(values, points, opts.deadband_pct)
