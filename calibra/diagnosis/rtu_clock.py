@@ -7,7 +7,7 @@ is fitted jointly over its points (:mod:`calibra.diagnosis.clock_fit`):
 
 1. **Screening** on the review's evidence, for every RTU: the fitted shift must be at least
    half a snapshot interval, inside the searched range, and significant (chunk t ≥
-   ``screen_t``) with at least ``min_supporting`` points supporting it.
+   ``screen_t``) jointly or for at least ``min_supporting`` points on their own.
 2. **Confirmation** for the strongest candidates: the implied values of a point in the
    estimate are partly its own reading (z − r/S), and the RTU's points lag together, so they
    are estimated again with the RTU's points set aside (h(x̂) from the other meters only). The
@@ -131,9 +131,12 @@ def _supporting(fit: ShiftFit, st: ClockSettings) -> tuple[np.ndarray, int]:
 
 
 def _passes_screen(fit: ShiftFit, st: ClockSettings) -> bool:
-    support, against = _supporting(fit, st)
-    return (fit.whole_steps != 0 and not fit.at_edge and fit.t_stat >= st.screen_t
-            and support.sum() >= st.min_supporting and support.sum() > against)
+    """Worth a second estimate: the shift is significant jointly, or on its own for at least
+    ``min_supporting`` points. Points whose implied values come mostly from the RTU's own
+    (lagging) readings agree with a shift of zero, so the joint test alone can miss it."""
+    strong = int((fit.point_t >= st.screen_t).sum())
+    return (fit.whole_steps != 0 and not fit.at_edge
+            and (fit.t_stat >= st.screen_t or strong >= st.min_supporting))
 
 
 def _confirmed(fit: ShiftFit, st: ClockSettings) -> bool:
@@ -220,12 +223,13 @@ def clock_findings(clocks: list[RtuClock]) -> list[Finding]:
     out = []
     for c in clocks:
         way = "late" if c.offset_s > 0 else "early"
-        evidence = (f"all {len(c.tags)} points of {c.rtu} read the network's values "
-                    f"{_seconds(c.offset_s)} {way} (± {c.stderr_s:,.0f} s; snapshots every "
-                    f"{c.interval_s:,.0f} s); {len(c.supporting)} of them support it on "
-                    f"their own, the shift fits better in {100 * c.confidence:.0f} % of the "
-                    f"week's time chunks; its points were judged with their readings moved "
-                    f"back by the offset")
+        spread = f"{c.stderr_s:,.1f}" if c.stderr_s < 10 else f"{c.stderr_s:,.0f}"
+        evidence = (f"{c.rtu}'s points read the network's values {_seconds(c.offset_s)} "
+                    f"{way} (± {spread} s; snapshots every {c.interval_s:,.0f} s): "
+                    f"{len(c.supporting)} of the {len(c.tags)} the other meters check "
+                    f"support it on their own, the shift fits better in "
+                    f"{100 * c.confidence:.0f} % of the period's time chunks; the RTU's "
+                    f"points were judged with their readings moved back by the offset")
         out.append(Finding(
             tag=c.rtu, device="", substation=c.substation, finding=FindingKind.TIME_OFFSET,
             confidence=c.confidence, evidence=evidence, offset=round(c.offset_s, 1),

@@ -71,7 +71,8 @@ def rtu_sheet(site_name: str, findings: pd.DataFrame, points: pd.DataFrame | Non
                  f"({len(listed)}): {escape(', '.join(listed) or 'none in the point list')}"
                  "</td></tr>")
         where = text(row, "substation")
-        title = f"RTU {rtu}" + (f" · substation {where}" if where else "")
+        title = (rtu if rtu.upper().startswith("RTU") else f"RTU {rtu}") + (
+            f" · substation {where}" if where else "")
         devices.append(DeviceSection(title, [[heading, *checks], [names]]))
         tags.append(text(row, "tag"))
     cautions = (*SAFETY_CAUTIONS, RTU_CAUTION)

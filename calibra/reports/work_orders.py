@@ -60,7 +60,8 @@ def needing_field_work(findings: pd.DataFrame) -> pd.DataFrame:
     """The meter findings a crew still has to look at: all of them, or, when the frame carries
     the ledger's ``state``, those new, confirmed or only corrected in software. Findings about
     an RTU (its clock) are for the RTU/SCADA engineer: :func:`needing_rtu_work`."""
-    return _open(findings[~findings["finding"].isin(RTU_KINDS)])
+    about_rtu = findings["finding"].isin(RTU_KINDS)
+    return _open(findings[~about_rtu] if about_rtu.any() else findings)
 
 
 def needing_rtu_work(findings: pd.DataFrame) -> pd.DataFrame:
