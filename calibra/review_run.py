@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.diagnosis.findings import FindingKind, findings_table
+from calibra.diagnosis.findings import RTU_KINDS, FindingKind, findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.estimation.engine import PeriodEngine
@@ -239,13 +239,17 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     if run.corrections:
         lines.append(f"software corrections applied: {len(run.corrections)} "
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")
-    n_points = run.findings["tag"].nunique() if len(run.findings) else 0
+    about_rtu = run.findings["finding"].isin(RTU_KINDS)
+    n_points = run.findings.loc[~about_rtu, "tag"].nunique() if len(run.findings) else 0
+    n_rtus = run.findings.loc[about_rtu, "tag"].nunique() if len(run.findings) else 0
     lines.append(f"findings: {len(run.findings)} on {n_points} point"
-                 f"{'s' if n_points != 1 else ''}")
+                 f"{'s' if n_points != 1 else ''}"
+                 + (f" and {n_rtus} RTU{'s' if n_rtus != 1 else ''}" if n_rtus else ""))
     counts = run.findings.groupby("finding")["tag"].nunique().sort_values(ascending=False,
                                                                           kind="stable")
     for kind, n in counts.items():
-        lines.append(f"  {kind}: {n} point{'s' if n != 1 else ''}")
+        what = "RTU" if kind in RTU_KINDS else "point"
+        lines.append(f"  {kind}: {n} {what}{'s' if n != 1 else ''}")
     for row in run.findings.sort_values(["substation", "device", "tag"]).itertuples():
         lines.append(f"  [{row.state}] {row.tag} ({row.substation}) {row.finding}: "
                      f"{row.evidence}")

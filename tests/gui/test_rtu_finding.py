@@ -47,6 +47,12 @@ def test_rtu_clock_finding_is_listed_and_shown(qtbot, window, lagging_site):
     assert abs(offset - 300.0) < 60.0  # within one one-minute interval of the seeded lag
     # No week of its own: the plot says so instead of drawing a point's curves.
     assert "finding about the RTU" in window.plots.title.text()
+    # Decisions: an offset correction in software is refused with the reason, confirming works.
+    actions = window.point_actions
+    assert not actions.apply_offset(300.0)
+    assert actions.confirm()
+    state = window.state.ledger.findings().loc[fid, "state"]
+    assert state == "confirmed"
 
 
 def test_work_orders_dialog_has_the_rtu_sheet_apart(qtbot, window, lagging_site, tmp_path):
