@@ -9,7 +9,8 @@ parabola through it and its neighbours. Whole steps only are compared because re
 interpolated between two noisy snapshots are less noisy than real ones, which would pull the
 minimum to half steps. The uncertainty is the delete-one-chunk jackknife over time chunks
 (residuals are correlated in time); the significance is the chunk t statistic of
-J(0) − J(ŝ); each point's own chunk t statistic says whether it supports the shift.
+J(0) − J(ŝ); each point's own chunk t statistic says whether it supports the shift. The tilt
+J(−1) − J(+1) says which way the readings lean even when the shift is below half an interval.
 """
 
 from __future__ import annotations
@@ -35,6 +36,10 @@ class ShiftFit:
     point_gain: np.ndarray  #: each point's J(0) − J(whole_steps)
     share_chunks: float  #: share of chunks (with a gain or a loss) in which the shift fits better
     at_edge: bool  #: the minimum lies at the end of the searched range
+    #: chunk t statistic of J(−1) − J(+1), signed toward ``steps``: which way the readings
+    #: lean, even when the shift is below half an interval (and so ``whole_steps`` is 0)
+    tilt_t: float = 0.0
+    point_tilt_t: np.ndarray | None = None  #: the same per point
 
 
 def _huber(u: np.ndarray) -> np.ndarray:
@@ -110,6 +115,8 @@ def fit_shift(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarr
     jack = np.asarray(jack)
     stderr = float(np.sqrt((chunks - 1) / chunks * np.sum((jack - jack.mean()) ** 2)))
     moved = np.abs(d) > 1e-9
+    way = 1.0 if steps >= 0 else -1.0
+    tilt = way * (J[max_steps - 1] - J[max_steps + 1])  # chunks × points
     return ShiftFit(
         steps=float(steps), whole_steps=whole, stderr=stderr, t_stat=_chunk_t(d),
         t_without_largest=_chunk_t(rest),
@@ -117,6 +124,8 @@ def fit_shift(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarr
         point_gain=point_gain,
         share_chunks=float((d[moved] > 0).mean()) if moved.any() else 0.0,
         at_edge=best in (0, total.size - 1),
+        tilt_t=_chunk_t(tilt.sum(axis=1)),
+        point_tilt_t=np.array([_chunk_t(tilt[:, i]) for i in range(tilt.shape[1])]),
     )
 
 

@@ -6,8 +6,9 @@ are steady. Per RTU with enough points, the shift of its readings against their 
 is fitted jointly over its points (:mod:`calibra.diagnosis.clock_fit`):
 
 1. **Screening** on the review's evidence, for every RTU: the fitted shift must be at least
-   half a snapshot interval, inside the searched range, and significant (chunk t ≥
-   ``screen_t``) jointly or for at least ``min_supporting`` points on their own.
+   ``screen_steps`` intervals, inside the searched range, and significant (chunk t ≥
+   ``screen_t`` of the gain or of the tilt toward it) jointly or for at least
+   ``min_supporting`` points on their own.
 2. **Confirmation** for the strongest candidates: the implied values of a point in the
    estimate are partly its own reading (z − r/S), and the RTU's points lag together, so they
    are estimated again with the RTU's points set aside (h(x̂) from the other meters only). The
@@ -50,6 +51,9 @@ class ClockSettings:
     max_shift_minutes: float = 30.0  #: the searched range, either way
     max_shift_steps: int = 60  #: at most this many snapshot intervals either way
     screen_t: float = 3.0  #: screening: chunk t statistic
+    #: screening: the least shift, in intervals (the RTU's own readings in its points' implied
+    #: values pull the shift toward zero, so less than the half interval a finding needs)
+    screen_steps: float = 0.25
     significance: float = 4.0  #: confirmation: chunk t statistic and |offset| / stderr
     agreement_t: float = 3.0  #: confirmation: chunk t without the point that gains most
     point_t: float = 2.0  #: a point supports the shift above this, contradicts below −this
@@ -134,9 +138,11 @@ def _passes_screen(fit: ShiftFit, st: ClockSettings) -> bool:
     """Worth a second estimate: the shift is significant jointly, or on its own for at least
     ``min_supporting`` points. Points whose implied values come mostly from the RTU's own
     (lagging) readings agree with a shift of zero, so the joint test alone can miss it."""
-    strong = int((fit.point_t >= st.screen_t).sum())
-    return (fit.whole_steps != 0 and not fit.at_edge
-            and (fit.t_stat >= st.screen_t or strong >= st.min_supporting))
+    if fit.at_edge or abs(fit.steps) < st.screen_steps:
+        return False
+    points = np.maximum(fit.point_t, fit.point_tilt_t)
+    strong = int((points >= st.screen_t).sum())
+    return max(fit.t_stat, fit.tilt_t) >= st.screen_t or strong >= st.min_supporting
 
 
 def _confirmed(fit: ShiftFit, st: ClockSettings) -> bool:
