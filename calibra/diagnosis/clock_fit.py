@@ -4,13 +4,14 @@ A clock that runs ``τ`` late stamps at ``t`` what was true at ``t − τ``: the
 equals the implied value y(t − τ), so z(t + τ) − y(t) is only noise. For every whole number
 ``s`` of snapshot intervals in ±``max_steps`` the readings are moved by ``s`` rows and the
 robust misfit J(s) = Σ ρ((z(t + s) − y(t) − cᵢ) / σᵢ) summed (Huber ρ, cᵢ each point's median
-difference, so a meter offset is not a clock); the whole-step minimum is refined by the
-parabola through it and its neighbours. Whole steps only are compared because readings
-interpolated between two noisy snapshots are less noisy than real ones, which would pull the
-minimum to half steps. The uncertainty is the delete-one-chunk jackknife over time chunks
-(residuals are correlated in time); the significance is the chunk t statistic of
-J(0) − J(ŝ); each point's own chunk t statistic says whether it supports the shift. The tilt
-J(−1) − J(+1) says which way the readings lean even when the shift is below half an interval.
+difference in the unshifted week, so a meter offset is not a clock); the whole-step minimum
+is refined by the parabola through it and its neighbours. Whole steps only are compared
+because readings interpolated between two noisy snapshots are less noisy than real ones,
+which would pull the minimum to half steps. The uncertainty is the delete-one-chunk
+jackknife over time chunks (residuals are correlated in time); the significance is the chunk
+t statistic of J(0) − J(ŝ); each point's own chunk t statistic says whether it supports the
+shift. The tilt J(−1) − J(+1) says which way the readings lean even when the shift is below
+half an interval.
 """
 
 from __future__ import annotations
@@ -66,6 +67,11 @@ def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray
     chunk_of = np.minimum(np.arange(k) * chunks // max(k, 1), chunks - 1)
     out = np.zeros((2 * max_steps + 1, chunks, n))
     counts = np.zeros((2 * max_steps + 1, n))
+    # Each point's offset from the unshifted week (a lag leaves it: ramps up and down balance),
+    # the same for every shift, so J(s) compares shifts under one offset.
+    with np.errstate(all="ignore"):
+        c = np.nanmedian(np.where(regular[:, max_steps, None], z - y, np.nan), axis=0)
+    c = np.where(np.isfinite(c), c, 0.0)
     for j, s in enumerate(range(-max_steps, max_steps + 1)):
         lo, hi = max(0, -s), min(k, k - s)
         e = np.full((k, n), np.nan)
@@ -75,8 +81,6 @@ def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray
         counts[j] = ok.sum(axis=0)
         if not ok.any():
             continue
-        with np.errstate(all="ignore"):
-            c = np.nanmedian(e, axis=0)
         rho = np.where(ok, _huber(np.where(ok, e - c[None, :], 0.0) / noise[None, :]), 0.0)
         np.add.at(out[j], chunk_of, rho)
     scale = counts[max_steps][None, :] / np.maximum(counts, 1)

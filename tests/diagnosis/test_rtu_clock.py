@@ -62,8 +62,8 @@ def test_moving_back_undoes_the_lag():
     np.testing.assert_allclose(back[ok][3:], line[ok][3:], rtol=1e-12)
 
 
-def _busiest_rtu(case: str, seed: int, **kw) -> str:
-    clean = generated_scenario(case, seed, faults=False, **kw)
+def _busiest_rtu(clean) -> str:
+    """The RTU with the most power points in a simulated week."""
     pts = clean.site.points
     analog = pts[pts["quantity"].isin(["p_flow", "q_flow", "p_injection", "q_injection"])]
     return str(analog["rtu"].value_counts().index[0])
@@ -97,8 +97,8 @@ def test_lag_on_five_minute_data_with_meter_faults_on_and_off_the_rtu():
     random fault mix plus a CT-ratio error (×1.25) on one point of the lagging RTU: the clock
     is found within one interval (300 s) and every detectable meter fault with the right kind,
     no false alarm."""
-    rtu = _busiest_rtu("case118", 4, periods=864)
     clean = generated_scenario("case118", 4, periods=864, faults=False)
+    rtu = _busiest_rtu(clean)
     pts = clean.site.points
     mine = pts[(pts["rtu"] == rtu) & (pts["quantity"] == "p_flow")]
     loaded = clean.true_values[mine.index].abs().median()
@@ -120,8 +120,8 @@ def test_clean_week_and_a_drifting_meter_give_no_clock():
     """IEEE 57, a week of five-minute data without a clock error, one drifting meter on the
     busiest RTU: the drift is found as a drift, no time_offset finding (one meter is not a
     clock)."""
-    rtu = _busiest_rtu("case57", 6)
     clean = generated_scenario("case57", 6, faults=False)
+    rtu = _busiest_rtu(clean)
     pts = clean.site.points
     tag = str(pts[(pts["rtu"] == rtu) & (pts["quantity"] == "p_flow")].index[0])
     fs = float(pts.at[tag, "full_scale"])
