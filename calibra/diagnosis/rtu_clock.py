@@ -11,7 +11,9 @@ is fitted jointly over its points (:mod:`calibra.diagnosis.clock_fit`):
    ``min_supporting`` points on their own.
 2. **Confirmation** for the strongest candidates: the implied values of a point in the
    estimate are partly its own reading (z − r/S), and the RTU's points lag together, so they
-   are estimated again with the RTU's points set aside (h(x̂) from the other meters only). The
+   are estimated again with every candidate's points set aside (h(x̂) from the other meters
+   only; a lagging RTU would also make its neighbour seem to lag; a candidate left unchecked
+   that way is estimated again with only its own points set aside). The
    shift must then be significant (t ≥ ``significance``), several standard errors from zero,
    supported by at least ``min_supporting`` points, and still significant without the point
    that gains most (``agreement_t``: one meter with a drift or a fault is not a clock).
@@ -168,24 +170,41 @@ def find_rtu_clocks(period: PreparedPeriod, ev: WeekEvidence, diagnoses: dict,
     for rtu, cols in groups.items():
         fit, _ = _fit(ev, cols, st)
         if _passes_screen(fit, st):
-            screened.append((fit.t_stat, rtu))
+            screened.append((max(fit.t_stat, fit.tilt_t), rtu))
+    candidates = [rtu for _, rtu in sorted(screened, reverse=True)[:st.max_candidates]]
+    if not candidates:
+        return []
+
+    def without(rtus: list[str]) -> WeekEvidence:
+        aside = ev.set_aside | np.isin(rtu_of, rtus)
+        return gather_evidence(period, evidence_settings, progress, initial_set_aside=aside,
+                               screen=False, engine=engine)
+
+    # Every candidate's points set aside at once: a lagging RTU's readings shift its
+    # neighbours' implied values too, and a neighbour judged against them would seem to lag.
+    together = without(candidates)
     clocks = []
-    for _, rtu in sorted(screened, reverse=True)[:st.max_candidates]:
+    for rtu in candidates:
         if progress is not None and progress.cancelled:
             break
-        rtu_cols = np.flatnonzero(rtu_of == rtu)
-        aside = ev.set_aside.copy()
-        aside[rtu_cols] = True
-        without = gather_evidence(period, evidence_settings, progress, initial_set_aside=aside,
-                                  screen=False, engine=engine)
-        cols = np.array([i for i in groups[rtu]
-                         if np.isfinite(without.implied[:, i]).sum() >= st.min_snapshots])
+        evidence = together
+        cols = _checked(evidence, groups[rtu], st)
+        if cols.size < st.min_points and len(candidates) > 1:
+            # Setting the other candidates aside too left this RTU's points unchecked.
+            evidence = without([rtu])
+            cols = _checked(evidence, groups[rtu], st)
         if cols.size < st.min_points:
             continue
-        fit, interval = _fit(without, cols, st)
+        fit, interval = _fit(evidence, cols, st)
         if _confirmed(fit, st):
-            clocks.append(_clock(period, without, rtu, cols, fit, interval, st))
+            clocks.append(_clock(period, evidence, rtu, cols, fit, interval, st))
     return clocks
+
+
+def _checked(ev: WeekEvidence, cols: np.ndarray, st: ClockSettings) -> np.ndarray:
+    """The columns with enough implied values (the other meters still check them)."""
+    return np.array([i for i in cols if np.isfinite(ev.implied[:, i]).sum() >= st.min_snapshots],
+                    dtype=int)
 
 
 def _clock(period: PreparedPeriod, ev: WeekEvidence, rtu: str, cols: np.ndarray,
