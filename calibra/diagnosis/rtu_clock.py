@@ -85,7 +85,12 @@ def interval_seconds(index: pd.DatetimeIndex) -> float:
     """The snapshot interval: the median step between snapshots, in seconds."""
     if len(index) < 2:
         return 60.0
-    return float(np.median(np.diff(index.asi8)) / 1e9)
+    return float(np.median(np.diff(seconds_from_start(index))))
+
+
+def seconds_from_start(index: pd.DatetimeIndex) -> np.ndarray:
+    """Seconds of each snapshot after the first (whatever the index's time unit)."""
+    return np.asarray((index - index[0]) / pd.Timedelta(seconds=1), float)
 
 
 def _groups(rtu_of: np.ndarray, ev: WeekEvidence, diagnoses: dict, st: ClockSettings
@@ -122,7 +127,7 @@ def _noise(ev: WeekEvidence, cols: np.ndarray) -> np.ndarray:
 
 
 def _fit(ev: WeekEvidence, cols: np.ndarray, st: ClockSettings) -> tuple[ShiftFit, float]:
-    times = (ev.index.asi8 - ev.index.asi8[0]) / 1e9
+    times = seconds_from_start(ev.index)
     interval = interval_seconds(ev.index)
     steps = int(np.clip(round(st.max_shift_minutes * 60.0 / interval), 2, st.max_shift_steps))
     regular = regular_shifts(times, interval, steps)
@@ -228,7 +233,7 @@ def clock_corrected_period(period: PreparedPeriod, clocks: list[RtuClock]) -> Pr
     if not clocks:
         return period
     measured, z = period.measured.copy(), period.z.copy()
-    times = (period.index.asi8 - period.index.asi8[0]) / 1e9
+    times = seconds_from_start(period.index)
     rtu_of = rtu_of_points(period)
     for c in clocks:
         cols = np.flatnonzero(rtu_of == c.rtu)

@@ -132,3 +132,13 @@ def test_clean_week_and_a_drifting_meter_give_no_clock():
     assert _clock_findings(result) == []
     kinds = {f.tag: f.finding for f in result.findings}
     assert kinds.get(tag) == FindingKind.DRIFT
+
+
+@pytest.mark.parametrize("unit", ["ns", "us", "s"])
+def test_snapshot_interval_whatever_the_time_unit(unit):
+    """pandas keeps times in ns, us or s: the interval is 300 s in each (common practice, no
+    source)."""
+    from calibra.diagnosis.rtu_clock import interval_seconds
+
+    index = pd.date_range("2026-05-04", periods=6, freq="5min", tz="UTC").as_unit(unit)
+    assert interval_seconds(index) == 300.0
