@@ -8,14 +8,16 @@ required.
 
     python benchmarks/diagnosis_scenarios.py [--cases case57 case118] [--seeds 1 2 3]
            [--periods 2016] [--freq 5min] [--coverage 0.55 --sparse] [--bare-status]
-           [--deadband 0.3 --bits 12 [--stated]] [--clean]
+           [--deadband 0.3 --bits 12 [--stated]] [--clean] [--rtu-lag MINUTES]
 
 ``--cases`` takes pypower's IEEE cases and pandapower's published networks
 (``tests/published.py``: case89pegase, iceland, GBreducednetwork, case1354pegase, …).
 ``--coverage`` is the chance that a branch end is metered; ``--sparse`` meters each end on its
 own (branches without any flow meter, unobservable parts); ``--clean`` runs the same weeks with
 no fault (every finding is a false alarm); ``--stated`` writes the deadband and resolution the
-readings were stored with into the point list (otherwise the review infers them from the data).
+readings were stored with into the point list (otherwise the review infers them from the data);
+``--rtu-lag`` makes one random RTU's clock run that many minutes late (negative: early), scored
+as a ``time_offset`` truth row whose offset error is printed against the snapshot interval.
 Peak memory: proportional set size of the process
 tree (benchmarks/process_memory.py).
 """
@@ -59,6 +61,8 @@ def main() -> None:
     ap.add_argument("--stated", action="store_true",
                     help="the point list states each point's deadband and resolution")
     ap.add_argument("--clean", action="store_true", help="no faults: count false alarms")
+    ap.add_argument("--rtu-lag", type=float, default=0.0, metavar="MINUTES",
+                    help="one random RTU's clock this many minutes late (0: none)")
     args = ap.parse_args()
     metering = MeteringOptions(independent_ends=args.sparse,
                                bare_status_points=args.bare_status)
@@ -67,7 +71,7 @@ def main() -> None:
                                    independent_ends=args.sparse,
                                    bare_status_points=args.bare_status)
     telemetry = TelemetryOptions(deadband_pct=args.deadband, resolution_bits=args.bits,
-                                 state_storage=args.stated)
+                                 state_storage=args.stated, rtu_lag_minutes=args.rtu_lag)
     rows = []
     for case in args.cases:
         for seed in args.seeds:
@@ -81,11 +85,15 @@ def main() -> None:
             table = findings_table(res.findings)
             s = score(table, sim.truth, detectable_faults(sim))
             rows.append({"case": case, "seed": seed, "points": len(sim.site.points),
-                         "faults": len(sim.truth),
-                         "undetectable": len(s.undetectable), "found": len(s.found),
+                         "faults": len(sim.truth) - (sim.rtu_lag is not None),
+                         "undetectable": len(s.undetectable),
+                         "found": len(s.found) - len(s.clock_errors_s),
                          "missed": len(s.missed), "wrong": len(s.wrong_kind),
                          "false": len(s.false_alarms),
                          "unverifiable": int((table.finding == "unverifiable").sum()),
+                         "rtu_lag": sim.rtu_lag[0] if sim.rtu_lag else "",
+                         "clock_error_s": next(iter(s.clock_errors_s.values()), ""),
+                         "clock_findings": int((table.finding == "time_offset").sum()),
                          "seconds": round(dt, 1), "peak_mb": round(mem.peak_mb)})
             print(rows[-1], flush=True)
             for item in s.missed:

@@ -45,4 +45,19 @@ def period_for_review(site: Site, start: pd.Timestamp | None = None,
         return select_period(site, start, end)
     first, last = index[0], index[-1]
     return select_period(site, start, end, ledger.active_corrections((first, last)),
-                         repairs_inside(ledger, first, last))
+                         with_rtu_points(site, repairs_inside(ledger, first, last)))
+
+
+def with_rtu_points(site: Site, repairs: Mapping[str, pd.Timestamp]) -> dict[str, pd.Timestamp]:
+    """Repairs with an RTU's clock set right at a time (a ``time_offset`` finding marked
+    repaired; its tag is the RTU) extended to every point of the RTU: they are judged on
+    their data after it."""
+    out = dict(repairs)
+    if "rtu" not in site.points:
+        return out
+    rtu_of = site.points["rtu"].fillna("").astype(str)
+    for name, at in repairs.items():
+        if name not in site.points.index:
+            for tag in rtu_of.index[rtu_of == name]:
+                out[str(tag)] = max(at, out.get(str(tag), at))
+    return out

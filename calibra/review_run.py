@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.diagnosis.findings import FindingKind, findings_table
+from calibra.diagnosis.findings import RTU_KINDS, FindingKind, findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.estimation.engine import PeriodEngine
@@ -28,7 +28,10 @@ from calibra.progress import Progress
 from calibra.reports import (
     Sheet,
     needing_field_work,
+    needing_rtu_work,
+    rtu_sheet,
     work_order_sheets,
+    write_rtu_work_orders_csv,
     write_safe_csv,
     write_work_orders_csv,
 )
@@ -37,6 +40,8 @@ from calibra.review_period import period_for_review
 FINDINGS_FILE = "findings.csv"
 WORK_ORDERS_CSV = "work_orders.csv"
 WORK_ORDERS_PDF = "work_orders.pdf"
+#: The RTU/SCADA engineer's checks (RTU clocks), written when the review has open ones.
+RTU_WORK_ORDERS_CSV = "rtu_work_orders.csv"
 SUMMARY_FILE = "summary.txt"
 SUMMARY_JSON = "summary.json"
 
@@ -122,6 +127,7 @@ OUTPUT_LABELS = {
     "findings": "findings",
     "work_orders_csv": "work orders (spreadsheet)",
     "work_orders_pdf": "work orders (PDF sheets)",
+    "rtu_work_orders_csv": "RTU/SCADA checks (spreadsheet)",
     "summary": "summary",
     "summary_json": "summary for programs (JSON)",
 }
@@ -143,16 +149,25 @@ def write_outputs(run: ReviewRun, site: Site, out: Path,
     field_work = needing_field_work(run.findings)
     files["work_orders_csv"] = write_work_orders_csv(field_work, site.points,
                                                      out / WORK_ORDERS_CSV, site_name=site.name)
+    rtu_work = needing_rtu_work(run.findings)
+    if len(rtu_work):
+        files["rtu_work_orders_csv"] = write_rtu_work_orders_csv(
+            rtu_work, site.points, out / RTU_WORK_ORDERS_CSV, site_name=site.name)
     # Times for people on the sheets: the site's zone, as the desktop application prints them.
     tz = site.timezone
     period = (run.result.period_start.tz_convert(tz), run.result.period_end.tz_convert(tz))
-    if pdf_writer is not None and len(field_work):
-        sheets = work_order_sheets(site.name, field_work, site.points,
-                                   pd.Timestamp.now(tz="UTC").tz_convert(tz), period=period)
-        files["work_orders_pdf"] = pdf_writer(list(sheets.values()), out / WORK_ORDERS_PDF,
+    if pdf_writer is not None and (len(field_work) or len(rtu_work)):
+        now = pd.Timestamp.now(tz="UTC").tz_convert(tz)
+        sheets = work_order_sheets(site.name, field_work, site.points, now, period=period)
+        printed = list(sheets.values())
+        if len(rtu_work):
+            # The RTU/SCADA engineer's sheet comes after the crews' substation sheets.
+            printed.append(rtu_sheet(site.name, rtu_work, site.points, now, period))
+        files["work_orders_pdf"] = pdf_writer(printed, out / WORK_ORDERS_PDF,
                                               title=f"{site.name}: field checks",
                                               footer=site.name)
-        run.notes += work_order_lines(sheets.values())
+        run.notes += work_order_lines(sheets.values()) if sheets else []
+    run.notes += rtu_work_lines(rtu_work)
     (out / SUMMARY_FILE).write_text("\n".join(summary_lines(run, site)) + "\n", encoding="utf-8")
     files["summary"] = out / SUMMARY_FILE
     (out / SUMMARY_JSON).write_text(json.dumps(_json_summary(run), indent=2, default=str),
@@ -169,6 +184,16 @@ def work_order_lines(sheets: Iterable[Sheet]) -> list[str]:
     total = sum(len(s.tags) for s in sheets)
     return [f"work orders: {total} point{'s' if total != 1 else ''} to check at "
             f"{len(sheets)} substation{'s' if len(sheets) != 1 else ''} ({per})"]
+
+
+def rtu_work_lines(rtu_work: pd.DataFrame) -> list[str]:
+    """What the RTU/SCADA engineer is asked to check ([] when nothing)."""
+    if rtu_work.empty:
+        return []
+    names = ", ".join(sorted(set(rtu_work["tag"].astype(str))))
+    n = len(rtu_work)
+    return [f"RTU checks: {n} RTU clock{'s' if n != 1 else ''} to check ({names}), on their "
+            "own sheet for the RTU/SCADA engineer"]
 
 
 def _json_summary(run: ReviewRun) -> dict:
@@ -214,13 +239,17 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     if run.corrections:
         lines.append(f"software corrections applied: {len(run.corrections)} "
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")
-    n_points = run.findings["tag"].nunique() if len(run.findings) else 0
+    about_rtu = run.findings["finding"].isin(RTU_KINDS)
+    n_points = run.findings.loc[~about_rtu, "tag"].nunique() if len(run.findings) else 0
+    n_rtus = run.findings.loc[about_rtu, "tag"].nunique() if len(run.findings) else 0
     lines.append(f"findings: {len(run.findings)} on {n_points} point"
-                 f"{'s' if n_points != 1 else ''}")
+                 f"{'s' if n_points != 1 else ''}"
+                 + (f" and {n_rtus} RTU{'s' if n_rtus != 1 else ''}" if n_rtus else ""))
     counts = run.findings.groupby("finding")["tag"].nunique().sort_values(ascending=False,
                                                                           kind="stable")
     for kind, n in counts.items():
-        lines.append(f"  {kind}: {n} point{'s' if n != 1 else ''}")
+        what = "RTU" if kind in RTU_KINDS else "point"
+        lines.append(f"  {kind}: {n} {what}{'s' if n != 1 else ''}")
     for row in run.findings.sort_values(["substation", "device", "tag"]).itertuples():
         lines.append(f"  [{row.state}] {row.tag} ({row.substation}) {row.finding}: "
                      f"{row.evidence}")

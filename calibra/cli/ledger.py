@@ -14,7 +14,7 @@ import pandas as pd
 
 from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, UsageError, site_timezone
 from calibra.ledger import Ledger, LedgerError
-from calibra.ledger.software_fixes import apply_fixes, plan_fixes
+from calibra.ledger.software_fixes import ClockNotCorrectable, apply_fixes, plan_fixes
 from calibra.ledger.states import OPEN_STATES, FindingState
 from calibra.model.times import for_people, read_local
 
@@ -101,6 +101,10 @@ def _correct(ledger: Ledger, rows: pd.DataFrame, args, tz: str) -> list[str]:
     valid_from = read_local(args.valid_from, tz, "--from") if args.valid_from else None
     try:
         plan = plan_fixes(rows, args.factor, args.offset)
+    except ClockNotCorrectable as exc:
+        raise UsageError(f"{exc.tag}: an RTU clock is set right in the RTU, not in software; "
+                         f"then mark it: calibra ledger SITE repaired {exc.tag} --at TIME "
+                         "(the next review verifies it)") from None
     except LedgerError as exc:
         raise UsageError(str(exc).replace("factor; give one", "factor; give --factor")
                          .replace("offset; give one", "offset; give --offset")) from None

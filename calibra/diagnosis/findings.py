@@ -23,6 +23,9 @@ class FindingKind(StrEnum):
     NOISY = "noisy"
     MISMAPPED = "mismapped"
     UNVERIFIABLE = "unverifiable"
+    #: All points of one RTU stamped late (or early) by one constant time: a finding about
+    #: the RTU, not a meter (``tag`` and ``rtu`` name the RTU, ``offset`` is in seconds).
+    TIME_OFFSET = "time_offset"
 
 
 #: Every finding kind, in the order the findings file and the lists use.
@@ -31,6 +34,9 @@ FINDING_KINDS = tuple(FindingKind)
 CORRECTABLE_KINDS = (FindingKind.REVERSED, FindingKind.SCALE, FindingKind.OFFSET)
 #: Kinds with a fitted factor: measured ≈ factor × implied.
 FACTOR_KINDS = (FindingKind.REVERSED, FindingKind.SCALE)
+#: Kinds about an RTU rather than one meter: for the RTU/SCADA engineer, not the field crew's
+#: checklist, and never corrected in software.
+RTU_KINDS = (FindingKind.TIME_OFFSET,)
 
 
 class DiagnosisKind(StrEnum):

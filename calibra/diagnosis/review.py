@@ -22,8 +22,15 @@ from calibra.diagnosis.mismap import (
 )
 from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
 from calibra.diagnosis.review_summary import ReviewSummary
+from calibra.diagnosis.rtu_clock import (
+    ClockSettings,
+    RtuClock,
+    clock_corrected_period,
+    clock_findings,
+    find_rtu_clocks,
+)
 from calibra.estimation.block_parts import observability_counts
-from calibra.estimation.engine import PeriodEngine
+from calibra.estimation.engine import LocalEngine, PeriodEngine
 from calibra.estimation.period import PreparedPeriod, prepare_period
 from calibra.estimation.runtime import fork_map
 from calibra.model.points import analog_points, class_limit, default_sigma, stated_reporting
@@ -38,6 +45,7 @@ class ReviewSettings:
 
     evidence: EvidenceSettings = field(default_factory=EvidenceSettings)
     classify: ClassifySettings = field(default_factory=ClassifySettings)
+    clock: ClockSettings = field(default_factory=ClockSettings)
     #: Full-resolution passes: points found faulty but still in the estimate are set aside and
     #: the period estimated again, until nothing new is set aside.
     max_passes: int = 3
@@ -52,6 +60,9 @@ class ReviewResult:
     diagnoses: dict[str, PointDiagnosis]
     findings: list
     summary: ReviewSummary
+    #: RTUs whose clock was found wrong; their points were judged with the readings moved
+    #: back by the offset (``evidence`` holds those moved readings).
+    clocks: list[RtuClock] = field(default_factory=list)
 
 
 def period_days(ev: WeekEvidence) -> np.ndarray:
@@ -229,18 +240,12 @@ def review_site(
     where the estimates run, see :mod:`calibra.estimation.engine`)."""
     st = settings or ReviewSettings()
     period = prepare_period(site) if period is None else period
-    ev = gather_evidence(period, st.evidence, progress, engine=engine)
-    diagnoses = _classify_all(site, ev, st.classify)
-    for _ in range(st.max_passes - 1):
-        faulty = np.array([diagnoses[str(t)].kind not in NO_FAULT
-                           for t in ev.model.tags])
-        extra = faulty & ~ev.set_aside
-        if not extra.any():
-            break
-        ev = gather_evidence(period, st.evidence, progress,
-                             initial_set_aside=ev.set_aside | extra, screen=False,
-                             engine=engine)
-        diagnoses = _classify_all(site, ev, st.classify)
+    ev, diagnoses = _judge(period, st, progress, engine)
+    clocks = find_rtu_clocks(period, ev, diagnoses, st.clock, st.evidence, progress, engine)
+    if clocks:
+        # The moved readings exist only here: a cluster's workers read the files as they are.
+        period = clock_corrected_period(period, clocks)
+        ev, diagnoses = _judge(period, st, progress, LocalEngine())
     _propagate_device(site, ev, diagnoses)
     mismaps = _mismapped(site, ev, diagnoses)
     unverifiable = {}
@@ -260,6 +265,7 @@ def review_site(
                    "uncertain)")
             unverifiable[tag] = {"suggestion": "", "reason": why}
     findings = build_findings(site, ev, diagnoses, mismaps, unverifiable)
+    findings += clock_findings(clocks)
     outcomes = ev.period.outcomes
     conv = outcomes["converged"].astype(bool)
     summary = ReviewSummary(
@@ -274,6 +280,27 @@ def review_site(
         findings=len(findings),
         status_conflicts=[c.describe(site.timezone) for c in ev.status_conflicts],
         rounds=ev.rounds,
+        rtu_clocks=[c.rtu for c in clocks],
     )
     return ReviewResult(site.name, period.index[0], period.index[-1], ev, diagnoses, findings,
-                        summary)
+                        summary, clocks)
+
+
+def _judge(period: PreparedPeriod, st: ReviewSettings, progress: Progress | None,
+           engine: PeriodEngine | None) -> tuple[WeekEvidence, dict[str, PointDiagnosis]]:
+    """The evidence and every point's classification, with the full-resolution passes: points
+    found faulty but still in the estimate are set aside and the period estimated again."""
+    site = period.site
+    ev = gather_evidence(period, st.evidence, progress, engine=engine)
+    diagnoses = _classify_all(site, ev, st.classify)
+    for _ in range(st.max_passes - 1):
+        faulty = np.array([diagnoses[str(t)].kind not in NO_FAULT
+                           for t in ev.model.tags])
+        extra = faulty & ~ev.set_aside
+        if not extra.any():
+            break
+        ev = gather_evidence(period, st.evidence, progress,
+                             initial_set_aside=ev.set_aside | extra, screen=False,
+                             engine=engine)
+        diagnoses = _classify_all(site, ev, st.classify)
+    return ev, diagnoses

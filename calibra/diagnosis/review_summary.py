@@ -26,6 +26,8 @@ class ReviewSummary:
     status_conflicts: list[str] = field(default_factory=list)  #: status points contradicted
     #: Screening rounds: round, snapshots, chi2_failed, suspects and the tags set aside.
     rounds: list[dict] = field(default_factory=list)
+    #: RTUs whose clock the review found wrong (their points judged with moved readings).
+    rtu_clocks: list[str] = field(default_factory=list)
 
     def as_dict(self, rounds: bool = True) -> dict:
         """The fields as a plain dict in field order (without the rounds when ``rounds`` is

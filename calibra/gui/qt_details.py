@@ -77,6 +77,34 @@ def point_html(site: Site, tag: str, finding: pd.Series | None, timezone: str) -
     return "".join(parts)
 
 
+def rtu_html(site: Site, rtu: str, finding: pd.Series) -> str:
+    """A finding about an RTU rather than a point (its clock): the finding, its evidence and
+    the RTU's points from the point list, as HTML."""
+    state = str(finding.get("state", ""))
+    colour = STATE_COLOURS.get(state, "#5a6169")
+    offset = finding.get("offset")
+    values = [("Finding", _cell(finding.get("finding"))),
+              ("Confidence", _cell(finding.get("confidence"))),
+              ("Clock offset (s, late positive)", _cell(offset)),
+              ("Substation", _cell(finding.get("substation"))),
+              ("Likely cause", _cell(finding.get("cause"))),
+              ("Suggested check", _cell(finding.get("action")))]
+    pts = site.points
+    mine = pts[pts["rtu"].astype(str) == rtu] if "rtu" in pts else pts.iloc[:0]
+    rows = [(str(tag), f"{p['quantity']} · {p['element']}" + (f" · {p['end']}" if
+                                                               _cell(p.get("end")) else ""))
+            for tag, p in mine.iterrows()]
+    return "".join([
+        f"<h3 style='margin:2px 0'>RTU {escape(rtu)}</h3>",
+        f"<p style='margin:2px 0'><b>{escape(str(finding['finding']))}</b> · "
+        f"<span style='color:{colour}'>{escape(state)}</span></p>",
+        f"<p style='margin:6px 0'>{escape(str(finding.get('evidence', '')))}</p>",
+        f"<table>{_rows(values)}</table>",
+        f"<p style='margin:8px 0 2px 0'><b>Points of the RTU ({len(rows)})</b></p>",
+        f"<table>{_rows(rows)}</table>",
+    ])
+
+
 def _payload_text(payload: dict, timezone: str) -> str:
     bits = []
     for key in ("factor", "offset", "reason", "note"):
@@ -156,6 +184,10 @@ class DetailTabs(QTabWidget):
         self.addTab(runs_page, "Reviews")
 
     def show_point(self, site: Site | None, tag: str | None, finding: pd.Series | None) -> None:
+        if site is not None and tag is not None and tag not in site.points.index \
+                and finding is not None:
+            self.point.setHtml(rtu_html(site, tag, finding))
+            return
         if site is None or tag is None or tag not in site.points.index:
             self.point.setHtml("<p>Select a finding in the list.</p>")
             return

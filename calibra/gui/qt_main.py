@@ -373,6 +373,15 @@ class MainWindow(QMainWindow):
             self.diagram.show_point(None, set())
             return
         row = state.finding_row()
+        if tag not in site.points.index:
+            # A finding about an RTU (its clock): no week of its own; its points are listed.
+            what = "" if row is None else f" — {row['finding']}, {row['state']}"
+            self.plots.show_trace(None, f"{tag}{what} — a finding about the RTU, not a point: "
+                                        "select one of its points to see its week")
+            self.details.show_point(site, tag, row)
+            self.details.show_history(state.history(), site.timezone)
+            self.diagram.show_point(None, state.view.flagged_tags())
+            return
         pt = site.points.loc[tag]
         place = end_place(site.network.buses, site.network.branches, str(pt["element"]),
                           str(pt.get("end", "") or ""))

@@ -28,7 +28,15 @@ from PySide6.QtWidgets import (
 
 from calibra.gui.qt_pdf import paint_sheets, sheets_to_pdf
 from calibra.model.site import Site
-from calibra.reports import Sheet, needing_field_work, work_order_sheets, write_work_orders_csv
+from calibra.reports import (
+    Sheet,
+    needing_field_work,
+    needing_rtu_work,
+    rtu_sheet,
+    work_order_sheets,
+    write_work_orders_csv,
+)
+from calibra.reports.rtu_sheet import RTU_SHEET_TITLE
 
 
 class WorkOrdersDialog(QDialog):
@@ -43,14 +51,21 @@ class WorkOrdersDialog(QDialog):
         self.site = site
         self.findings = needing_field_work(findings)
         self.sheets: dict[str, Sheet] = {}
+        now = pd.Timestamp.now(tz=site.timezone)
         if len(self.findings):
-            self.sheets = work_order_sheets(site.name, self.findings, site.points,
-                                            pd.Timestamp.now(tz=site.timezone), period=period)
+            self.sheets = work_order_sheets(site.name, self.findings, site.points, now,
+                                            period=period)
+        rtu_work = needing_rtu_work(findings)
+        if len(rtu_work):
+            # The RTU/SCADA engineer's sheet (RTU clocks), after the crews' substations.
+            self.sheets[RTU_SHEET_TITLE] = rtu_sheet(site.name, rtu_work, site.points, now,
+                                                     period)
         self.pages = {name: sheet.whole_html() for name, sheet in self.sheets.items()}
         self.substations = QListWidget(self)
         for sub, sheet in self.sheets.items():
             n = len(sheet.tags)
-            item = QListWidgetItem(f"{sub}  ({n} point{'s' if n != 1 else ''})")
+            what = "RTU" if sub == RTU_SHEET_TITLE else "point"
+            item = QListWidgetItem(f"{sub}  ({n} {what}{'s' if n != 1 else ''})")
             item.setData(Qt.UserRole, sub)
             item.setFlags(item.flags() | Qt.ItemIsUserCheckable)
             item.setCheckState(Qt.Checked)

@@ -19,7 +19,7 @@ from pathlib import Path
 import pandas as pd
 
 import calibra
-from calibra.diagnosis.findings import EXTRA_COLUMNS, FINDING_COLUMNS, Finding
+from calibra.diagnosis.findings import EXTRA_COLUMNS, FINDING_COLUMNS, RTU_KINDS, Finding
 from calibra.ledger import _json, _rows
 from calibra.ledger._time import from_text, now_utc, to_text, to_utc
 from calibra.ledger.corrections import Correction
@@ -429,7 +429,7 @@ class Ledger:
         start = to_text(valid_from, "valid_from")
         correction_kind = CORRECTION_ACTIONS[kind]
         with self._transaction() as conn:
-            self._require_tag(conn, tag)
+            self._require_tag(conn, tag, correction=True)
             clash = conn.execute("SELECT source_action FROM corrections WHERE tag = ? AND "
                                  "kind = ? AND valid_until IS NULL",
                                  (tag, correction_kind)).fetchone()
@@ -482,13 +482,15 @@ class Ledger:
             raise LedgerError(f"cannot {kind} {finding_id}: it is {row['state']}")
         return row["tag"]
 
-    def _require_tag(self, conn, tag: str) -> list[str]:
-        """States of the tag's findings; a tag without findings is refused (likely a typo)."""
-        states = [r["state"] for r in conn.execute("SELECT state FROM findings WHERE tag = ?",
-                                                   (tag,))]
-        if not states:
+    def _require_tag(self, conn, tag: str, correction: bool = False) -> list[str]:
+        """States of the tag's findings; a tag without findings is refused (likely a typo), and
+        so is a ``correction`` of an RTU's clock (set right in the RTU, then marked repaired)."""
+        rows = conn.execute("SELECT state, kind FROM findings WHERE tag = ?", (tag,)).fetchall()
+        if not rows:
             raise LedgerError(f"tag {tag!r} has no finding in {self.path}")
-        return states
+        if correction and all(r["kind"] in RTU_KINDS for r in rows):
+            raise LedgerError(f"{tag}: an RTU clock is set right in the RTU, not in software")
+        return [r["state"] for r in rows]
 
     def _resolve(self, conn, finding_id_or_tag: str) -> tuple[str, str | None]:
         row = conn.execute("SELECT tag FROM findings WHERE finding_id = ?",

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import pandas as pd
 
-from calibra.diagnosis.findings import CORRECTABLE_KINDS, FACTOR_KINDS, FindingKind
+from calibra.diagnosis.findings import CORRECTABLE_KINDS, FACTOR_KINDS, RTU_KINDS, FindingKind
 from calibra.ledger.ledger import Ledger
 from calibra.ledger.schema import LedgerError
 from calibra.model.times import TimeLike
@@ -37,6 +37,15 @@ class SoftwareFix:
         if self.kind in FACTOR_KINDS:
             return f"{self.tag}: corrected in software (measured = {self.value:g} × true)"
         return f"{self.tag}: corrected in software (offset {self.value:g} removed)"
+
+
+class ClockNotCorrectable(LedgerError):
+    """An RTU clock finding: the clock is set right in the RTU, then marked repaired."""
+
+    def __init__(self, tag: str):
+        super().__init__(f"{tag}: an RTU clock is set right in the RTU, not in software; then "
+                         "mark it repaired (the next review verifies it)")
+        self.tag = tag
 
 
 @dataclass(frozen=True)
@@ -62,6 +71,8 @@ def plan_fixes(rows: pd.DataFrame, factor: float | None = None,
     fixes, left = [], []
     for tag, group in rows.groupby("tag", sort=True):
         kinds = [FindingKind(k) for k in group["finding"] if k in CORRECTABLE_KINDS]
+        if set(group["finding"]) <= set(RTU_KINDS):
+            raise ClockNotCorrectable(str(tag))
         if not kinds:
             left.append(_not_correctable(str(tag), group["finding"]))
             continue

@@ -16,6 +16,12 @@ from calibra.reports.paths import (
     unique_file_names,
     write_work_orders_html,
 )
+from calibra.reports.rtu_sheet import (
+    RTU_WORK_ORDER_COLUMNS,
+    rtu_sheet,
+    rtu_work_order_rows,
+    write_rtu_work_orders_csv,
+)
 from calibra.reports.safety import SAFETY_CAUTIONS, Caution
 from calibra.reports.sheet_pages import DeviceSection, Sheet
 from calibra.reports.spreadsheet import spreadsheet_cell, write_safe_csv
@@ -24,14 +30,16 @@ from calibra.reports.work_orders import (
     CheckGroup,
     check_groups,
     needing_field_work,
+    needing_rtu_work,
     work_order_rows,
     write_work_orders_csv,
 )
 
 __all__ = [
-    "FINDING_LABELS", "SAFETY_CAUTIONS", "WORK_ORDER_COLUMNS", "Caution", "CheckGroup",
-    "DeviceSection", "Sheet", "work_order_sheet", "work_order_sheets",
-    "check_groups", "checklist_items", "inside", "needing_field_work", "safe_file_stem",
+    "FINDING_LABELS", "RTU_WORK_ORDER_COLUMNS", "SAFETY_CAUTIONS", "WORK_ORDER_COLUMNS",
+    "Caution", "CheckGroup", "DeviceSection", "Sheet", "work_order_sheet", "work_order_sheets",
+    "check_groups", "checklist_items", "inside", "needing_field_work", "needing_rtu_work",
+    "rtu_sheet", "rtu_work_order_rows", "write_rtu_work_orders_csv", "safe_file_stem",
     "spreadsheet_cell", "unique_file_names", "work_order_html", "work_order_pages",
     "work_order_rows", "write_safe_csv", "write_work_orders_csv", "write_work_orders_html",
 ]

@@ -29,6 +29,7 @@ FINDING_LABELS = {
     FindingKind.NOISY: "Erratic reading",
     FindingKind.MISMAPPED: "Reads another quantity",
     FindingKind.UNVERIFIABLE: "Cannot be checked remotely",
+    FindingKind.TIME_OFFSET: "RTU clock offset",
 }
 
 _SQRT3 = math.sqrt(3.0)
@@ -204,8 +205,28 @@ def _unverifiable(row: Mapping) -> list[str]:
             record]
 
 
+def _time_offset(row: Mapping) -> list[str]:
+    """Checks of an RTU whose points all read late or early (for the RTU/SCADA engineer)."""
+    rtu = text(row, "rtu") or text(row, "tag") or "the RTU"
+    offset = number(row, "offset")
+    how = ""
+    if offset is not None:
+        how = f" (the review puts it {abs(offset):,.0f} s {'late' if offset > 0 else 'early'})"
+    return [
+        f"Clock of {rtu}: compare it with the station's time reference (satellite clock, "
+        f"IRIG-B, NTP or PTP source) and write down the difference as found{how}.",
+        f"Time synchronisation of {rtu}: check the configured source, the time zone and the "
+        "daylight-saving rule, and that the synchronisation is not failing.",
+        "Time stamps: check whether the RTU stamps its values at the source or the master "
+        "station stamps them on receipt (a polling cycle or a queue then delays them).",
+        "After the clock is set right, record the time in the ledger as the repair, so the "
+        "next review checks the data after it.",
+    ]
+
+
 _CHECKS: dict[str, Callable[[Mapping], list[str]]] = {
     FindingKind.REVERSED: _reversed, FindingKind.SCALE: _scale, FindingKind.OFFSET: _offset,
     FindingKind.DRIFT: _drift, FindingKind.STUCK: _stuck, FindingKind.NOISY: _noisy,
     FindingKind.MISMAPPED: _mismapped, FindingKind.UNVERIFIABLE: _unverifiable,
+    FindingKind.TIME_OFFSET: _time_offset,
 }

@@ -45,11 +45,7 @@ def work_order_sheet(site_name: str, substation: str, findings: pd.DataFrame,
     tags = list(dict.fromkeys(t for g in groups for t in g.tags))
     devices = [DeviceSection(_device_title(rtu, device), [_unit(g) for g in device_groups])
                for (rtu, device), device_groups in groupby(groups, key=lambda g: (g.rtu, g.device))]
-    head = "".join([
-        "<html><head><meta charset=\"utf-8\"/>",
-        f"<title>{escape(f'{site_name} — {substation}')}</title>",
-        f"<style>{_STYLE}</style></head><body>",
-    ])
+    head = sheet_head(f"{site_name} — {substation}")
     opening = [f"<h1>Field checklist: {escape(str(substation))}</h1>"
                + _header(site_name, substation, generated_at, period, len(tags), len(devices)),
                _safety()]
@@ -57,6 +53,12 @@ def work_order_sheet(site_name: str, substation: str, findings: pd.DataFrame,
                + "</table><p>Work done by (name, signature): ______________________________ "
                "Date: ______________</p>")
     return Sheet(str(substation), head, opening, devices, closing, tags)
+
+
+def sheet_head(title: str) -> str:
+    """The document head of a sheet (its title escaped, the sheets' style) and ``<body>``."""
+    return "".join(["<html><head><meta charset=\"utf-8\"/>", f"<title>{escape(title)}</title>",
+                    f"<style>{_STYLE}</style></head><body>"])
 
 
 def work_order_html(site_name: str, substation: str, findings: pd.DataFrame,
@@ -84,7 +86,8 @@ def work_order_pages(site_name: str, findings: pd.DataFrame, points: pd.DataFram
             work_order_sheets(site_name, findings, points, generated_at, period).items()}
 
 
-def _when(value: TimeLike | None, with_time: bool = True) -> str:
+def when(value: TimeLike | None, with_time: bool = True) -> str:
+    """A time as the sheets print it (``2027-03-01 08:00 CET``), or "not given"."""
     if value is None:
         return "not given"
     ts = pd.Timestamp(value)
@@ -98,9 +101,9 @@ def _header(site_name: str, substation: str, generated_at: TimeLike,
         span = "not given"
     else:
         start, end = period
-        span = f"{_when(start)} to {_when(end)}"
+        span = f"{when(start)} to {when(end)}"
     cells = [("Site", site_name), ("Substation", substation), ("Review period", span),
-             ("Prepared", _when(generated_at)),
+             ("Prepared", when(generated_at)),
              ("Points to check", f"{n_points} on {n_devices} device"
                                  f"{'s' if n_devices != 1 else ''}")]
     rows = "".join(f"<tr><td><b>{escape(k)}</b></td><td>{escape(str(v))}</td></tr>"

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from calibra.diagnosis.findings import RTU_KINDS
 from calibra.ledger.states import OPEN_STATES
 from calibra.reports._values import number, text
 from calibra.reports.checklist import FINDING_LABELS, checklist_items
@@ -49,12 +50,23 @@ class CheckGroup:
         return FINDING_LABELS.get(self.finding, self.finding)
 
 
-def needing_field_work(findings: pd.DataFrame) -> pd.DataFrame:
-    """The findings a crew still has to look at: all of them, or, when the frame carries the
-    ledger's ``state``, those new, confirmed or only corrected in software."""
+def _open(findings: pd.DataFrame) -> pd.DataFrame:
     if "state" not in findings.columns:
         return findings
     return findings[findings["state"].isin(OPEN_STATES)]
+
+
+def needing_field_work(findings: pd.DataFrame) -> pd.DataFrame:
+    """The meter findings a crew still has to look at: all of them, or, when the frame carries
+    the ledger's ``state``, those new, confirmed or only corrected in software. Findings about
+    an RTU (its clock) are for the RTU/SCADA engineer: :func:`needing_rtu_work`."""
+    about_rtu = findings["finding"].isin(RTU_KINDS)
+    return _open(findings[~about_rtu] if about_rtu.any() else findings)
+
+
+def needing_rtu_work(findings: pd.DataFrame) -> pd.DataFrame:
+    """The open findings about an RTU rather than a meter, for the RTU/SCADA engineer."""
+    return _open(findings[findings["finding"].isin(RTU_KINDS)])
 
 
 def check_groups(findings: pd.DataFrame, points: pd.DataFrame | None) -> list[CheckGroup]:

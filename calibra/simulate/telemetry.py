@@ -3,9 +3,11 @@
 Pipeline per snapshot: loads and generation → Newton power flow → noise-free point values →
 transducer noise (σ from the accuracy class, :func:`calibra.model.points.default_sigma`) →
 meter faults → historian rounding → missing values (scattered values, short gaps, one RTU
-communication outage). Independent random streams drive the operating point, the noise, the
-gaps and the faults, so a run with ``faults=False`` differs from the faulted run with the same
-seed only in the faulted columns.
+communication outage). An RTU whose clock is wrong (``rtu_lag_minutes``) reports its analog
+points' noise-free values from a constant time earlier (late) or later (early), interpolated
+linearly between the simulated snapshots, before the noise. Independent random streams drive
+the operating point, the noise, the gaps, the faults and the clock error, so a run with
+``faults=False`` differs from the faulted run with the same seed only in the faulted columns.
 """
 
 from __future__ import annotations
@@ -16,6 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from calibra.diagnosis.findings import FindingKind
 from calibra.model.points import ANALOG_QUANTITIES, default_sigma
 from calibra.model.site import Site
 from calibra.simulate.case import GridCase
@@ -46,6 +49,10 @@ class TelemetryOptions:
     held until then. ``state_storage``: the site's point list states the deadband and the
     resolution the readings were stored with (:func:`stated_storage`); otherwise it leaves
     them to be inferred from the data.
+    ``rtu_lag_minutes``: the clock error of one RTU (0: none; positive: late, its values at t
+    are the true values at t − lag), on ``rtu_lag`` (default: a random RTU with at least
+    ``MIN_LAG_POINTS`` analog points); recorded as a truth row of kind ``time_offset`` whose
+    tag is the RTU and whose offset is the lag in seconds.
     """
 
     missing_rate: float = 0.002
@@ -55,6 +62,12 @@ class TelemetryOptions:
     resolution_bits: int = 0
     deadband_pct: float = 0.0
     state_storage: bool = False
+    rtu_lag_minutes: float = 0.0
+    rtu_lag: str | None = None
+
+
+#: Fewest analog points of an RTU drawn at random for a clock error.
+MIN_LAG_POINTS = 4
 
 
 @dataclass
@@ -71,6 +84,8 @@ class SimulationResult:
     redundancy: RedundancyReport
     rtu_outage: tuple[str, pd.Timestamp, pd.Timestamp] | None
     iterations: np.ndarray  # Newton iterations per snapshot
+    #: The RTU whose clock is wrong and its lag in seconds (late positive), or None.
+    rtu_lag: tuple[str, float] | None = None
 
 
 def snapshot_index(start, periods: int, timezone: str, freq: str = "1min") -> pd.DatetimeIndex:
@@ -182,6 +197,37 @@ def missing_mask(
     return mask, outage
 
 
+def lagged_values(values: np.ndarray, index: pd.DatetimeIndex, lag_seconds: float
+                  ) -> np.ndarray:
+    """Each column as a clock ``lag_seconds`` late would stamp it: the value at t is the
+    value at t − lag, linear between snapshots, the first (last) value held beyond the ends."""
+    t = np.asarray((index - index[0]) / pd.Timedelta(seconds=1), float)
+    return np.column_stack([np.interp(t - lag_seconds, t, values[:, j])
+                            for j in range(values.shape[1])]) if values.size else values
+
+
+def choose_lagging_rtu(points: pd.DataFrame, opts: TelemetryOptions,
+                       rng: np.random.Generator) -> tuple[str, np.ndarray] | None:
+    """The RTU whose clock is wrong and which columns are its analog points (None: no lag)."""
+    if opts.rtu_lag_minutes == 0:
+        return None
+    if "rtu" not in points:
+        raise ValueError("an RTU clock error needs the point list's rtu column")
+    analog = points["quantity"].isin(ANALOG_QUANTITIES).to_numpy()
+    rtu_of = points["rtu"].astype(str).to_numpy()
+    if opts.rtu_lag is not None:
+        if opts.rtu_lag not in set(rtu_of):
+            raise ValueError(f"RTU {opts.rtu_lag!r} for the clock error is not in the point list")
+        rtu = opts.rtu_lag
+    else:
+        counts = pd.Series(rtu_of[analog]).value_counts()
+        eligible = sorted(counts.index[counts >= MIN_LAG_POINTS])
+        if not eligible:
+            raise ValueError(f"no RTU has {MIN_LAG_POINTS} analog points for a clock error")
+        rtu = eligible[int(rng.integers(len(eligible)))]
+    return rtu, np.flatnonzero(analog & (rtu_of == rtu))
+
+
 def _minutes(index: pd.DatetimeIndex) -> float:
     if len(index) < 2:
         return 1.0
@@ -213,8 +259,10 @@ def simulate_site(
     """
     opts = options or TelemetryOptions()
     net = case.network
-    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(5)]
-    rng_ops, rng_outage, rng_noise, rng_missing, rng_faults = streams
+    # A sixth stream for the clock error: the first five are those of spawn(5), so the data
+    # without a clock error are what they always were.
+    streams = [np.random.default_rng(s) for s in np.random.SeedSequence(seed).spawn(6)]
+    rng_ops, rng_outage, rng_noise, rng_missing, rng_faults, rng_clock = streams
     index = snapshot_index(start, periods, timezone, freq)
     if isinstance(outages, str):
         if outages != "auto":
@@ -233,7 +281,14 @@ def simulate_site(
             f"power flow did not converge in {len(bad)} snapshot(s), first at {index[bad[0]]}"
         )
     true = point_values_series(net, points, pf.vm, pf.va_rad, ops.in_service)
-    measured = pd.DataFrame(add_noise(true, points, rng_noise), index=index, columns=points.index)
+    lagging = choose_lagging_rtu(points, opts, rng_clock)
+    stamped = true
+    if lagging is not None:
+        stamped = true.copy()
+        stamped[:, lagging[1]] = lagged_values(true[:, lagging[1]], index,
+                                               60.0 * opts.rtu_lag_minutes)
+    measured = pd.DataFrame(add_noise(stamped, points, rng_noise), index=index,
+                            columns=points.index)
     true_df = pd.DataFrame(true, index=index, columns=points.index)
 
     normal = np.flatnonzero((ops.in_service == net.default_in_service()).all(axis=1))
@@ -251,6 +306,10 @@ def simulate_site(
         measured, truth = apply_faults(measured, points, specs, rng_faults)
     else:
         truth = pd.DataFrame(columns=TRUTH_COLUMNS)
+    if lagging is not None:
+        clock = clock_truth(lagging[0], opts.rtu_lag_minutes, index,
+                            int(truth["fault"].max()) if len(truth) else 0)
+        truth = pd.concat([truth, clock], ignore_index=True) if len(truth) else clock
     step = historian_resolution(points).to_numpy(float)
     values = quantize(measured.to_numpy(float), points, opts.resolution_bits)
     values = hold_within_deadband(values, points, opts.deadband_pct)
@@ -273,4 +332,16 @@ def simulate_site(
         redundancy=report,
         rtu_outage=rtu_out,
         iterations=pf.iterations,
+        rtu_lag=None if lagging is None else (lagging[0], 60.0 * opts.rtu_lag_minutes),
     )
+
+
+def clock_truth(rtu: str, lag_minutes: float, index: pd.DatetimeIndex, after: int
+                ) -> pd.DataFrame:
+    """The truth row of an RTU clock error: kind ``time_offset``, the RTU as tag, the lag in
+    seconds as offset (numbered after the ``after`` meter faults' rows)."""
+    row = {c: "" for c in TRUTH_COLUMNS}
+    row.update(fault=after + 1, tag=rtu, device="", kind=FindingKind.TIME_OFFSET,
+               factor=1.0, offset=60.0 * lag_minutes, drift_per_day=0.0, onset=index[0],
+               noise_factor=1.0, detail=f"RTU clock {lag_minutes:+g} min")
+    return pd.DataFrame([row], columns=TRUTH_COLUMNS)

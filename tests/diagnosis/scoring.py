@@ -17,6 +17,8 @@ class Score:
     factor_errors: dict[str, float] = field(default_factory=dict)
     onset_errors_h: dict[str, float] = field(default_factory=dict)
     undetectable: list[str] = field(default_factory=list)
+    #: RTU clock errors found: RTU → |estimated − seeded offset| in seconds.
+    clock_errors_s: dict[str, float] = field(default_factory=dict)
 
     def line(self) -> str:
         return (f"found {len(self.found)}, missed {len(self.missed)}, wrong kind "
@@ -44,6 +46,8 @@ def score(findings: pd.DataFrame, truth: pd.DataFrame, detectable: set[str] | No
         s.found.append(r.tag)
         if r.kind in ("reversed", "scale") and np.isfinite(f.factor):
             s.factor_errors[r.tag] = abs(f.factor / r.factor - 1)
+        if r.kind == "time_offset":
+            s.clock_errors_s[r.tag] = abs(float(f.offset) - float(r.offset))
         if r.kind in ("drift", "stuck") and pd.notna(f.onset):
             onset = pd.Timestamp(r.onset)
             onset = onset.tz_localize("UTC") if onset.tzinfo is None else onset

@@ -34,6 +34,7 @@ def test_every_seeded_fault_found_with_its_kind(sample_review):
     s = score(findings_table(result.findings), truth)
     assert s.missed == [] and s.wrong_kind == [], s.line()
     assert s.false_alarms == [], s.false_alarms
+    assert result.clocks == [], "the sample's RTUs keep time: no time_offset finding"
 
 
 def test_factors_and_onsets(sample_review):

@@ -27,9 +27,10 @@ MISMAPPED_TAGS = ("NRC.110.MRG1.MW", "NRC.110.MRG1.MVAR")
 ORIGINAL_PERIODS = 720  #: twelve hours of one-minute snapshots: a review takes a few seconds
 
 
-def _small_site(folder: Path, mismapped: bool = False) -> None:
+def _small_site(folder: Path, mismapped: bool = False, options=None) -> None:
     """The invented sample grid for twelve hours with one seeded fault: a reversed CT, or with
-    ``mismapped`` the P and Q inputs of device NRC.110.MRG1 swapped."""
+    ``mismapped`` the P and Q inputs of device NRC.110.MRG1 swapped (``options``: the
+    simulator's telemetry options, e.g. an RTU clock error)."""
     from calibra.simulate import sample_site as ss
     from calibra.simulate.telemetry import simulate_site
     from calibra.simulate.writer import write_site
@@ -42,7 +43,7 @@ def _small_site(folder: Path, mismapped: bool = False) -> None:
     result = simulate_site(case, points, start=ss.START_LOCAL, periods=ORIGINAL_PERIODS,
                            timezone=ss.TIMEZONE, seed=7, faults=faults, outages=None,
                            name="Small test grid", mix=ss._mix(case.network),
-                           wind_mw=ss.WIND_MW)
+                           wind_mw=ss.WIND_MW, options=options)
     write_site(result.site, folder)
 
 

@@ -1,0 +1,169 @@
+"""The time shift that best aligns a group of points' readings with their implied values.
+
+A clock that runs ``τ`` late stamps at ``t`` what was true at ``t − τ``: the reading z(t)
+equals the implied value y(t − τ), so z(t + τ) − y(t) is only noise. For every whole number
+``s`` of snapshot intervals in ±``max_steps`` the readings are moved by ``s`` rows and the
+robust misfit J(s) = Σ ρ((z(t + s) − y(t) − cᵢ) / σᵢ) summed (Huber ρ, cᵢ each point's median
+difference in the unshifted week, so a meter offset is not a clock); the whole-step minimum
+is refined by the parabola through it and its neighbours. Whole steps only are compared
+because readings interpolated between two noisy snapshots are less noisy than real ones,
+which would pull the minimum to half steps. The uncertainty is the delete-one-chunk
+jackknife over time chunks (residuals are correlated in time); the significance is the chunk
+t statistic of J(0) − J(ŝ); each point's own chunk t statistic says whether it supports the
+shift. The tilt J(−1) − J(+1) says which way the readings lean even when the shift is below
+half an interval.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+#: Huber's constant, in units of the point's expected scatter (common practice, no source).
+HUBER = 3.0
+
+
+@dataclass
+class ShiftFit:
+    """The best shift of a group of points, in snapshot intervals (late positive)."""
+
+    steps: float  #: refined shift
+    whole_steps: int  #: the whole-step minimum
+    stderr: float  #: jackknife standard error, in intervals
+    t_stat: float  #: chunk t statistic of J(0) − J(whole_steps)
+    t_without_largest: float  #: the same without the point that gains most
+    point_t: np.ndarray  #: each point's chunk t statistic of its own gain
+    point_gain: np.ndarray  #: each point's J(0) − J(whole_steps)
+    share_chunks: float  #: share of chunks (with a gain or a loss) in which the shift fits better
+    at_edge: bool  #: the minimum lies at the end of the searched range
+    #: chunk t statistic of J(−1) − J(+1), signed toward ``steps``: which way the readings
+    #: lean, even when the shift is below half an interval (and so ``whole_steps`` is 0)
+    tilt_t: float = 0.0
+    point_tilt_t: np.ndarray | None = None  #: the same per point
+
+
+def _huber(u: np.ndarray) -> np.ndarray:
+    a = np.abs(u)
+    return np.where(a <= HUBER, 0.5 * u * u, HUBER * a - 0.5 * HUBER * HUBER)
+
+
+def _chunk_t(d: np.ndarray) -> float:
+    """t statistic of the mean of per-chunk values (last axis: chunks)."""
+    sd = d.std(ddof=1)
+    if not np.isfinite(sd) or sd <= 0:
+        return 0.0
+    return float(d.mean() / (sd / np.sqrt(d.size)))
+
+
+def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray,
+            max_steps: int, chunks: int) -> np.ndarray:
+    """J per shift, chunk and point: array (2·max_steps + 1) × chunks × points.
+
+    ``regular[t, j]`` says whether snapshot t + s (s = j − max_steps) lies s intervals after t
+    (gaps in the index break the shift). Each point's sums are scaled to its number of
+    snapshots at shift 0, so a shift that loses a few rows at the ends is not favoured."""
+    k, n = z.shape
+    chunk_of = np.minimum(np.arange(k) * chunks // max(k, 1), chunks - 1)
+    out = np.zeros((2 * max_steps + 1, chunks, n))
+    counts = np.zeros((2 * max_steps + 1, n))
+    # Each point's offset from the unshifted week (a lag leaves it: ramps up and down balance),
+    # the same for every shift, so J(s) compares shifts under one offset.
+    with np.errstate(all="ignore"):
+        c = np.nanmedian(np.where(regular[:, max_steps, None], z - y, np.nan), axis=0)
+    c = np.where(np.isfinite(c), c, 0.0)
+    for j, s in enumerate(range(-max_steps, max_steps + 1)):
+        lo, hi = max(0, -s), min(k, k - s)
+        e = np.full((k, n), np.nan)
+        e[lo:hi] = z[lo + s:hi + s] - y[lo:hi]
+        e[~regular[:, j]] = np.nan
+        ok = np.isfinite(e)
+        counts[j] = ok.sum(axis=0)
+        if not ok.any():
+            continue
+        rho = np.where(ok, _huber(np.where(ok, e - c[None, :], 0.0) / noise[None, :]), 0.0)
+        np.add.at(out[j], chunk_of, rho)
+    scale = counts[max_steps][None, :] / np.maximum(counts, 1)
+    return out * scale[:, None, :]
+
+
+def _refine(j_of_s: np.ndarray, centre: int) -> float:
+    """The parabola's minimum through the whole-step minimum and its neighbours (index)."""
+    if centre <= 0 or centre >= j_of_s.size - 1:
+        return float(centre)
+    jm, j0, jp = j_of_s[centre - 1], j_of_s[centre], j_of_s[centre + 1]
+    den = jm - 2.0 * j0 + jp
+    if den <= 0:
+        return float(centre)
+    return centre + float(np.clip(0.5 * (jm - jp) / den, -0.5, 0.5))
+
+
+def fit_shift(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray,
+              max_steps: int, chunks: int = 24) -> ShiftFit:
+    """The shift (in intervals) that best aligns readings ``z`` with implied values ``y``
+    (k × points, each point's unit; ``noise``: each point's expected scatter of z − y)."""
+    J = misfits(z, y, noise, regular, max_steps, chunks)  # shifts × chunks × points
+    total = J.sum(axis=(1, 2))
+    best = int(np.argmin(total))
+    steps = _refine(total, best) - max_steps
+    whole = best - max_steps
+    gain = J[max_steps] - J[best]  # chunks × points
+    d = gain.sum(axis=1)
+    point_gain = gain.sum(axis=0)
+    largest = int(np.argmax(point_gain)) if point_gain.size else 0
+    rest = d - gain[:, largest] if point_gain.size else d
+    jack = []
+    for c in range(chunks):
+        other = total - J[:, c].sum(axis=1)
+        jack.append(_refine(other, int(np.argmin(other))) - max_steps)
+    jack = np.asarray(jack)
+    stderr = float(np.sqrt((chunks - 1) / chunks * np.sum((jack - jack.mean()) ** 2)))
+    moved = np.abs(d) > 1e-9
+    way = 1.0 if steps >= 0 else -1.0
+    tilt = way * (J[max_steps - 1] - J[max_steps + 1])  # chunks × points
+    return ShiftFit(
+        steps=float(steps), whole_steps=whole, stderr=stderr, t_stat=_chunk_t(d),
+        t_without_largest=_chunk_t(rest),
+        point_t=np.array([_chunk_t(gain[:, i]) for i in range(gain.shape[1])]),
+        point_gain=point_gain,
+        share_chunks=float((d[moved] > 0).mean()) if moved.any() else 0.0,
+        at_edge=best in (0, total.size - 1),
+        tilt_t=_chunk_t(tilt.sum(axis=1)),
+        point_tilt_t=np.array([_chunk_t(tilt[:, i]) for i in range(tilt.shape[1])]),
+    )
+
+
+def regular_shifts(times_s: np.ndarray, interval_s: float, max_steps: int) -> np.ndarray:
+    """k × (2·max_steps + 1): whether snapshot t + s exists and lies s intervals after t."""
+    k = times_s.size
+    out = np.zeros((k, 2 * max_steps + 1), bool)
+    for j, s in enumerate(range(-max_steps, max_steps + 1)):
+        lo, hi = max(0, -s), min(k, k - s)
+        if hi > lo:
+            step = times_s[lo + s:hi + s] - times_s[lo:hi]
+            out[lo:hi, j] = np.abs(step - s * interval_s) <= 0.01 * interval_s
+    return out
+
+
+def shift_back(values: np.ndarray, times_s: np.ndarray, offset_s: float,
+               interval_s: float) -> np.ndarray:
+    """Columns as a clock ``offset_s`` late would have stamped them right: the value at t is
+    the reading stamped t + offset, linear between the two snapshots around it (NaN where one
+    of them is missing, beyond the period, or the two are not one interval apart)."""
+    target = times_s + offset_s
+    right = np.searchsorted(times_s, target, side="left")
+    exact = (right < times_s.size) & (np.abs(times_s[np.minimum(right, times_s.size - 1)]
+                                             - target) <= 1e-6 * interval_s)
+    left = np.where(exact, right, right - 1)
+    right = np.where(exact, right, right)
+    inside = (left >= 0) & (right < times_s.size)
+    li, ri = np.clip(left, 0, times_s.size - 1), np.clip(right, 0, times_s.size - 1)
+    span = times_s[ri] - times_s[li]
+    inside &= exact | (np.abs(span - interval_s) <= 0.01 * interval_s)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        g = np.where(exact | (span <= 0), 0.0, (target - times_s[li]) / np.where(span > 0,
+                                                                                  span, 1.0))
+    a, b = values[li], values[ri]
+    out = np.where(g[:, None] == 0.0, a, (1.0 - g[:, None]) * a + g[:, None] * b)
+    out[~inside] = np.nan
+    return out

@@ -1,0 +1,69 @@
+"""Findings about an RTU (its clock) go to the RTU/SCADA engineer's own sheet and CSV, not to
+the crews' substation checklists; both carry the crews' safety cautions (lockout/tagout, CT
+secondary, qualified personnel: NFPA 70E §120.5, OSHA 29 CFR 1910.269, as
+calibra.reports.safety names them) and defer to the utility's procedures."""
+
+import csv
+
+import pandas as pd
+
+from calibra.diagnosis.findings import Finding, findings_table
+from calibra.reports import (
+    RTU_WORK_ORDER_COLUMNS,
+    needing_field_work,
+    needing_rtu_work,
+    rtu_sheet,
+    work_order_rows,
+    work_order_sheets,
+    write_rtu_work_orders_csv,
+)
+
+
+def _with_clock(findings: pd.DataFrame) -> pd.DataFrame:
+    clock = Finding(tag="RTU-MC", device="", substation="Marlow Cross", finding="time_offset",
+                    confidence=0.96, evidence="RTU-MC's points read 240 s late", offset=240.0,
+                    scope="rtu", element="RTU-MC", unit="s", rtu="RTU-MC")
+    return pd.concat([findings.astype(object), findings_table([clock]).astype(object)],
+                     ignore_index=True)
+
+
+def test_clock_findings_leave_the_crews_sheets(findings, points):
+    table = _with_clock(findings)
+    crews = needing_field_work(table)
+    assert "time_offset" not in set(crews["finding"]) and len(crews) == len(findings)
+    assert "RTU-MC" not in set(work_order_rows(crews, points)["tags"])
+    sheets = work_order_sheets("Fernhollow", crews, points, "2026-03-10T08:00Z")
+    assert all("RTU clock" not in s.whole_html() for s in sheets.values())
+    assert list(needing_rtu_work(table)["tag"]) == ["RTU-MC"]
+
+
+def test_ledger_state_decides_what_is_still_due(findings):
+    table = _with_clock(findings)
+    table["state"] = "new"
+    table.loc[table["finding"] == "time_offset", "state"] = "repaired"
+    assert needing_rtu_work(table).empty
+
+
+def test_rtu_sheet_lists_the_checks_points_and_cautions(findings, points):
+    table = needing_rtu_work(_with_clock(findings))
+    html = rtu_sheet("Fernhollow", table, points, pd.Timestamp("2026-03-10T08:00Z")).whole_html()
+    assert "RTU and SCADA checks" in html and "RTU-MC" in html
+    for tag in ("MC-L1-P", "MC-L1-Q", "MC-T1-V", "MC-L2-I"):  # the RTU's points
+        assert tag in html
+    assert "AV-L3-P" not in html  # another RTU's point
+    assert "240 s late" in html and "time reference" in html
+    assert "lockout/tagout" in html and "secondary circuit of a CT" in html
+    assert "control room" in html and "procedures" in html
+
+
+def test_rtu_csv_rows_and_safety_rows(findings, points, tmp_path):
+    table = needing_rtu_work(_with_clock(findings))
+    path = write_rtu_work_orders_csv(table, points, tmp_path / "rtu.csv", site_name="Fernhollow")
+    with path.open(encoding="utf-8-sig", newline="") as handle:
+        rows = list(csv.reader(handle))
+    assert rows[0] == RTU_WORK_ORDER_COLUMNS
+    checks = [r for r in rows[1:] if r[1] == "RTU-MC"]
+    assert len(checks) >= 3 and all(float(r[4]) == 240.0 for r in checks)
+    assert "MC-L2-I" in checks[0][5]
+    safety = " ".join(r[0] for r in rows[1:] if r[0].startswith("Safety:"))
+    assert "lockout/tagout" in safety and "qualified personnel" in safety
