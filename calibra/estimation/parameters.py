@@ -174,8 +174,7 @@ def fit_terms(estimator: Estimator, sample: SnapshotSample, terms: list[Term],
     largest relative change of a term and the largest state step are below ``tolerance``."""
     model = estimator.model
     tm = TermModel(model, terms)
-    theta = np.array([model_value(model.network, t) if isinstance(t, NetworkParameter) else 0.0
-                      for t in terms]) if start is None else np.asarray(start, float).copy()
+    theta = tm.model_values.copy() if start is None else np.asarray(start, float).copy()
     snaps = sample.snapshots
     if not snaps:
         nan = np.full(len(terms), np.nan)
