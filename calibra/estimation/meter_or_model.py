@@ -97,13 +97,15 @@ def meter_or_model(estimator: Estimator, sample: SnapshotSample, parameter: Netw
     Objectives: J₀ (model as it is), J_p (parameter fitted, jointly and exactly), J_M (meter
     errors M fitted: one linear step from J₀, exact for errors linear in the meter's value up
     to the states' linearization) and J_{p+M} (M fitted in addition to the parameter, one step
-    from the joint estimate). The parameter is needed when J_M − J_{p+M} exceeds χ²(1) for every
-    alternative M; the meters instead when some M leaves the parameter nothing and itself
-    explains beyond it by more than χ²(|M|); otherwise they cannot be told apart."""
+    from the joint estimate). The meters are the explanation when the best alternative's J_M
+    is below J_p by more than χ²(|M|); else the parameter, when J_M − J_{p+M} exceeds χ²(1)
+    for every alternative M (it explains what no meter pair does); otherwise the two cannot be
+    told apart."""
     model = estimator.model
     used = np.unique(np.concatenate([s.rows for s in sample.snapshots])) if len(sample) else []
     used = set(int(i) for i in used)
-    meters = [t for t in meter_terms_around(model, parameter) if set(t.rows) & used]
+    meters = [t for t in meter_terms_around(model, parameter, ring=True)
+              if set(t.rows) & used]
     tm = TermModel(model, [parameter, *meters])
     start = copy_sample(sample)
     st0 = schur_terms(tm, start.snapshots, tm.model_values)
@@ -128,13 +130,14 @@ def meter_or_model(estimator: Estimator, sample: SnapshotSample, parameter: Netw
         alternatives.append(MeterAlternative(tuple(meters[i - 1] for i in sub), jm,
                                              jm - jpm, jp - jpm))
     alternatives.sort(key=lambda a: a.objective)
-    if not alternatives or min(a.parameter_gain for a in alternatives) > thr:
+    best = alternatives[0] if alternatives else None
+    if best is not None and best.objective < jp - float(
+            chi_square_threshold(confidence, len(best.meters))):
+        verdict = Verdict.METER  # meter errors explain clearly more than the parameter
+    elif best is None or min(a.parameter_gain for a in alternatives) > thr:
         verdict = Verdict.MODEL
     else:
-        explaining = [a for a in alternatives if a.parameter_gain <= thr]
-        beyond = any(a.meter_gain > float(chi_square_threshold(confidence, len(a.meters)))
-                     for a in explaining)
-        verdict = Verdict.METER if beyond else Verdict.NOT_SEPARABLE
+        verdict = Verdict.NOT_SEPARABLE
     return MeterOrModel(estimate, j0, alternatives, verdict, thr, joint)
 
 

@@ -92,9 +92,11 @@ def candidate_parameters(model: MeasurementModel, rows,
 
 
 def meter_terms_around(model: MeasurementModel, parameter: NetworkParameter,
-                       kinds=(MeterError.SCALE, MeterError.OFFSET)) -> list[MeterTerm]:
+                       kinds=(MeterError.SCALE, MeterError.OFFSET),
+                       ring: bool = False) -> list[MeterTerm]:
     """Constant errors of the meters whose values the parameter changes directly (the branch's
-    flows and currents, the injections at its buses) and of the voltage meters there."""
+    flows and currents, the injections at its buses) and of the voltage meters there; with
+    ``ring``, of every meter whose value depends on the voltage at the parameter's buses."""
     funcs = model.functions
     net = model.network
     tm = funcs.terminals
@@ -108,6 +110,12 @@ def meter_terms_around(model: MeasurementModel, parameter: NetworkParameter,
         buses = net.bus_positions([parameter.element])
         touched = (tm.kind == 2) & np.isin(tm.element, buses)
     term = funcs.terminal_of
+    if ring:
+        # Every terminal whose current depends on the voltage at those buses: the flows of all
+        # their branches and the injections of their neighbours, whose errors move the same
+        # states.
+        touched = np.zeros(len(tm.kind), bool)
+        touched[tm.entry_row[np.isin(tm.entry_col, buses)]] = True
     rows = np.flatnonzero(((term >= 0) & touched[np.maximum(term, 0)])
                           | ((funcs.code == V_MAG) & np.isin(funcs.element, buses)))
     out = [MeterTerm((int(i),), k) for i in rows for k in kinds]

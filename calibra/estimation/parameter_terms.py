@@ -343,3 +343,14 @@ def snapshot_transform(model: MeasurementModel, layout: StateLayout,
                        in_service: np.ndarray) -> sp.csr_matrix | None:
     """The change of variables that keeps bus couplers' gain matrices well conditioned."""
     return stiff_transform(model.network, layout, in_service)
+
+
+def snapshot_residuals(term_model: TermModel, sample: list[SampleSnapshot],
+                       theta: np.ndarray) -> np.ndarray:
+    """Weighted residuals (z − h)/σ of every snapshot (snapshots × m, NaN where not used) at
+    the snapshots' states and ``theta``."""
+    out = np.full((len(sample), term_model.model.m), np.nan)
+    for k, snap in enumerate(sample):
+        lin = term_model.linearize(snap, theta, slice(0, 0))
+        out[k, snap.rows] = lin.r * np.sqrt(lin.w)
+    return out

@@ -57,17 +57,21 @@ def spread_positions(k: int, count: int) -> np.ndarray:
 
 def sample_from_estimates(estimator: Estimator, z: np.ndarray, in_service: np.ndarray,
                           positions=None, available: np.ndarray | None = None,
-                          progress: Progress | None = None) -> SnapshotSample:
+                          progress: Progress | None = None,
+                          starts: SnapshotSample | None = None) -> SnapshotSample:
     """Estimate each snapshot at ``positions`` (default: all rows of ``z``, k × m per unit) with
     the model as it is, and keep the converged ones as the start of a joint fit.
-    ``available``: the points that may be used (m, bool; e.g. without meters set aside)."""
+    ``available``: the points that may be used (m, bool; e.g. without meters set aside);
+    ``starts``: a sample whose states start the snapshots it holds."""
     positions = np.arange(z.shape[0]) if positions is None else np.asarray(positions, int)
+    begin = {s.position: (s.vm, s.va) for s in starts.snapshots} if starts is not None else {}
     snaps, skipped = [], {}
     for j, pos in enumerate(positions):
         if progress is not None:
             progress.update(j, len(positions), "estimating the sample's snapshots")
         zz = z[pos] if available is None else np.where(available, z[pos], np.nan)
-        est = estimator.estimate(zz, None, in_service[pos], keep_jacobian=False)
+        est = estimator.estimate(zz, None, in_service[pos], start=begin.get(int(pos)),
+                                 keep_jacobian=False)
         if not est.converged:
             skipped[int(pos)] = est.reason
             continue
