@@ -91,13 +91,19 @@ CASES = [
     ("case57", "transformer", ParameterKind.TAP, {"offset": -0.0125}),
     ("case118", "charging", ParameterKind.B, {"factor": 1.3}),
     ("case89pegase", "line", ParameterKind.X, {"factor": 1.3}),
+    ("case118", "shunt", ParameterKind.SHUNT, {"factor": 1.3}),
 ]
 
 
 def _setup(case_name, which, kind, change, points_of=full_point_list):
     solved = solved_snapshots(case_name)
-    branch = _largest_charging(solved) if which == "charging" else _most_loaded(solved, which)
-    p = NetworkParameter(branch, kind)
+    if which == "shunt":  # the bus with the largest shunt
+        element = str(solved.network.buses["b_shunt_mvar"].abs().idxmax())
+    elif which == "charging":
+        element = _largest_charging(solved)
+    else:
+        element = _most_loaded(solved, which)
+    p = NetworkParameter(element, kind)
     wrong, true = wrong_model(solved, p, **change)
     points = points_of(solved.network)
     z = noise_free_values(solved, points)
