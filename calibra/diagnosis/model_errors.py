@@ -59,7 +59,7 @@ class ModelErrorSettings:
     sample_snapshots: int = 32  #: snapshots spread over the period
     residual_threshold: float = 3.0  #: median |r|/σ that makes a point's residual consistent
     multiplier_threshold: float = 5.0  #: normalized multiplier worth a joint fit
-    max_candidates: int = 120  #: parameters screened per round
+    max_candidates: int = 200  #: parameters screened per round
     tried_per_round: int = 3  #: strongest candidates fitted per round
     max_errors: int = 3
     confidence: float = 0.99

@@ -36,7 +36,7 @@ from calibra.progress import Progress
 LINE_KINDS = (ParameterKind.X, ParameterKind.R, ParameterKind.B)
 TRANSFORMER_KINDS = (ParameterKind.TAP, ParameterKind.X)
 #: Candidates screened in one factorization pass (bounds the work on large networks).
-MAX_CANDIDATES = 120
+MAX_CANDIDATES = 200
 
 
 @dataclass(frozen=True)
@@ -64,20 +64,26 @@ def branch_kinds(network, branch: str) -> tuple[ParameterKind, ...]:
 
 
 def branches_near_rows(model: MeasurementModel, rows) -> list[str]:
-    """Branches a list of measurement rows touches, in the order of the rows: a branch-end
-    point's own branch first, then every branch at the buses the row depends on."""
+    """Branches a list of measurement rows touches: first every branch-end point's own branch
+    and the branches at every injection or voltage point's bus (in the order of the rows), then
+    every other branch at the buses the rows depend on — so a bound on the candidates keeps the
+    branches the rows measure directly."""
     funcs = model.functions
     net = model.network
     adm = net.branch_admittances(np.ones(net.n_branch, bool))
-    out: dict[str, None] = {}
+    direct: dict[str, None] = {}
+    around: dict[str, None] = {}
     for i in rows:
         if funcs.is_branch[i]:
-            out.setdefault(str(net.branches.index[funcs.element[i]]), None)
+            direct.setdefault(str(net.branches.index[funcs.element[i]]), None)
+        else:
+            b = funcs.element[i]
+            for e in np.flatnonzero((adm.f == b) | (adm.t == b)):
+                direct.setdefault(str(net.branches.index[e]), None)
         buses = funcs.buses_of(int(i))
-        at = np.flatnonzero(np.isin(adm.f, buses) | np.isin(adm.t, buses))
-        for e in at:
-            out.setdefault(str(net.branches.index[e]), None)
-    return list(out)
+        for e in np.flatnonzero(np.isin(adm.f, buses) | np.isin(adm.t, buses)):
+            around.setdefault(str(net.branches.index[e]), None)
+    return list(direct) + [b for b in around if b not in direct]
 
 
 def candidate_parameters(model: MeasurementModel, rows,
