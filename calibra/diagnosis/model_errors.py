@@ -62,6 +62,9 @@ class ModelErrorSettings:
     max_candidates: int = 200  #: parameters screened per round
     tried_per_round: int = 3  #: strongest candidates fitted per round
     max_errors: int = 3
+    #: Rounds of screening and comparisons (a round whose candidates all turn out to be meter
+    #: errors hands on to the next candidates).
+    max_rounds: int = 6
     confidence: float = 0.99
 
 
@@ -187,8 +190,8 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
     base = sample_from_estimates(estimator, z, ins, positions, available, progress=progress)
     found: list[ModelErrorResult] = []
     done: set[NetworkParameter] = set()
-    for _ in range(st.max_errors):
-        if not len(base):
+    for _ in range(st.max_rounds):
+        if not len(base) or len(found) >= st.max_errors:
             break
         residuals = snapshot_residuals(TermModel(estimator.model, []), base.snapshots,
                                        np.zeros(0))
@@ -204,25 +207,31 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
                          for s in screen_terms(estimator.model, sample.snapshots, params)]
         screened.sort(key=lambda item: -abs(item[0].multiplier))
         accepted = None
-        for s, sample, readmit in [x for x in screened
-                                   if abs(x[0].multiplier) > st.multiplier_threshold][
-                                       :st.tried_per_round]:
+        strong = [x for x in screened if abs(x[0].multiplier) > st.multiplier_threshold]
+        if not strong:
+            break
+        for s, sample, readmit in strong[:st.tried_per_round]:
             done.add(s.term)
             cmp = meter_or_model(estimator, sample, s.term, st.confidence, progress=progress)
             if cmp.verdict == Verdict.METER or not cmp.estimate.converged:
                 continue
-            accepted = _result(estimator, sample, cmp, abs(s.multiplier), st.residual_threshold)
-            available = available | _mask(model.m, readmit)
+            result = _result(estimator, sample, cmp, abs(s.multiplier), st.residual_threshold)
+            moved = _with_network(estimator, {result.parameter: result.estimated_value})
+            seen = available | _mask(model.m, readmit)
+            cleared = _explained_set_aside(moved, z, ins, cmp.joint, seen,
+                                           st.residual_threshold)
+            if not result.explained and not cleared.size:
+                continue  # it explains no meter's consistent disagreement: not a finding
+            result.explained = sorted(set(result.explained)
+                                      | {str(model.tags[i]) for i in cleared})
+            accepted, estimator, available = result, moved, seen
             break
         if accepted is None:
-            break
-        estimator = _with_network(estimator, {accepted.parameter: accepted.estimated_value})
+            continue  # every candidate tried was a meter error: the next ones
         joint = accepted.comparison.joint
-        cleared = _explained_set_aside(estimator, z, ins, joint, available,
-                                       st.residual_threshold)
-        accepted.explained = sorted(set(accepted.explained)
-                                    | {str(model.tags[i]) for i in cleared})
         found.append(accepted)
+        # The model changed: candidates judged meter errors beside it are judged again.
+        done = {r.parameter for r in found}
         available = available.copy()
         available[cleared] = True
         base = sample_from_states(estimator, z, ins, _states(joint, z.shape[0], "vm"),
