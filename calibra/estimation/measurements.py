@@ -14,6 +14,7 @@ entries with zero admittance.
 
 from __future__ import annotations
 
+import copy
 from dataclasses import dataclass
 
 import numpy as np
@@ -132,6 +133,15 @@ class MeasurementFunctions:
             return np.array([self.element[row]], np.int64)
         tm = self.terminals
         return tm.entry_col[tm.entry_row == self.terminal_of[row]]
+
+    def on_network(self, network: Network) -> MeasurementFunctions:
+        """The same rows on a network of the same structure (same buses and branches in the
+        same order) with other parameter values: the structure is shared, the admittances
+        are the other network's."""
+        out = copy.copy(self)
+        out.network = network
+        out._values_cache, out._operator_cache = {}, {}
+        return out
 
     # ------------------------------------------------------------------ admittance values
     def entry_admittances(self, in_service: np.ndarray | None = None) -> np.ndarray:

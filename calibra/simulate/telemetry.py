@@ -13,7 +13,7 @@ the operating point, the noise, the gaps, the faults and the clock error, so a r
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -24,6 +24,7 @@ from calibra.model.site import Site
 from calibra.simulate.case import GridCase
 from calibra.simulate.faultmix import DEFAULT_MIX, random_faults
 from calibra.simulate.faults import TRUTH_COLUMNS, FaultSpec, apply_faults
+from calibra.simulate.model_errors import MODEL_TRUTH_COLUMNS, ModelError, model_with_errors
 from calibra.simulate.powerflow import solve_snapshots
 from calibra.simulate.profiles import (
     OperatingSeries,
@@ -86,6 +87,9 @@ class SimulationResult:
     iterations: np.ndarray  # Newton iterations per snapshot
     #: The RTU whose clock is wrong and its lag in seconds (late positive), or None.
     rtu_lag: tuple[str, float] | None = None
+    #: Wrong parameters of the site's network model (columns MODEL_TRUTH_COLUMNS; empty: none).
+    model_truth: pd.DataFrame = field(
+        default_factory=lambda: pd.DataFrame(columns=MODEL_TRUTH_COLUMNS))
 
 
 def snapshot_index(start, periods: int, timezone: str, freq: str = "1min") -> pd.DatetimeIndex:
@@ -250,12 +254,15 @@ def simulate_site(
     mix: np.ndarray | None = None,
     wind_mw: dict[str, float] | None = None,
     freq: str = "1min",
+    model_errors: Sequence[ModelError] = (),
 ) -> SimulationResult:
     """Simulate ``periods`` snapshots of telemetry for ``points`` on ``case``.
 
     ``faults``: True draws a random mix of ``fault_kinds`` (on points with enough redundancy),
     False gives the clean data, a sequence applies exactly those faults. ``outages``: "auto"
     picks one planned line outage (a branch with a status point), None none, or a list.
+    ``model_errors``: parameters the site's network model gets wrong; the telemetry still
+    comes from the true network (``case``), the truth goes to ``model_truth``.
     """
     opts = options or TelemetryOptions()
     net = case.network
@@ -319,7 +326,8 @@ def simulate_site(
     snapshots = pd.DataFrame(values, index=index, columns=points.index)
     snapshots.columns.name = None
     listed = stated_storage(points, opts) if opts.state_storage else points.copy()
-    site = Site(None, name or net.name, timezone, net, listed, snapshots)
+    model_net, model_truth = model_with_errors(net, model_errors)
+    site = Site(None, name or net.name, timezone, model_net, listed, snapshots)
     buses = net.buses.index
     return SimulationResult(
         site=site,
@@ -333,6 +341,7 @@ def simulate_site(
         rtu_outage=rtu_out,
         iterations=pf.iterations,
         rtu_lag=None if lagging is None else (lagging[0], 60.0 * opts.rtu_lag_minutes),
+        model_truth=model_truth,
     )
 
 

@@ -20,6 +20,7 @@ import pyarrow.parquet as pq
 from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS
 from calibra.model.points import POINT_COLUMNS, REPORTING_COLUMNS
 from calibra.model.site import Site
+from calibra.simulate.model_errors import MODEL_TRUTH_FILE
 
 TRUTH_FILE = Path("truth") / "faults.csv"
 
@@ -101,10 +102,12 @@ def write_truth(truth: pd.DataFrame, path: Path) -> None:
     out.to_csv(path, index=False, encoding="utf-8")
 
 
-def write_site(site: Site, folder: str | Path, truth: pd.DataFrame | None = None) -> Path:
+def write_site(site: Site, folder: str | Path, truth: pd.DataFrame | None = None,
+               model_truth: pd.DataFrame | None = None) -> Path:
     """Write ``site`` as a site folder at ``folder`` (created; existing snapshot files replaced).
 
-    ``truth`` (the fault table of a simulation) goes to ``truth/faults.csv``.
+    ``truth`` (the fault table of a simulation) goes to ``truth/faults.csv``; ``model_truth``
+    (wrong network parameters), when it has rows, to ``truth/model_errors.csv``.
     """
     root = Path(folder)
     root.mkdir(parents=True, exist_ok=True)
@@ -118,4 +121,8 @@ def write_site(site: Site, folder: str | Path, truth: pd.DataFrame | None = None
     write_snapshots(site, snap_dir)
     if truth is not None:
         write_truth(truth, root / TRUTH_FILE)
+    if model_truth is not None and len(model_truth):
+        (root / TRUTH_FILE).parent.mkdir(parents=True, exist_ok=True)
+        model_truth.to_csv(root / TRUTH_FILE.parent / MODEL_TRUTH_FILE, index=False,
+                           encoding="utf-8")
     return root

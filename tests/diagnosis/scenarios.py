@@ -23,13 +23,16 @@ def scenario_case(case_name: str):
 
 def generated_scenario(case_name: str, seed: int, periods: int = 2016, freq: str = "5min",
                        faults=True, metering: MeteringOptions | None = None,
-                       telemetry: TelemetryOptions | None = None) -> SimulationResult:
+                       telemetry: TelemetryOptions | None = None,
+                       model_errors=()) -> SimulationResult:
     """A published network with a simulated point list (``metering``), period (``telemetry``)
-    and a random fault mix drawn from ``seed``."""
+    and a random fault mix drawn from ``seed``; ``model_errors``: wrong parameters of the site's
+    network model (the telemetry comes from the true one)."""
     case = scenario_case(case_name)
     points = make_point_list(case, options=metering, seed=seed)
     return simulate_site(case, points, start=pd.Timestamp("2026-05-04"), periods=periods,
-                         freq=freq, seed=seed, faults=faults, timezone="UTC", options=telemetry)
+                         freq=freq, seed=seed, faults=faults, timezone="UTC", options=telemetry,
+                         model_errors=model_errors)
 
 
 def reversed_device_scenario(case_name: str, seed: int, periods: int = 576):
