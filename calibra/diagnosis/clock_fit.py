@@ -56,6 +56,17 @@ def _chunk_t(d: np.ndarray) -> float:
     return float(d.mean() / (sd / np.sqrt(d.size)))
 
 
+def _chunk_sums(rho: np.ndarray, chunk_of: np.ndarray, chunks: int) -> np.ndarray:
+    """Sums of the rows of ``rho`` per chunk (``chunk_of`` non-decreasing; empty chunks 0):
+    contiguous slices summed, far faster than an unbuffered scatter-add."""
+    starts = np.searchsorted(chunk_of, np.arange(chunks + 1))
+    out = np.zeros((chunks, rho.shape[1]))
+    for c in range(chunks):
+        if starts[c + 1] > starts[c]:
+            out[c] = rho[starts[c]:starts[c + 1]].sum(axis=0)
+    return out
+
+
 def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray,
             max_steps: int, chunks: int) -> np.ndarray:
     """J per shift, chunk and point: array (2·max_steps + 1) × chunks × points.
@@ -72,17 +83,23 @@ def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray
     with np.errstate(all="ignore"):
         c = np.nanmedian(np.where(regular[:, max_steps, None], z - y, np.nan), axis=0)
     c = np.where(np.isfinite(c), c, 0.0)
+    # In units of each point's scatter, offset removed once: the shift's misfit is then one
+    # difference of two slices (the Huber loss of the same values as before).
+    zn = (z - c[None, :]) / noise[None, :]
+    yn = y / noise[None, :]
     for j, s in enumerate(range(-max_steps, max_steps + 1)):
         lo, hi = max(0, -s), min(k, k - s)
         e = np.full((k, n), np.nan)
-        e[lo:hi] = z[lo + s:hi + s] - y[lo:hi]
-        e[~regular[:, j]] = np.nan
+        np.subtract(zn[lo + s:hi + s], yn[lo:hi], out=e[lo:hi])
+        irregular = ~regular[:, j]
+        if irregular.any():
+            e[irregular] = np.nan
         ok = np.isfinite(e)
         counts[j] = ok.sum(axis=0)
-        if not ok.any():
+        if not counts[j].any():
             continue
-        rho = np.where(ok, _huber(np.where(ok, e - c[None, :], 0.0) / noise[None, :]), 0.0)
-        np.add.at(out[j], chunk_of, rho)
+        e[~ok] = 0.0
+        out[j] = _chunk_sums(_huber(e), chunk_of, chunks)
     scale = counts[max_steps][None, :] / np.maximum(counts, 1)
     return out * scale[:, None, :]
 
