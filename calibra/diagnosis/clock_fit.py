@@ -44,8 +44,12 @@ class ShiftFit:
 
 
 def _huber(u: np.ndarray) -> np.ndarray:
+    """Huber's ρ: ½u² up to ``HUBER``, linear beyond (as m·(|u| − m/2), m = min(|u|, H))."""
     a = np.abs(u)
-    return np.where(a <= HUBER, 0.5 * u * u, HUBER * a - 0.5 * HUBER * HUBER)
+    m = np.minimum(a, HUBER)
+    a -= 0.5 * m
+    a *= m
+    return a
 
 
 def _chunk_t(d: np.ndarray) -> float:
@@ -60,6 +64,8 @@ def _chunk_sums(rho: np.ndarray, chunk_of: np.ndarray, chunks: int) -> np.ndarra
     """Sums of the rows of ``rho`` per chunk (``chunk_of`` non-decreasing; empty chunks 0):
     contiguous slices summed, far faster than an unbuffered scatter-add."""
     starts = np.searchsorted(chunk_of, np.arange(chunks + 1))
+    if np.all(starts[1:] > starts[:-1]):  # no empty chunk: one reduction
+        return np.add.reduceat(rho, starts[:-1], axis=0)
     out = np.zeros((chunks, rho.shape[1]))
     for c in range(chunks):
         if starts[c + 1] > starts[c]:
