@@ -13,7 +13,6 @@ import math
 import sqlite3
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from contextlib import contextmanager
-from datetime import datetime
 from pathlib import Path
 
 import pandas as pd
@@ -36,10 +35,10 @@ from calibra.ledger.states import (
     next_state,
     replay_tag,
 )
+from calibra.model.times import TimeLike
 
 #: The user name of the actions the review writes itself.
 REVIEW_USER = "calibra"
-TimeLike = str | datetime | pd.Timestamp
 
 
 def default_user() -> str:
