@@ -14,7 +14,10 @@ import pandas as pd
 from calibra.io.problems import ProblemLog
 from calibra.model.times import LOCAL_TIME_ERRORS
 
-_OFFSET = r"\d:\d\d(?::\d\d(?:[.,]\d+)?)?\s*(?:Z|z|[+-]\d\d(?::?\d\d)?)$"
+# Not anchored at the end: a time followed by an offset and then junk (``…-03:00,56``) is an
+# aware time that fails to parse, not a local one (pandas would carry its offset on to the
+# local times after it).
+_OFFSET = r"\d:\d\d(?::\d\d(?:[.,]\d+)?)?\s*(?:Z|z|[+-]\d\d(?::?\d\d)?)"
 #: Years that a nanosecond time (what the snapshot index holds) can represent in full.
 FIRST_YEAR, LAST_YEAR = 1678, 2261
 OUT_OF_RANGE = (f"time outside the years {FIRST_YEAR}-{LAST_YEAR} that calibra handles; "
@@ -79,7 +82,7 @@ def parse_times(
         parsed = _nanoseconds(parsed, rows[aware], file, log)
         result[aware] = parsed.tz_localize(None).to_numpy()
     if naive.any():
-        parsed = pd.DatetimeIndex(pd.to_datetime(text[naive], format="ISO8601", errors="coerce"))
+        parsed = _parse_local(text[naive])
         unparsed[naive] = np.asarray(parsed.isna())
         parsed = _nanoseconds(parsed, rows[naive], file, log)
         result[naive] = _localize(parsed, rows[naive], timezone, file, log).tz_localize(None)
@@ -97,6 +100,18 @@ def parse_times(
             "row skipped",
         )
     return pd.DatetimeIndex(result).tz_localize("UTC")
+
+
+def _parse_local(text: pd.Series) -> pd.DatetimeIndex:
+    """Times without an offset; one by one where pandas' batch parse turns any aware (unparsed)."""
+    try:
+        parsed = pd.DatetimeIndex(pd.to_datetime(text, format="ISO8601", errors="coerce"))
+        if parsed.tz is None:
+            return parsed
+    except (ValueError, TypeError):
+        pass
+    one = [pd.to_datetime(value, format="ISO8601", errors="coerce") for value in text]
+    return pd.DatetimeIndex([t if t is not pd.NaT and t.tzinfo is None else pd.NaT for t in one])
 
 
 def _localize(

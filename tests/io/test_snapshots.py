@@ -49,6 +49,20 @@ def test_mixing_naive_and_offset_times_is_a_warning(files, tmp_path):
     assert site.snapshots.index.is_monotonic_increasing and len(site.snapshots) == 4
 
 
+def test_offset_time_with_trailing_junk_is_skipped_and_local_times_after_it_stay_local(
+    files, tmp_path
+):
+    # pandas 2.x's batch ISO 8601 parse carries the offset of a time it fails to read on to
+    # the local times after it (found by the property test of tests/robustness)
+    files.snapshots["week.csv"].set(3, "timestamp", "2024-03-04T10:01:00+01:00,56")
+    site = load_site(files.write(tmp_path))
+    p = find(site.problems, WEEK, 3, "timestamp", "warning")
+    assert "not an ISO 8601 time" in p.message
+    # Europe/Berlin is UTC+1 in early March (IANA tz database)
+    assert list(site.snapshots.index) == [utc("2024-03-04 09:00"), utc("2024-03-04 09:02"),
+                                          utc("2024-03-04 09:03")]
+
+
 def test_local_time_skipped_by_daylight_saving_is_reported_per_row(files, tmp_path):
     # Europe/Berlin: clocks go from 02:00 to 03:00 on 2024-03-31 (EU summer-time rule)
     table = files.snapshots["week.csv"]
