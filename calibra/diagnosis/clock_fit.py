@@ -4,12 +4,13 @@ A clock that runs ``τ`` late stamps at ``t`` what was true at ``t − τ``: the
 equals the implied value y(t − τ), so z(t + τ) − y(t) is only noise. For every whole number
 ``s`` of snapshot intervals in ±``max_steps`` the readings are moved by ``s`` rows and the
 robust misfit J(s) = Σ ρ((z(t + s) − y(t) − cᵢ) / σᵢ) summed (Huber ρ, cᵢ each point's median
-difference in the unshifted week, so a meter offset is not a clock); the whole-step minimum
-is refined by the parabola through it and its neighbours. Whole steps only are compared
-because readings interpolated between two noisy snapshots are less noisy than real ones,
-which would pull the minimum to half steps. The uncertainty is the delete-one-chunk
-jackknife over time chunks (residuals are correlated in time); the significance is the chunk
-t statistic of J(0) − J(ŝ); each point's own chunk t statistic says whether it supports the
+difference in the unshifted week, so a meter offset is not a clock); the whole-step minimum is
+refined by the parabola through it and its neighbours. J is computed coarse to fine (every few
+steps, then each step around the best), as J(s) changes smoothly with the shift. Whole steps
+only are compared because readings interpolated between two noisy snapshots are less noisy than
+real ones, which would pull the minimum to half steps. The uncertainty is the delete-one-chunk
+jackknife over time chunks (residuals are correlated in time); the significance is the chunk t
+statistic of J(0) − J(ŝ); each point's own chunk t statistic says whether it supports the
 shift. The tilt J(−1) − J(+1) says which way the readings lean even when the shift is below
 half an interval.
 """
@@ -73,41 +74,99 @@ def _chunk_sums(rho: np.ndarray, chunk_of: np.ndarray, chunks: int) -> np.ndarra
     return out
 
 
-def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray,
-            max_steps: int, chunks: int) -> np.ndarray:
-    """J per shift, chunk and point: array (2·max_steps + 1) × chunks × points.
+class _Misfits:
+    """J(s) per chunk and point, one shift at a time (the readings, offsets and chunks once)."""
 
-    ``regular[t, j]`` says whether snapshot t + s (s = j − max_steps) lies s intervals after t
-    (gaps in the index break the shift). Each point's sums are scaled to its number of
-    snapshots at shift 0, so a shift that loses a few rows at the ends is not favoured."""
-    k, n = z.shape
-    chunk_of = np.minimum(np.arange(k) * chunks // max(k, 1), chunks - 1)
-    out = np.zeros((2 * max_steps + 1, chunks, n))
-    counts = np.zeros((2 * max_steps + 1, n))
-    # Each point's offset from the unshifted week (a lag leaves it: ramps up and down balance),
-    # the same for every shift, so J(s) compares shifts under one offset.
-    with np.errstate(all="ignore"):
-        c = np.nanmedian(np.where(regular[:, max_steps, None], z - y, np.nan), axis=0)
-    c = np.where(np.isfinite(c), c, 0.0)
-    # In units of each point's scatter, offset removed once: the shift's misfit is then one
-    # difference of two slices (the Huber loss of the same values as before).
-    zn = (z - c[None, :]) / noise[None, :]
-    yn = y / noise[None, :]
-    for j, s in enumerate(range(-max_steps, max_steps + 1)):
+    def __init__(self, z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray,
+                 max_steps: int, chunks: int) -> None:
+        k, n = z.shape
+        self.max_steps, self.chunks, self.regular = max_steps, chunks, regular
+        self.chunk_of = np.minimum(np.arange(k) * chunks // max(k, 1), chunks - 1)
+        # Each point's offset from the unshifted week (a lag leaves it: ramps up and down
+        # balance), the same for every shift, so J(s) compares shifts under one offset.
+        with np.errstate(all="ignore"):
+            c = np.nanmedian(np.where(regular[:, max_steps, None], z - y, np.nan), axis=0)
+        c = np.where(np.isfinite(c), c, 0.0)
+        # In units of each point's scatter, offset removed once: the shift's misfit is then
+        # one difference of two slices.
+        self.zn = (z - c[None, :]) / noise[None, :]
+        self.yn = y / noise[None, :]
+
+    def at(self, s: int) -> tuple[np.ndarray, np.ndarray]:
+        """Chunk sums (chunks × points) of ρ at shift ``s`` and each point's count of rows."""
+        k, n = self.zn.shape
         lo, hi = max(0, -s), min(k, k - s)
-        e = np.full((k, n), np.nan)
-        np.subtract(zn[lo + s:hi + s], yn[lo:hi], out=e[lo:hi])
-        irregular = ~regular[:, j]
+        if hi <= lo:
+            return np.zeros((self.chunks, n)), np.zeros(n)
+        e = self.zn[lo + s:hi + s] - self.yn[lo:hi]
+        irregular = ~self.regular[lo:hi, s + self.max_steps]
         if irregular.any():
             e[irregular] = np.nan
         ok = np.isfinite(e)
-        counts[j] = ok.sum(axis=0)
-        if not counts[j].any():
-            continue
+        counts = ok.sum(axis=0)
         e[~ok] = 0.0
-        out[j] = _chunk_sums(_huber(e), chunk_of, chunks)
-    scale = counts[max_steps][None, :] / np.maximum(counts, 1)
-    return out * scale[:, None, :]
+        return _chunk_sums(_huber(e), self.chunk_of[lo:hi], self.chunks), counts
+
+
+def _scaled(sums: dict[int, np.ndarray], counts: dict[int, np.ndarray]) -> dict:
+    """Each point's sums scaled to its number of snapshots at shift 0, so a shift that loses
+    a few rows at the ends is not favoured."""
+    return {s: v * (counts[0] / np.maximum(counts[s], 1))[None, :] for s, v in sums.items()}
+
+
+def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray,
+            max_steps: int, chunks: int) -> np.ndarray:
+    """J per shift, chunk and point: array (2·max_steps + 1) × chunks × points, every shift.
+
+    ``regular[t, j]`` says whether snapshot t + s (s = j − max_steps) lies s intervals after t
+    (gaps in the index break the shift)."""
+    calc = _Misfits(z, y, noise, regular, max_steps, chunks)
+    done = {s: calc.at(s) for s in range(-max_steps, max_steps + 1)}
+    scaled = _scaled({s: v[0] for s, v in done.items()}, {s: v[1] for s, v in done.items()})
+    return np.stack([scaled[s] for s in range(-max_steps, max_steps + 1)])
+
+
+def coarse_shifts(max_steps: int) -> tuple[list[int], int]:
+    """The shifts searched first and their spacing: −1, 0, +1, both ends and every
+    ``spacing``-th shift between; the search then fills in whole steps around the best."""
+    spacing = max(1, int(np.ceil(np.sqrt(max_steps / 2.0))))
+    grid = {sign * s for s in range(0, max_steps + 1, spacing) for sign in (-1, 1)}
+    return sorted(grid | {-1, 0, 1, -max_steps, max_steps}), spacing
+
+
+def searched_misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray,
+                     max_steps: int, chunks: int) -> np.ndarray:
+    """J as :func:`misfits` returns it, computed coarse to fine: at the coarse shifts, then at
+    every whole step within one spacing of the best of them (J over the shift is smooth where
+    it matters: a lag's minimum lies within one spacing of the best coarse shift). Shifts not
+    computed are linear between their computed neighbours, so no minimum of the sum, or of
+    any part of it, falls on one of them."""
+    calc = _Misfits(z, y, noise, regular, max_steps, chunks)
+    grid, spacing = coarse_shifts(max_steps)
+    done = {s: calc.at(s) for s in grid}
+
+    def best() -> int:
+        scaled = _scaled({s: v[0] for s, v in done.items()}, {s: v[1] for s, v in done.items()})
+        return min(scaled, key=lambda s: scaled[s].sum())
+
+    centre = best()
+    for s in range(max(-max_steps, centre - spacing + 1),
+                   min(max_steps, centre + spacing - 1) + 1):
+        if s not in done:
+            done[s] = calc.at(s)
+    scaled = _scaled({s: v[0] for s, v in done.items()}, {s: v[1] for s, v in done.items()})
+    known = np.array(sorted(scaled))
+    values = np.stack([scaled[s] for s in known])  # known × chunks × points
+    out = np.empty((2 * max_steps + 1,) + values.shape[1:])
+    where = np.searchsorted(known, np.arange(-max_steps, max_steps + 1))
+    for j, s in enumerate(range(-max_steps, max_steps + 1)):
+        i = where[j]
+        if known[i] == s:
+            out[j] = values[i]
+        else:  # strictly between known[i - 1] and known[i]
+            g = (s - known[i - 1]) / (known[i] - known[i - 1])
+            out[j] = (1.0 - g) * values[i - 1] + g * values[i]
+    return out
 
 
 def _refine(j_of_s: np.ndarray, centre: int) -> float:
@@ -125,7 +184,7 @@ def fit_shift(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarr
               max_steps: int, chunks: int = 24) -> ShiftFit:
     """The shift (in intervals) that best aligns readings ``z`` with implied values ``y``
     (k × points, each point's unit; ``noise``: each point's expected scatter of z − y)."""
-    J = misfits(z, y, noise, regular, max_steps, chunks)  # shifts × chunks × points
+    J = searched_misfits(z, y, noise, regular, max_steps, chunks)  # shifts × chunks × points
     total = J.sum(axis=(1, 2))
     best = int(np.argmin(total))
     steps = _refine(total, best) - max_steps

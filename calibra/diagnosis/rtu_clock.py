@@ -126,14 +126,25 @@ def _noise(ev: WeekEvidence, cols: np.ndarray) -> np.ndarray:
     return np.sqrt(sigma ** 2 + sig_y ** 2)
 
 
-def _fit(ev: WeekEvidence, cols: np.ndarray, st: ClockSettings) -> tuple[ShiftFit, float]:
-    times = seconds_from_start(ev.index)
-    interval = interval_seconds(ev.index)
-    steps = int(np.clip(round(st.max_shift_minutes * 60.0 / interval), 2, st.max_shift_steps))
-    regular = regular_shifts(times, interval, steps)
-    fit = fit_shift(ev.measured[:, cols].astype(float), ev.implied[:, cols].astype(float),
-                    _noise(ev, cols), regular, steps, st.chunks)
-    return fit, interval
+@dataclass(frozen=True)
+class _ShiftGrid:
+    """The searched shifts of a period: its interval, the range and which shifts are regular."""
+
+    interval_s: float
+    steps: int
+    regular: np.ndarray
+
+    @classmethod
+    def of(cls, index: pd.DatetimeIndex, st: ClockSettings) -> _ShiftGrid:
+        interval = interval_seconds(index)
+        steps = int(np.clip(round(st.max_shift_minutes * 60.0 / interval), 2,
+                            st.max_shift_steps))
+        return cls(interval, steps, regular_shifts(seconds_from_start(index), interval, steps))
+
+
+def _fit(ev: WeekEvidence, cols: np.ndarray, st: ClockSettings, grid: _ShiftGrid) -> ShiftFit:
+    return fit_shift(ev.measured[:, cols].astype(float), ev.implied[:, cols].astype(float),
+                     _noise(ev, cols), grid.regular, grid.steps, st.chunks)
 
 
 def _supporting(fit: ShiftFit, st: ClockSettings) -> tuple[np.ndarray, int]:
@@ -171,9 +182,10 @@ def find_rtu_clocks(period: PreparedPeriod, ev: WeekEvidence, diagnoses: dict,
         return []
     rtu_of = rtu_of_points(period)
     groups = _groups(rtu_of, ev, diagnoses, st)
+    grid = _ShiftGrid.of(ev.index, st)  # the evidence estimated again has the same index
     screened = []
     for rtu, cols in groups.items():
-        fit, _ = _fit(ev, cols, st)
+        fit = _fit(ev, cols, st, grid)
         if _passes_screen(fit, st):
             screened.append((max(fit.t_stat, fit.tilt_t), rtu))
     candidates = [rtu for _, rtu in sorted(screened, reverse=True)[:st.max_candidates]]
@@ -200,9 +212,9 @@ def find_rtu_clocks(period: PreparedPeriod, ev: WeekEvidence, diagnoses: dict,
             cols = _checked(evidence, groups[rtu], st)
         if cols.size < st.min_points:
             continue
-        fit, interval = _fit(evidence, cols, st)
+        fit = _fit(evidence, cols, st, grid)
         if _confirmed(fit, st):
-            clocks.append(_clock(period, evidence, rtu, cols, fit, interval, st))
+            clocks.append(_clock(period, evidence, rtu, cols, fit, grid.interval_s, st))
     return clocks
 
 

@@ -13,7 +13,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from calibra.diagnosis.clock_fit import fit_shift, regular_shifts, shift_back
+from calibra.diagnosis.clock_fit import (
+    fit_shift,
+    misfits,
+    regular_shifts,
+    searched_misfits,
+    shift_back,
+)
 from calibra.diagnosis.findings import FindingKind, findings_table
 from calibra.diagnosis.review import review_site
 from calibra.simulate.faults import FaultSpec
@@ -47,6 +53,29 @@ def test_joint_shift_recovers_a_known_lag_and_sees_none_without_one(lag):
     assert fit.t_stat > 10 and (fit.point_t > 2).all() and fit.stderr < 0.1
     clean = fit_shift(true + rng.normal(0, 0.2, (k, n)), true, noise, regular, 6)
     assert clean.whole_steps == 0 and abs(clean.steps) < 0.5
+
+
+@pytest.mark.parametrize("lag", [0.0, 3.0, 7.6, -12.3, 29.4])
+def test_coarse_to_fine_search_finds_the_minimum_of_every_shift(lag):
+    """One-minute readings searched ±30 intervals: the coarse-to-fine misfits equal the
+    misfits of every shift at each shift it computes, its best whole step is the best of all
+    shifts, and every shift in between lies on the line between computed ones (so no minimum
+    falls there). Reference: the exhaustive computation (common practice, no source)."""
+    k, n, interval = 2880, 4, 60.0
+    true = _ramps(k, n, 5)
+    times = np.arange(k) * interval
+    rng = np.random.default_rng(6)
+    noise = np.full(n, 0.2)
+    z = lagged_values(true, pd.to_datetime(times, unit="s"), lag * interval)
+    z = z + rng.normal(0, 0.2, (k, n))
+    regular = regular_shifts(times, interval, 30)
+    full = misfits(z, true, noise, regular, 30, 24)
+    fast = searched_misfits(z, true, noise, regular, 30, 24)
+    computed = np.isclose(fast, full, rtol=1e-12, atol=0).all(axis=(1, 2))
+    assert 19 <= computed.sum() < 61  # searched: far fewer than every shift
+    assert computed[int(np.argmin(full.sum(axis=(1, 2))))]
+    assert np.argmin(fast.sum(axis=(1, 2))) == np.argmin(full.sum(axis=(1, 2)))
+    assert abs(fit_shift(z, true, noise, regular, 30).steps - lag) < 0.3
 
 
 def test_moving_back_undoes_the_lag():
