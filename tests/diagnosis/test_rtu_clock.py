@@ -36,17 +36,21 @@ def _ramps(k: int, n: int, seed: int) -> np.ndarray:
     return base + np.cumsum(rng.normal(0, 0.3, (k, n)), axis=0)
 
 
+def _lagged_week(k: int, n: int, interval: float, lag: float, seed: int, noise_seed: int):
+    """True values, readings ``lag`` intervals late with noise 0.2, times, noise, generator."""
+    true = _ramps(k, n, seed)
+    times = np.arange(k) * interval
+    rng = np.random.default_rng(noise_seed)
+    lagged = lagged_values(true, pd.to_datetime(times, unit="s"), lag * interval)
+    return true, lagged + rng.normal(0, 0.2, (k, n)), times, np.full(n, 0.2), rng
+
+
 @pytest.mark.parametrize("lag", [2.4, -1.3])
 def test_joint_shift_recovers_a_known_lag_and_sees_none_without_one(lag):
     """Five points lagging 2.4 intervals (or leading 1.3): the fit finds it to a tenth;
     without a lag the shift is zero and not significant (the lag by construction)."""
     k, n, interval = 2016, 5, 300.0
-    true = _ramps(k, n, 3)
-    times = np.arange(k) * interval
-    rng = np.random.default_rng(4)
-    noise = np.full(n, 0.2)
-    lagged = lagged_values(true, pd.to_datetime(times, unit="s"), lag * interval)
-    z = lagged + rng.normal(0, 0.2, (k, n))
+    true, z, times, noise, rng = _lagged_week(k, n, interval, lag, 3, 4)
     regular = regular_shifts(times, interval, 6)
     fit = fit_shift(z, true, noise, regular, 6)
     assert abs(fit.steps - lag) < 0.1 and fit.whole_steps == round(lag)
@@ -58,17 +62,11 @@ def test_joint_shift_recovers_a_known_lag_and_sees_none_without_one(lag):
 @pytest.mark.parametrize("lag", [0.0, 3.0, 7.6, -12.3, 29.4])
 def test_coarse_to_fine_search_finds_the_minimum_of_every_shift(lag):
     """One-minute readings searched ±30 intervals: the coarse-to-fine misfits equal the
-    misfits of every shift at each shift it computes, its best whole step is the best of all
-    shifts, and every shift in between lies on the line between computed ones (so no minimum
-    falls there). Reference: the exhaustive computation (common practice, no source)."""
-    k, n, interval = 2880, 4, 60.0
-    true = _ramps(k, n, 5)
-    times = np.arange(k) * interval
-    rng = np.random.default_rng(6)
-    noise = np.full(n, 0.2)
-    z = lagged_values(true, pd.to_datetime(times, unit="s"), lag * interval)
-    z = z + rng.normal(0, 0.2, (k, n))
-    regular = regular_shifts(times, interval, 30)
+    misfits of every shift at each shift it computes, far fewer than all, and its best whole
+    step is the best of all shifts. Reference: the exhaustive computation (common practice, no
+    source)."""
+    true, z, times, noise, _ = _lagged_week(2880, 4, 60.0, lag, 5, 6)
+    regular = regular_shifts(times, 60.0, 30)
     full = misfits(z, true, noise, regular, 30, 24)
     fast = searched_misfits(z, true, noise, regular, 30, 24)
     computed = np.isclose(fast, full, rtol=1e-12, atol=0).all(axis=(1, 2))
