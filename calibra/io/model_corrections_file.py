@@ -106,11 +106,11 @@ def _row(network: Network, rel: str, row: int, cells: dict[str, str],
 
 def read_model_corrections(folder: Path, network: Network,
                            log: ProblemLog) -> list[ModelCorrection]:
-    """The checked rows of the site folder's model-correction file ([] when there is none).
-    A parameter named on two rows is an error at the second."""
+    """The checked rows of the site folder's model-correction file ([] when there is none, or
+    only its header). A parameter named on two rows is an error at the second."""
     path = Path(folder) / MODEL_CORRECTIONS_FILE
-    if not path.is_file():
-        return []
+    if _existing(path) == []:
+        return []  # no file, or a header only (every correction taken out): nothing to apply
     t = read_small_table(path, MODEL_CORRECTIONS_FILE, log, _REQUIRED, _OPTIONAL)
     if t is None:
         return []
@@ -146,11 +146,16 @@ def _write(path: Path, rows: list[list[str]]) -> None:
     os.replace(tmp, path)
 
 
-def _existing(path: Path) -> list[list[str]]:
+def _existing(path: Path) -> list[list[str]] | None:
+    """The file's rows in :data:`MODEL_CORRECTION_COLUMNS` order ([] when there is no file;
+    None when it cannot be read as UTF-8 CSV: the loader then says why)."""
     if not path.is_file():
         return []
-    with path.open(newline="", encoding="utf-8-sig") as handle:
-        records = list(csv.reader(handle))
+    try:
+        with path.open(newline="", encoding="utf-8-sig") as handle:
+            records = list(csv.reader(handle))
+    except (OSError, UnicodeDecodeError, csv.Error):
+        return None
     if not records:
         return []
     header = [h.strip().lower() for h in records[0]]
@@ -158,11 +163,19 @@ def _existing(path: Path) -> list[list[str]]:
              for c in MODEL_CORRECTION_COLUMNS] for r in records[1:] if any(x.strip() for x in r)]
 
 
+def _readable(path: Path) -> list[list[str]]:
+    rows = _existing(path)
+    if rows is None:
+        raise ValueError(f"{path}: cannot be read as a UTF-8 CSV table; repair it before "
+                         "calibra writes to it")
+    return rows
+
+
 def add_model_correction(folder: Path, correction: ModelCorrection) -> Path:
     """Append ``correction`` to the folder's file (created with its header when missing).
     Raises ValueError when the file already holds a row for the same parameter."""
     path = Path(folder) / MODEL_CORRECTIONS_FILE
-    rows = _existing(path)
+    rows = _readable(path)
     p = correction.parameter
     for n, r in enumerate(rows, start=2):
         if r[0] == p.element and r[1].lower() == str(p.kind):
@@ -175,7 +188,7 @@ def add_model_correction(folder: Path, correction: ModelCorrection) -> Path:
 def remove_ledger_action(folder: Path, action_id: int) -> bool:
     """Take out the row the ledger action ``action_id`` wrote (an undo); False when none."""
     path = Path(folder) / MODEL_CORRECTIONS_FILE
-    rows = _existing(path)
+    rows = _readable(path)
     kept = [r for r in rows if r[-1].strip() != str(int(action_id))]
     if len(kept) == len(rows):
         return False
