@@ -3,13 +3,17 @@ telemetry from the true network, the site's model with one reactance typed 30 % 
 
 from __future__ import annotations
 
+import json
+
+import pandas as pd
 import pytest
 
-from calibra.diagnosis.findings import MODEL_KINDS, FindingKind
+from calibra.diagnosis.findings import MODEL_KINDS, FindingKind, findings_table
 from calibra.diagnosis.review import review_site
 from calibra.io.model_corrections_file import MODEL_CORRECTIONS_FILE
 from calibra.io.site_folder import load_site
 from calibra.model.site import SiteLoadError
+from calibra.review_run import ReviewRun, run_review, write_outputs
 from calibra.simulate.faults import FaultSpec
 from calibra.simulate.model_errors import ModelError
 from calibra.simulate.writer import write_site
@@ -88,9 +92,37 @@ def test_the_correction_file_makes_the_next_review_clean(wrong_x, tmp_path):
     site = load_site(folder)
     assert site.network.branches.at[line, "x"] == pytest.approx(f.estimated_value)
     assert [c.parameter.element for c in site.model_corrections] == [line]
-    again = review_site(site)
+    run = run_review(site)
+    again = run.result
     assert not [g for g in again.findings if g.finding == FindingKind.MODEL]
     assert {g.tag for g in again.findings if g.finding not in NOT_BLAME} == {tag}
+    files = write_outputs(run, site, tmp_path / "out")
+    applied = json.loads(files["summary_json"].read_text())["model_corrections_applied"]
+    assert [(a["element"], a["parameter"], a["decision"], a["row"]) for a in applied] == \
+        [(line, "x", "set", 2)]
+    assert f"network model corrected (model-corrections.csv, row 2): x of branch {line} set " \
+        "to" in files["summary"].read_text()
+    assert "model_work_orders_csv" not in files
+
+
+def test_outputs_put_the_model_finding_on_its_own_sheet(wrong_x, tmp_path):
+    """findings.csv carries the model columns; model_work_orders.csv lists the parameter; the
+    crews' work orders list the meter fault, not the parameter."""
+    sim, line, tag, result = wrong_x
+    table = findings_table(result.findings)
+    table["state"] = "new"
+    run = ReviewRun(result, table, None, [], 1.0)
+    files = write_outputs(run, sim.site, tmp_path / "out")
+    found = pd.read_csv(files["findings"], encoding="utf-8-sig")
+    row = found[found["finding"] == "model"].iloc[0]
+    assert (row["tag"], row["element"], row["parameter"]) == (f"{line}:x", line, "x")
+    assert row["estimated_std"] > 0 and isinstance(row["explains"], str)
+    crews = pd.read_csv(files["work_orders_csv"], encoding="utf-8-sig")
+    assert tag in set(crews["tags"].dropna())
+    assert not {t for t in crews["tags"].dropna() if ":" in t or line in t}
+    owner = pd.read_csv(files["model_work_orders_csv"], encoding="utf-8-sig")
+    assert set(owner["element"].dropna()) == {line}
+    assert "network-model parameter" in files["summary"].read_text()
 
 
 def test_keep_decision_leaves_the_meters_blamed(wrong_x, tmp_path):
