@@ -93,6 +93,13 @@ def model_tag(r: ModelErrorResult) -> str:
     return f"{r.element}:{r.kind}"
 
 
+def _listed(tags: list[str], most: int = 6) -> str:
+    """'A, B, C' or 'A, B, … and 12 more' (the full list is in the ``explains`` column)."""
+    if len(tags) <= most:
+        return ", ".join(tags)
+    return f"{', '.join(tags[:most])} and {len(tags) - most} more"
+
+
 def model_findings(site: Site, results: list[ModelErrorResult]) -> list[Finding]:
     """One ``model`` finding per parameter the week points to (advisory)."""
     out = []
@@ -101,7 +108,7 @@ def model_findings(site: Site, results: list[ModelErrorResult]) -> list[Finding]
         evidence = r.evidence
         if separable:
             evidence += ("; the meters were judged again with the estimated value"
-                         + (f" ({', '.join(r.explained)} then agree)" if r.explained else ""))
+                         + (f" ({_listed(r.explained)} then agree)" if r.explained else ""))
         else:
             evidence += ("; the metering cannot tell the parameter from those meters' errors: "
                          "the review keeps their findings"
