@@ -138,9 +138,11 @@ def meter_terms_around(model: MeasurementModel, parameter: NetworkParameter,
 def disagreeing_places(model: MeasurementModel, parameter: NetworkParameter,
                        rows) -> int:
     """How many distinct places (a branch end, a bus's injection, a bus's voltage) among the
-    meters the parameter acts on directly hold one of ``rows``: a wrong parameter makes the
-    meters of two or more places disagree, one meter's (or one CT's) error only its own."""
-    touched = {t.rows[0] for t in meter_terms_around(model, parameter, (MeterError.OFFSET,))}
+    meters whose values depend on the voltages at the parameter's buses hold one of ``rows``:
+    a wrong parameter makes the meters of two or more places disagree (its own and its
+    neighbours'), one meter's (or one CT's) error only its own."""
+    touched = {t.rows[0] for t in meter_terms_around(model, parameter, (MeterError.OFFSET,),
+                                                     ring=True)}
     funcs = model.functions
     places = set()
     for r in set(int(i) for i in rows) & touched:
