@@ -176,3 +176,12 @@ def test_a_parameter_on_two_rows_is_an_error(tmp_path):
     with pytest.raises(SiteLoadError, match="row 3, column 'parameter'.*already corrected "
                                             "on row 2"):
         load_site(folder)
+
+
+def test_the_simulator_never_seeds_a_model_kind_as_a_meter_fault():
+    """A model finding is about the network, not a meter: the simulator's meter fault kinds
+    leave it out, as they leave out the RTU clock (common practice, no source)."""
+    from calibra.simulate.faults import FAULT_KINDS
+
+    assert not set(MODEL_KINDS) & set(FAULT_KINDS)
+    assert FindingKind.TIME_OFFSET not in FAULT_KINDS
