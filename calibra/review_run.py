@@ -266,7 +266,7 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     if run.corrections:
         lines.append(f"software corrections applied: {len(run.corrections)} "
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")
-    lines += [f"network model corrected (model-corrections.csv, row {c.row}): "
+    lines += [f"network model as the owner decided (model-corrections.csv, row {c.row}): "
               f"{c.describe()}" for c in r.model_corrections]
     about_rtu = run.findings["finding"].isin(RTU_KINDS)
     about_model = run.findings["finding"].isin(MODEL_KINDS)

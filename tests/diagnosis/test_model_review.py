@@ -100,8 +100,8 @@ def test_the_correction_file_makes_the_next_review_clean(wrong_x, tmp_path):
     applied = json.loads(files["summary_json"].read_text())["model_corrections_applied"]
     assert [(a["element"], a["parameter"], a["decision"], a["row"]) for a in applied] == \
         [(line, "x", "set", 2)]
-    assert f"network model corrected (model-corrections.csv, row 2): x of branch {line} set " \
-        "to" in files["summary"].read_text()
+    assert (f"network model as the owner decided (model-corrections.csv, row 2): x of branch "
+            f"{line} set to") in files["summary"].read_text()
     assert "model_work_orders_csv" not in files
 
 
