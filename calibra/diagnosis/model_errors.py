@@ -205,6 +205,9 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
     #: Elements around which meter errors explained the data better than a parameter: their
     #: other parameters are not fitted again until the model changes.
     by_meters: set[str] = set()
+    #: Samples with set-aside points re-admitted, and their screened candidates, while the
+    #: model stays as it is (a round that accepts nothing changes neither).
+    cache: dict[tuple[int, ...], tuple[SnapshotSample, dict]] = {}
     for _ in range(st.max_rounds):
         if not len(base) or len(found) >= st.max_errors:
             break
@@ -216,11 +219,16 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
                  and disagreeing_places(estimator.model, c, rows) >= st.min_places]
         screened = []
         for readmit, params in _by_readmitted(estimator.model, cands, available).items():
-            sample = base if not readmit else sample_from_estimates(
-                estimator, z, ins, positions, available | _mask(model.m, readmit),
-                starts=base)
-            screened += [(s, sample, readmit)
-                         for s in screen_terms(estimator.model, sample.snapshots, params)]
+            if readmit not in cache:
+                cache[readmit] = (base if not readmit else sample_from_estimates(
+                    estimator, z, ins, positions, available | _mask(model.m, readmit),
+                    starts=base), {})
+            sample, known = cache[readmit]
+            new = [p for p in params if p not in known]
+            if new:  # each term's multiplier is its own (diagonal): screened once per model
+                got = {s.term: s for s in screen_terms(estimator.model, sample.snapshots, new)}
+                known.update({p: got.get(p) for p in new})
+            screened += [(known[p], sample, readmit) for p in params if known[p] is not None]
         screened.sort(key=lambda item: -abs(item[0].multiplier))
         accepted = None
         strong = [x for x in screened if abs(x[0].multiplier) > st.multiplier_threshold]
@@ -261,7 +269,7 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
         found.append(accepted)
         # The model changed: candidates judged meter errors beside it are judged again.
         done = {r.parameter for r in found} | set(settled)
-        by_meters = set()
+        by_meters, cache = set(), {}
         available = available.copy()
         available[cleared] = True
         base = sample_from_states(estimator, z, ins, _states(joint, z.shape[0], "vm"),
