@@ -308,7 +308,8 @@ def review_site(
         model_errors=[f"{r.parameter.label()} ({r.verdict})" for r in model_errors],
     )
     return ReviewResult(site.name, period.index[0], period.index[-1], ev, diagnoses, findings,
-                        summary, clocks, model_errors, tuple(site.model_corrections))
+                        summary, clocks, model_errors=model_errors,
+                        model_corrections=tuple(site.model_corrections))
 
 
 def _judge(period: PreparedPeriod, st: ReviewSettings, progress: Progress | None,
