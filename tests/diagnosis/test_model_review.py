@@ -185,3 +185,35 @@ def test_the_simulator_never_seeds_a_model_kind_as_a_meter_fault():
 
     assert not set(MODEL_KINDS) & set(FAULT_KINDS)
     assert FindingKind.TIME_OFFSET not in FAULT_KINDS
+
+
+def test_not_separable_keeps_the_meter_finding_and_says_both():
+    """A parameter that meter errors explain as well (the comparison's "not separable", e.g. a
+    branch metered at one end only) is not applied: the meter keeps its finding, which names
+    the parameter, and the model finding names the meter and the one that would separate them
+    (common practice, no source)."""
+    from calibra.diagnosis.findings import Finding
+    from calibra.diagnosis.model_errors import ModelErrorResult
+    from calibra.diagnosis.model_review import applied, model_findings, note_alternatives
+    from calibra.estimation.meter_or_model import Verdict
+    from calibra.model.parameters import NetworkParameter
+
+    sim = generated_scenario(CASE, SEED, periods=8, freq=FREQ, faults=False)
+    trafo = str(sim.site.network.branches.index[sim.site.network.branches["kind"]
+                                                == "transformer"][0])
+    result = ModelErrorResult(
+        NetworkParameter(trafo, "tap"), 1.0, 1.025, 0.002, 0.4, Verdict.NOT_SEPARABLE, 12.0,
+        900.0, 40.0, 32, ["T.MW"], ["T.MW"], "a meter of the active-power flow at the far end",
+        "the tap of branch …")
+    meter = Finding(tag="T.MW", device="T", substation="S", finding=FindingKind.SCALE,
+                    confidence=0.99, evidence="measured ≈ 1.025 × implied", factor=1.025)
+    assert applied([result]) == []
+    findings = [meter]
+    note_alternatives(findings, [result])
+    (model,) = model_findings(sim.site, [result])
+    assert f"or the tap of branch {trafo} is wrong" in meter.evidence
+    assert f"see the model finding {trafo}:tap" in meter.evidence
+    assert model.alternative_meters == "T.MW" and "cannot tell" in model.evidence
+    assert "add a meter of the active-power flow at the far end" in model.action
+    bus = str(sim.site.network.branches.at[trafo, "from_bus"])
+    assert model.substation == str(sim.site.network.buses.at[bus, "substation"])
