@@ -14,7 +14,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from calibra.diagnosis.findings import FACTOR_KINDS, FindingKind
+from calibra.diagnosis.findings import FACTOR_KINDS, MODEL_KINDS, FindingKind
 from calibra.ledger import Ledger
 from calibra.ledger.corrections import Correction
 from calibra.ledger.states import FindingState
@@ -73,9 +73,17 @@ def carried_findings(ledger: Ledger, seen: pd.Series, corrections: list[Correcti
     entered = ledger.history()["at"] if corrections else pd.Series(dtype=object)
     rows = keep.reset_index()
     notes = []
-    for tag, state, evidence in zip(rows["tag"], rows["state"], rows["evidence"], strict=True):
+    for tag, state, evidence, kind in zip(rows["tag"], rows["state"], rows["evidence"],
+                                          rows["finding"], strict=True):
         fixes = by_tag.get(str(tag), [])
-        if state == FindingState.CORRECTED and fixes:
+        if kind in MODEL_KINDS and state == FindingState.CORRECTED:
+            notes.append(f"corrected in the reviews' model (model-corrections.csv): update the "
+                         f"network model at its source, then mark it repaired (when last "
+                         f"found: {evidence})")
+        elif kind in MODEL_KINDS:
+            notes.append(f"confirmed, not seen in this review: check the model's value (when "
+                         f"last found: {evidence})")
+        elif state == FindingState.CORRECTED and fixes:
             head = "; ".join(_correction_text(c, entered.get(c.source_action), timezone)
                              for c in fixes)
             notes.append(f"{head}: the field fix is still due (when last found: {evidence})")

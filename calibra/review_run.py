@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.diagnosis.findings import RTU_KINDS, FindingKind, findings_table
+from calibra.diagnosis.findings import MODEL_KINDS, RTU_KINDS, FindingKind, findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.estimation.engine import PeriodEngine
@@ -27,10 +27,13 @@ from calibra.open_work import carried_findings, reopened_evidence
 from calibra.progress import Progress
 from calibra.reports import (
     Sheet,
+    model_sheet,
     needing_field_work,
+    needing_model_work,
     needing_rtu_work,
     rtu_sheet,
     work_order_sheets,
+    write_model_work_orders_csv,
     write_rtu_work_orders_csv,
     write_safe_csv,
     write_work_orders_csv,
@@ -42,6 +45,8 @@ WORK_ORDERS_CSV = "work_orders.csv"
 WORK_ORDERS_PDF = "work_orders.pdf"
 #: The RTU/SCADA engineer's checks (RTU clocks), written when the review has open ones.
 RTU_WORK_ORDERS_CSV = "rtu_work_orders.csv"
+#: The network model owner's checks (model findings), written when the review has open ones.
+MODEL_WORK_ORDERS_CSV = "model_work_orders.csv"
 SUMMARY_FILE = "summary.txt"
 SUMMARY_JSON = "summary.json"
 
@@ -128,6 +133,7 @@ OUTPUT_LABELS = {
     "work_orders_csv": "work orders (spreadsheet)",
     "work_orders_pdf": "work orders (PDF sheets)",
     "rtu_work_orders_csv": "RTU/SCADA checks (spreadsheet)",
+    "model_work_orders_csv": "network model checks (spreadsheet)",
     "summary": "summary",
     "summary_json": "summary for programs (JSON)",
 }
@@ -153,21 +159,28 @@ def write_outputs(run: ReviewRun, site: Site, out: Path,
     if len(rtu_work):
         files["rtu_work_orders_csv"] = write_rtu_work_orders_csv(
             rtu_work, site.points, out / RTU_WORK_ORDERS_CSV, site_name=site.name)
+    model_work = needing_model_work(run.findings)
+    if len(model_work):
+        files["model_work_orders_csv"] = write_model_work_orders_csv(
+            model_work, out / MODEL_WORK_ORDERS_CSV, site_name=site.name)
     # Times for people on the sheets: the site's zone, as the desktop application prints them.
     tz = site.timezone
     period = (run.result.period_start.tz_convert(tz), run.result.period_end.tz_convert(tz))
-    if pdf_writer is not None and (len(field_work) or len(rtu_work)):
+    if pdf_writer is not None and (len(field_work) or len(rtu_work) or len(model_work)):
         now = pd.Timestamp.now(tz="UTC").tz_convert(tz)
         sheets = work_order_sheets(site.name, field_work, site.points, now, period=period)
         printed = list(sheets.values())
         if len(rtu_work):
             # The RTU/SCADA engineer's sheet comes after the crews' substation sheets.
             printed.append(rtu_sheet(site.name, rtu_work, site.points, now, period))
+        if len(model_work):
+            # The model owner's sheet comes last: it is not field work.
+            printed.append(model_sheet(site.name, model_work, now, period))
         files["work_orders_pdf"] = pdf_writer(printed, out / WORK_ORDERS_PDF,
                                               title=f"{site.name}: field checks",
                                               footer=site.name)
         run.notes += work_order_lines(sheets.values()) if sheets else []
-    run.notes += rtu_work_lines(rtu_work)
+    run.notes += rtu_work_lines(rtu_work) + model_work_lines(model_work)
     (out / SUMMARY_FILE).write_text("\n".join(summary_lines(run, site)) + "\n", encoding="utf-8")
     files["summary"] = out / SUMMARY_FILE
     (out / SUMMARY_JSON).write_text(json.dumps(_json_summary(run), indent=2, default=str),
@@ -196,11 +209,25 @@ def rtu_work_lines(rtu_work: pd.DataFrame) -> list[str]:
             "own sheet for the RTU/SCADA engineer"]
 
 
+def model_work_lines(model_work: pd.DataFrame) -> list[str]:
+    """What the network model's owner is asked to check ([] when nothing)."""
+    if model_work.empty:
+        return []
+    n = len(model_work)
+    names = ", ".join(sorted(set(model_work["tag"].astype(str))))
+    return [f"model checks: {n} network-model parameter{'s' if n != 1 else ''} to check "
+            f"({names}), on their own sheet for the model's owner"]
+
+
 def _json_summary(run: ReviewRun) -> dict:
     s = run.result.summary.as_dict()
     s["seconds"] = round(run.seconds, 1)
     s["review_id"] = run.review_id
     s["corrections_applied"] = [asdict(c) for c in run.corrections]
+    s["model_corrections_applied"] = [
+        {"element": c.parameter.element, "parameter": str(c.parameter.kind),
+         "decision": str(c.decision), "value": c.value, "reason": c.reason, "row": c.row}
+        for c in run.result.model_corrections]
     s["findings_by_kind"] = run.findings["finding"].value_counts().to_dict()
     return s
 
@@ -239,16 +266,23 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     if run.corrections:
         lines.append(f"software corrections applied: {len(run.corrections)} "
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")
+    lines += [f"network model as the owner decided (model-corrections.csv, row {c.row}): "
+              f"{c.describe()}" for c in r.model_corrections]
     about_rtu = run.findings["finding"].isin(RTU_KINDS)
-    n_points = run.findings.loc[~about_rtu, "tag"].nunique() if len(run.findings) else 0
+    about_model = run.findings["finding"].isin(MODEL_KINDS)
+    meters = ~about_rtu & ~about_model
+    n_points = run.findings.loc[meters, "tag"].nunique() if len(run.findings) else 0
     n_rtus = run.findings.loc[about_rtu, "tag"].nunique() if len(run.findings) else 0
+    n_model = run.findings.loc[about_model, "tag"].nunique() if len(run.findings) else 0
     lines.append(f"findings: {len(run.findings)} on {n_points} point"
                  f"{'s' if n_points != 1 else ''}"
-                 + (f" and {n_rtus} RTU{'s' if n_rtus != 1 else ''}" if n_rtus else ""))
+                 + (f" and {n_rtus} RTU{'s' if n_rtus != 1 else ''}" if n_rtus else "")
+                 + (f" and {n_model} network-model parameter{'s' if n_model != 1 else ''}"
+                    if n_model else ""))
     counts = run.findings.groupby("finding")["tag"].nunique().sort_values(ascending=False,
                                                                           kind="stable")
     for kind, n in counts.items():
-        what = "RTU" if kind in RTU_KINDS else "point"
+        what = "RTU" if kind in RTU_KINDS else "parameter" if kind in MODEL_KINDS else "point"
         lines.append(f"  {kind}: {n} {what}{'s' if n != 1 else ''}")
     for row in run.findings.sort_values(["substation", "device", "tag"]).itertuples():
         lines.append(f"  [{row.state}] {row.tag} ({row.substation}) {row.finding}: "

@@ -3,6 +3,8 @@
 With no action, the open findings are listed. ITEM is a finding id (``TAG|kind``), a tag (its
 open findings) or a device (the open findings of all its points: one CT polarity fix corrects P
 and Q at once). Times typed here are in the site's time zone unless they carry their own.
+A network-model finding (tag ``ELEMENT:PARAMETER``) is settled by its owner with ``set-model``
+(the value goes to model-corrections.csv) or ``keep-model`` (the model is right as it is).
 """
 
 from __future__ import annotations
@@ -13,12 +15,21 @@ from pathlib import Path
 import pandas as pd
 
 from calibra.cli.common import EXIT_OK, EXIT_UNUSABLE, UsageError, site_timezone
+from calibra.diagnosis.findings import MODEL_KINDS
+from calibra.io.model_corrections_file import MODEL_CORRECTIONS_FILE
 from calibra.ledger import Ledger, LedgerError
-from calibra.ledger.software_fixes import ClockNotCorrectable, apply_fixes, plan_fixes
+from calibra.ledger.model_actions import keep_model, set_model, undo_last
+from calibra.ledger.software_fixes import (
+    ClockNotCorrectable,
+    ModelNotCorrectable,
+    apply_fixes,
+    plan_fixes,
+)
 from calibra.ledger.states import OPEN_STATES, FindingState
 from calibra.model.times import for_people, read_local
 
-ACTIONS = ("confirm", "correct", "repaired", "dismiss", "note", "undo", "history")
+ACTIONS = ("confirm", "correct", "repaired", "dismiss", "note", "undo", "history",
+           "set-model", "keep-model")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -56,6 +67,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     p = action("dismiss", "dismiss the findings of ITEM, with a reason")
     p.add_argument("item")
     p.add_argument("--reason", required=True)
+    p = action("set-model", "correct the network model for a model finding ITEM: its "
+                            "parameter taken at the estimate (or --value) in every review")
+    p.add_argument("item")
+    p.add_argument("--value", type=float, default=None,
+                   help="the value to use, in the network table's unit (default: the estimate)")
+    p.add_argument("--note", default="", help="where the value comes from (datasheet, …)")
+    p = action("keep-model", "the model's value of a model finding ITEM is right as it is: "
+                             "the meters around it are the suspects")
+    p.add_argument("item")
+    p.add_argument("--reason", required=True, help="how the value was checked")
     p = action("note", "attach a note to ITEM")
     p.add_argument("item")
     p.add_argument("text")
@@ -101,6 +122,10 @@ def _correct(ledger: Ledger, rows: pd.DataFrame, args, tz: str) -> list[str]:
     valid_from = read_local(args.valid_from, tz, "--from") if args.valid_from else None
     try:
         plan = plan_fixes(rows, args.factor, args.offset)
+    except ModelNotCorrectable as exc:
+        raise UsageError(f"{exc.tag}: a network-model finding is corrected in the model, not "
+                         f"in software: calibra ledger SITE set-model {exc.tag} (or keep-model "
+                         "when the model is right)") from None
     except ClockNotCorrectable as exc:
         raise UsageError(f"{exc.tag}: an RTU clock is set right in the RTU, not in software; "
                          f"then mark it: calibra ledger SITE repaired {exc.tag} --at TIME "
@@ -110,6 +135,28 @@ def _correct(ledger: Ledger, rows: pd.DataFrame, args, tz: str) -> list[str]:
                          .replace("offset; give one", "offset; give --offset")) from None
     apply_fixes(ledger, plan, args.user, valid_from, args.note)
     return [fix.describe() for fix in plan.fixes] + [f"left as is: {why}" for why in plan.left]
+
+
+def _model_action(ledger: Ledger, rows: pd.DataFrame, args) -> None:
+    """set-model / keep-model on the model findings of ``rows``."""
+    model = rows[rows["finding"].isin(MODEL_KINDS)]
+    if model.empty:
+        kinds = ", ".join(sorted(set(rows["finding"])))
+        raise UsageError(f"{args.item}: not a network-model finding ({kinds}); set-model and "
+                         "keep-model act on model findings")
+    for fid, r in model.iterrows():
+        if args.action == "set-model":
+            set_model(ledger, args.site, fid, args.value, args.user, args.note)
+            value = args.value if args.value is not None else float(r["estimated_value"])
+            print(f"{fid}: the model's {r['parameter']} of {r['element']} is taken at "
+                  f"{value:.6g} (was {float(r['model_value']):.6g}) in every review; recorded "
+                  f"in {MODEL_CORRECTIONS_FILE}. Update the network model at its source, then "
+                  "mark it repaired")
+        else:
+            keep_model(ledger, args.site, fid, args.reason, args.user)
+            print(f"{fid}: the model's value is kept as it is; recorded in "
+                  f"{MODEL_CORRECTIONS_FILE}. The next review judges the meters around "
+                  f"{r['element']} without this parameter as an explanation")
 
 
 def _history(ledger: Ledger, item: str | None, tz: str) -> None:
@@ -169,7 +216,7 @@ def _run(ledger: Ledger, args: argparse.Namespace, tz: str) -> int:
             item = mine.iloc[-1]["finding_id"] or mine.iloc[-1]["tag"]
         else:
             item = args.item
-        ledger.undo(item, args.user)
+        undo_last(ledger, args.site, item, args.user)
         print(f"undone: the last action on {item}")
         return EXIT_OK
     rows = resolve(ledger.findings(), args.item, open_only=action not in ("note", "dismiss"))
@@ -192,6 +239,8 @@ def _run(ledger: Ledger, args: argparse.Namespace, tz: str) -> int:
         for fid in rows.index:
             ledger.dismiss(fid, args.reason, args.user)
             print(f"{fid}: dismissed")
+    elif action in ("set-model", "keep-model"):
+        _model_action(ledger, rows, args)
     elif action == "note":
         for fid in rows.index:
             ledger.add_note(fid, args.text, args.user)

@@ -26,6 +26,10 @@ class FindingKind(StrEnum):
     #: All points of one RTU stamped late (or early) by one constant time: a finding about
     #: the RTU, not a meter (``tag`` and ``rtu`` name the RTU, ``offset`` is in seconds).
     TIME_OFFSET = "time_offset"
+    #: A parameter of the network model the week's meters disagree with (``tag`` is
+    #: ``element:parameter``; ``parameter``, ``model_value``, ``estimated_value`` and
+    #: ``estimated_std`` say which and by how much): for the model's owner, not a meter.
+    MODEL = "model"
 
 
 #: Every finding kind, in the order the findings file and the lists use.
@@ -37,6 +41,10 @@ FACTOR_KINDS = (FindingKind.REVERSED, FindingKind.SCALE)
 #: Kinds about an RTU rather than one meter: for the RTU/SCADA engineer, not the field crew's
 #: checklist, and never corrected in software.
 RTU_KINDS = (FindingKind.TIME_OFFSET,)
+#: Kinds about the network model rather than a meter: for whoever owns the model, not the
+#: field crew's checklist; corrected in the model (``model-corrections.csv``), never in a
+#: meter's software correction.
+MODEL_KINDS = (FindingKind.MODEL,)
 
 
 class DiagnosisKind(StrEnum):
@@ -66,6 +74,8 @@ FINDING_COLUMNS = [
 EXTRA_COLUMNS = [
     "scope", "quantity", "element", "end", "unit", "rtu", "channel", "cause", "action",
     "matched", "until", "snapshots_used", "share_supporting", "finding_id",
+    "parameter", "model_value", "estimated_value", "estimated_std", "explains",
+    "alternative_meters",
 ]
 
 
@@ -104,6 +114,13 @@ class Finding:
     until: pd.Timestamp | None = None
     snapshots_used: int = 0
     share_supporting: float = 0.0
+    parameter: str = ""  #: model findings: r, x, b, tap, shift or shunt
+    model_value: float | None = None  #: model findings: the value the network model holds
+    estimated_value: float | None = None  #: model findings: the value the meters fit
+    estimated_std: float | None = None  #: model findings: its standard deviation
+    explains: str = ""  #: model findings: the points whose disagreement it explains (", ")
+    #: model findings: the meters whose errors explain the data as well ("" when separable)
+    alternative_meters: str = ""
     details: dict = field(default_factory=dict)
 
     @property

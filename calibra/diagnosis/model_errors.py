@@ -30,6 +30,7 @@ from calibra.estimation.meter_or_model import (
 )
 from calibra.estimation.parameter_screening import (
     candidate_parameters,
+    disagreeing_places,
     meter_terms_around,
     screen_terms,
 )
@@ -66,6 +67,14 @@ class ModelErrorSettings:
     #: errors hands on to the next candidates).
     max_rounds: int = 6
     confidence: float = 0.99
+    #: Distinct places (branch ends, bus injections, bus voltages) around a parameter whose
+    #: meters must disagree for it to be screened: one meter's or one CT's error disagrees at
+    #: its own place only, and is left to the meter judging (common practice, no source).
+    min_places: int = 2
+    #: A meter error around the parameter whose normalized multiplier is more than this many
+    #: times the parameter's explains the data better: the joint fit is skipped (as the
+    #: largest normalized residual points to a bad reading; common practice, no source).
+    meter_margin: float = 2.0
 
 
 @dataclass
@@ -170,7 +179,9 @@ def _result(estimator: Estimator, sample: SnapshotSample, cmp: MeterOrModel,
 
 def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
                       settings: ModelErrorSettings | None = None,
-                      progress: Progress | None = None) -> list[ModelErrorResult]:
+                      progress: Progress | None = None,
+                      settled: frozenset[NetworkParameter] = frozenset()
+                      ) -> list[ModelErrorResult]:
     """Wrong parameters of the network model that the week's consistent residuals point to.
 
     ``estimator``: the review's (its model is the evidence's). The points the evidence set
@@ -179,7 +190,8 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
     currents, the injections and voltages at its buses): a wrong parameter makes exactly those
     look faulty, and the comparison with meter errors decides which it is. Set-aside points that
     an accepted parameter explains (median |r|/σ then at most the residual threshold) are
-    listed as explained and join the search for the next parameter.
+    listed as explained and join the search for the next parameter. ``settled``: parameters
+    the model's owner checked and keeps as they are (never offered).
     """
     st = settings or ModelErrorSettings()
     model = evidence.model
@@ -189,7 +201,13 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
     available = ~np.asarray(evidence.set_aside, bool)
     base = sample_from_estimates(estimator, z, ins, positions, available, progress=progress)
     found: list[ModelErrorResult] = []
-    done: set[NetworkParameter] = set()
+    done: set[NetworkParameter] = set(settled)
+    #: Elements around which meter errors explained the data better than a parameter: their
+    #: other parameters are not fitted again until the model changes.
+    by_meters: set[str] = set()
+    #: Samples with set-aside points re-admitted, and their screened candidates, while the
+    #: model stays as it is (a round that accepts nothing changes neither).
+    cache: dict[tuple[int, ...], tuple[SnapshotSample, dict]] = {}
     for _ in range(st.max_rounds):
         if not len(base) or len(found) >= st.max_errors:
             break
@@ -197,23 +215,42 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
                                        np.zeros(0))
         rows = np.r_[_consistent(residuals, st.residual_threshold), np.flatnonzero(~available)]
         cands = [c for c in candidate_parameters(estimator.model, rows, st.max_candidates)
-                 if c not in done]
+                 if c not in done and c.element not in by_meters
+                 and disagreeing_places(estimator.model, c, rows) >= st.min_places]
         screened = []
         for readmit, params in _by_readmitted(estimator.model, cands, available).items():
-            sample = base if not readmit else sample_from_estimates(
-                estimator, z, ins, positions, available | _mask(model.m, readmit),
-                starts=base)
-            screened += [(s, sample, readmit)
-                         for s in screen_terms(estimator.model, sample.snapshots, params)]
+            if readmit not in cache:
+                cache[readmit] = (base if not readmit else sample_from_estimates(
+                    estimator, z, ins, positions, available | _mask(model.m, readmit),
+                    starts=base), {})
+            sample, known = cache[readmit]
+            new = [p for p in params if p not in known]
+            if new:  # each term's multiplier is its own (diagonal): screened once per model
+                got = {s.term: s for s in screen_terms(estimator.model, sample.snapshots, new)}
+                known.update({p: got.get(p) for p in new})
+            screened += [(known[p], sample, readmit) for p in params if known[p] is not None]
         screened.sort(key=lambda item: -abs(item[0].multiplier))
         accepted = None
         strong = [x for x in screened if abs(x[0].multiplier) > st.multiplier_threshold]
         if not strong:
             break
-        for s, sample, readmit in strong[:st.tried_per_round]:
+        tried = 0
+        for s, sample, readmit in strong:
+            if tried >= st.tried_per_round:
+                break
+            if s.term.element in by_meters:
+                continue
+            tried += 1
             done.add(s.term)
+            around = screen_terms(estimator.model, sample.snapshots,
+                                  meter_terms_around(estimator.model, s.term))
+            best_meter = max((abs(m.multiplier) for m in around), default=0.0)
+            if best_meter > st.meter_margin * abs(s.multiplier):
+                by_meters.add(s.term.element)  # a meter error stands out: no joint fit
+                continue
             cmp = meter_or_model(estimator, sample, s.term, st.confidence, progress=progress)
             if cmp.verdict == Verdict.METER or not cmp.estimate.converged:
+                by_meters.add(s.term.element)
                 continue
             result = _result(estimator, sample, cmp, abs(s.multiplier), st.residual_threshold)
             moved = _with_network(estimator, {result.parameter: result.estimated_value})
@@ -231,7 +268,8 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
         joint = accepted.comparison.joint
         found.append(accepted)
         # The model changed: candidates judged meter errors beside it are judged again.
-        done = {r.parameter for r in found}
+        done = {r.parameter for r in found} | set(settled)
+        by_meters, cache = set(), {}
         available = available.copy()
         available[cleared] = True
         base = sample_from_states(estimator, z, ins, _states(joint, z.shape[0], "vm"),

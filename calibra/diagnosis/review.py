@@ -20,6 +20,15 @@ from calibra.diagnosis.mismap import (
     substation_quantities,
     unit_family,
 )
+from calibra.diagnosis.model_errors import ModelErrorResult
+from calibra.diagnosis.model_review import (
+    ModelPassSettings,
+    applied,
+    corrected_period,
+    model_findings,
+    note_alternatives,
+    search_model,
+)
 from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
 from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.diagnosis.rtu_clock import (
@@ -46,6 +55,7 @@ class ReviewSettings:
     evidence: EvidenceSettings = field(default_factory=EvidenceSettings)
     classify: ClassifySettings = field(default_factory=ClassifySettings)
     clock: ClockSettings = field(default_factory=ClockSettings)
+    model: ModelPassSettings = field(default_factory=ModelPassSettings)
     #: Full-resolution passes: points found faulty but still in the estimate are set aside and
     #: the period estimated again, until nothing new is set aside.
     max_passes: int = 3
@@ -63,6 +73,11 @@ class ReviewResult:
     #: RTUs whose clock was found wrong; their points were judged with the readings moved
     #: back by the offset (``evidence`` holds those moved readings).
     clocks: list[RtuClock] = field(default_factory=list)
+    #: Wrong network parameters the week points to; those no meter error explains as well
+    #: are in the network the meters were judged on at last (``evidence.model.network``).
+    model_errors: list[ModelErrorResult] = field(default_factory=list)
+    #: The rows of the site's model-correction file its network was read with.
+    model_corrections: tuple = ()
 
 
 def period_days(ev: WeekEvidence) -> np.ndarray:
@@ -246,6 +261,13 @@ def review_site(
         # The moved readings exist only here: a cluster's workers read the files as they are.
         period = clock_corrected_period(period, clocks)
         ev, diagnoses = _judge(period, st, progress, LocalEngine())
+    model_errors = search_model(period, ev, diagnoses, st.model, progress)
+    if applied(model_errors):
+        # The meters judged again on the corrected model: those the parameter explains are
+        # not blamed, a meter fault elsewhere still is.
+        period = corrected_period(period, applied(model_errors))
+        site = period.site
+        ev, diagnoses = _judge(period, st, progress, LocalEngine())
     _propagate_device(site, ev, diagnoses)
     mismaps = _mismapped(site, ev, diagnoses)
     unverifiable = {}
@@ -266,6 +288,8 @@ def review_site(
             unverifiable[tag] = {"suggestion": "", "reason": why}
     findings = build_findings(site, ev, diagnoses, mismaps, unverifiable)
     findings += clock_findings(clocks)
+    note_alternatives(findings, model_errors)
+    findings += model_findings(site, model_errors)
     outcomes = ev.period.outcomes
     conv = outcomes["converged"].astype(bool)
     summary = ReviewSummary(
@@ -281,9 +305,11 @@ def review_site(
         status_conflicts=[c.describe(site.timezone) for c in ev.status_conflicts],
         rounds=ev.rounds,
         rtu_clocks=[c.rtu for c in clocks],
+        model_errors=[f"{r.parameter.label()} ({r.verdict})" for r in model_errors],
     )
     return ReviewResult(site.name, period.index[0], period.index[-1], ev, diagnoses, findings,
-                        summary, clocks)
+                        summary, clocks, model_errors=model_errors,
+                        model_corrections=tuple(site.model_corrections))
 
 
 def _judge(period: PreparedPeriod, st: ReviewSettings, progress: Progress | None,

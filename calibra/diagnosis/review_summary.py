@@ -28,6 +28,9 @@ class ReviewSummary:
     rounds: list[dict] = field(default_factory=list)
     #: RTUs whose clock the review found wrong (their points judged with moved readings).
     rtu_clocks: list[str] = field(default_factory=list)
+    #: Network parameters the week points to ("x of branch L7 (model)"; "not_separable" when
+    #: meter errors explain the data as well).
+    model_errors: list[str] = field(default_factory=list)
 
     def as_dict(self, rounds: bool = True) -> dict:
         """The fields as a plain dict in field order (without the rounds when ``rounds`` is

@@ -135,6 +135,23 @@ def meter_terms_around(model: MeasurementModel, parameter: NetworkParameter,
     return out
 
 
+def disagreeing_places(model: MeasurementModel, parameter: NetworkParameter,
+                       rows) -> int:
+    """How many distinct places (a branch end, a bus's injection, a bus's voltage) among the
+    meters whose values depend on the voltages at the parameter's buses hold one of ``rows``:
+    a wrong parameter makes the meters of two or more places disagree (its own and its
+    neighbours'), one meter's (or one CT's) error only its own."""
+    touched = {t.rows[0] for t in meter_terms_around(model, parameter, (MeterError.OFFSET,),
+                                                     ring=True)}
+    funcs = model.functions
+    places = set()
+    for r in set(int(i) for i in rows) & touched:
+        term = int(funcs.terminal_of[r])
+        places.add(("terminal", term) if term >= 0 else (int(funcs.code[r]),
+                                                         int(funcs.element[r])))
+    return len(places)
+
+
 def screen_terms(model: MeasurementModel, sample: list[SampleSnapshot], terms: list[Term],
                  progress: Progress | None = None) -> list[ScreenedTerm]:
     """Normalized Lagrange multipliers of ``terms`` held at their model values (meter errors

@@ -16,7 +16,10 @@ from calibra.ledger.states import AWAITING_ACTION_STATES
 
 #: Columns the list needs (a subset of findings.csv plus ``state`` and ``in_review``).
 LIST_COLUMNS = ["finding_id", "tag", "device", "substation", "finding", "confidence", "state",
-                "factor", "offset", "drift_per_day", "evidence", "in_review", "reopened"]
+                "factor", "offset", "drift_per_day", "evidence", "in_review", "reopened",
+                # a network-model finding's own columns (its details show them)
+                "element", "unit", "action", "parameter", "model_value", "estimated_value",
+                "estimated_std", "explains", "alternative_meters"]
 #: A point-list note that marks a point as being commissioned (case-insensitive).
 COMMISSIONING_NOTE = re.compile(r"commission", re.IGNORECASE)
 

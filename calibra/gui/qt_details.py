@@ -19,6 +19,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
+from calibra.diagnosis.findings import MODEL_KINDS
 from calibra.gui.qt_style import STATE_COLOURS
 from calibra.gui.run_compare import RunFigures, changed_findings, comparison_rows
 from calibra.io.site_summary import site_summary_lines
@@ -105,6 +106,36 @@ def rtu_html(site: Site, rtu: str, finding: pd.Series) -> str:
     ])
 
 
+def model_html(finding: pd.Series) -> str:
+    """A finding about a parameter of the network model: the model's value, the estimate, the
+    meters it explains and what to do, as HTML."""
+    state = str(finding.get("state", ""))
+    colour = STATE_COLOURS.get(state, "#5a6169")
+    std = finding.get("estimated_std")
+    estimate = _cell(finding.get("estimated_value"))
+    values = [("Parameter", f"{_cell(finding.get('parameter'))} of "
+                            f"{_cell(finding.get('element'))}"),
+              ("Model value", _cell(finding.get("model_value"))),
+              ("Estimate", f"{estimate} ± {_cell(std)}" if estimate else ""),
+              ("Unit", _cell(finding.get("unit"))),
+              ("Confidence", _cell(finding.get("confidence"))),
+              ("Substation", _cell(finding.get("substation"))),
+              ("Meters it explains", _cell(finding.get("explains"))),
+              ("Not separable from", _cell(finding.get("alternative_meters"))),
+              ("Suggested check", _cell(finding.get("action")))]
+    return "".join([
+        f"<h3 style='margin:2px 0'>Network model: {escape(str(finding.get('tag', '')))}</h3>",
+        f"<p style='margin:2px 0'><b>{escape(str(finding['finding']))}</b> · "
+        f"<span style='color:{colour}'>{escape(state)}</span></p>",
+        f"<p style='margin:6px 0'>{escape(str(finding.get('evidence', '')))}</p>",
+        f"<table>{_rows(values)}</table>",
+        "<p style='margin:8px 0 2px 0'>For the owner of the network model: Point ▸ Correct "
+        "the model… records the value in model-corrections.csv for every later review; Point "
+        "▸ Model value is right… closes it and leaves the meters around it as the suspects. "
+        "Advisory: check the datasheet, nameplate or tap position first.</p>",
+    ])
+
+
 def _payload_text(payload: dict, timezone: str) -> str:
     bits = []
     for key in ("factor", "offset", "reason", "note"):
@@ -186,7 +217,8 @@ class DetailTabs(QTabWidget):
     def show_point(self, site: Site | None, tag: str | None, finding: pd.Series | None) -> None:
         if site is not None and tag is not None and tag not in site.points.index \
                 and finding is not None:
-            self.point.setHtml(rtu_html(site, tag, finding))
+            model = str(finding.get("finding")) in MODEL_KINDS
+            self.point.setHtml(model_html(finding) if model else rtu_html(site, tag, finding))
             return
         if site is None or tag is None or tag not in site.points.index:
             self.point.setHtml("<p>Select a finding in the list.</p>")

@@ -270,6 +270,7 @@ class DiagramPanel(QWidget):
         self.view.scene().clear()
         self.view.diagram = None
         self.view.meter_items = {}
+        self.view.branch_items = {}  # their items went with the scene
         self.caption.setText("")
 
     def show_point(self, tag: str | None, flagged: set[str]) -> None:

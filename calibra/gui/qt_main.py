@@ -177,7 +177,8 @@ class MainWindow(QMainWindow):
         point = menu.addMenu("&Point")
         point.addAction(self.goto_action)
         for name in ("next", "previous", None, "confirm", "reversed", "scale", "offset",
-                     "repaired", "dismiss", "note", None, "undo"):
+                     "repaired", "dismiss", "note", None, "set_model", "keep_model", None,
+                     "undo"):
             point.addSeparator() if name is None else point.addAction(a[name])
         point.addSeparator()
         point.addAction(self.device_actions.correct_action)
@@ -376,7 +377,9 @@ class MainWindow(QMainWindow):
         if tag not in site.points.index:
             # A finding about an RTU (its clock): no week of its own; its points are listed.
             what = "" if row is None else f" — {row['finding']}, {row['state']}"
-            self.plots.show_trace(None, f"{tag}{what} — a finding about the RTU, not a point: "
+            about = "the network model" if row is not None and row["finding"] == "model" \
+                else "the RTU"
+            self.plots.show_trace(None, f"{tag}{what} — a finding about {about}, not a point: "
                                         "select one of its points to see its week")
             self.details.show_point(site, tag, row)
             self.details.show_history(state.history(), site.timezone)

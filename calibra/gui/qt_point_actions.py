@@ -13,7 +13,9 @@ from typing import TYPE_CHECKING
 import pandas as pd
 from PySide6.QtGui import QAction, QKeySequence
 
+from calibra.diagnosis.findings import MODEL_KINDS
 from calibra.ledger import LedgerError
+from calibra.ledger.model_actions import keep_model, set_model, undo_last
 from calibra.model.times import for_people
 
 if TYPE_CHECKING:
@@ -34,6 +36,12 @@ ACTIONS = [
      "Record the field repair time: raw values are used again after it"),
     ("dismiss", "Dismiss…", "Ctrl+Shift+D", "Dismiss the finding, with a reason"),
     ("note", "Add note…", "Ctrl+Shift+N", "Attach a note to the finding"),
+    ("set_model", "Correct the model…", "Ctrl+Shift+E",
+     "Network-model finding: take the parameter at the estimate (or a value you give) in "
+     "every later review, recorded in model-corrections.csv"),
+    ("keep_model", "Model value is right…", "Ctrl+Shift+J",
+     "Network-model finding: the model's value was checked and is right; the meters around "
+     "it are the suspects"),
     ("undo", "Undo last action", QKeySequence.Undo, "Take back the last action on the finding"),
 ]
 
@@ -51,6 +59,7 @@ class PointActions:
             "confirm": self.confirm, "reversed": self.mark_reversed, "scale": self.apply_scale,
             "offset": self.apply_offset, "repaired": self.mark_repaired,
             "dismiss": self.dismiss, "note": self.add_note, "undo": self.undo,
+            "set_model": self.set_model, "keep_model": self.keep_model,
         }
         for name, text, key, tip in ACTIONS:
             action = QAction(text, window)
@@ -172,4 +181,54 @@ class PointActions:
         if target is None:
             self.w.say("Select a point first.")
             return False
-        return self._do("last action undone", lambda: self.state.ledger.undo(target))
+        folder = self.state.site.path if self.state.site is not None else None
+        if folder is None:
+            return self._do("last action undone", lambda: self.state.ledger.undo(target))
+        return self._do("last action undone",
+                        lambda: undo_last(self.state.ledger, folder, target))
+
+    def _model_finding(self, what: str) -> tuple[str, pd.Series] | None:
+        fid, row = self.state.finding_id, self.state.finding_row()
+        if fid is None or row is None or str(row.get("finding")) not in MODEL_KINDS:
+            self.w.say(f"{what}: select a network-model finding first (the point actions act "
+                       "on meters).", warn=True)
+            return None
+        if self.state.site is None or self.state.site.path is None:
+            self.w.say(f"{what}: the site has no folder to record it in.", warn=True)
+            return None
+        return fid, row
+
+    def set_model(self, value: float | None = None) -> bool:
+        """Correct the network model: the finding's parameter at ``value`` (asked, offering
+        the estimate) from the next review on."""
+        found = self._model_finding("Correct the model")
+        if found is None:
+            return False
+        fid, row = found
+        if value is None:
+            value = self._ask_fitted("estimated_value", float(row["model_value"]),
+                                     "Correct the model",
+                                     f"{row['parameter']} of {row['element']} (the model holds "
+                                     f"{float(row['model_value']):.6g}); value to use:")
+            if value is None:
+                return False
+        folder = self.state.site.path
+        return self._do(f"the model's {row['parameter']} of {row['element']} set to "
+                        f"{value:.6g} (model-corrections.csv)",
+                        lambda: set_model(self.state.ledger, folder, fid, value))
+
+    def keep_model(self, reason: str | None = None) -> bool:
+        """The model's value is right as it is (``reason``: how it was checked)."""
+        found = self._model_finding("Model value is right")
+        if found is None:
+            return False
+        fid, row = found
+        if reason is None:
+            reason = self.w.prompts.text("Model value is right",
+                                         f"How was the {row['parameter']} of {row['element']} "
+                                         "checked (datasheet, nameplate, tap position)?")
+            if reason is None:
+                return False
+        folder = self.state.site.path
+        return self._do("the model's value kept as it is (model-corrections.csv)",
+                        lambda: keep_model(self.state.ledger, folder, fid, reason))

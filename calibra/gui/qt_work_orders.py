@@ -36,6 +36,7 @@ from calibra.reports import (
     work_order_sheets,
     write_work_orders_csv,
 )
+from calibra.reports.model_sheet import MODEL_SHEET_TITLE, model_sheet, needing_model_work
 from calibra.reports.rtu_sheet import RTU_SHEET_TITLE
 
 
@@ -60,11 +61,15 @@ class WorkOrdersDialog(QDialog):
             # The RTU/SCADA engineer's sheet (RTU clocks), after the crews' substations.
             self.sheets[RTU_SHEET_TITLE] = rtu_sheet(site.name, rtu_work, site.points, now,
                                                      period)
+        model_work = needing_model_work(findings)
+        if len(model_work):
+            # The network model owner's sheet, last: not field work.
+            self.sheets[MODEL_SHEET_TITLE] = model_sheet(site.name, model_work, now, period)
         self.pages = {name: sheet.whole_html() for name, sheet in self.sheets.items()}
         self.substations = QListWidget(self)
         for sub, sheet in self.sheets.items():
             n = len(sheet.tags)
-            what = "RTU" if sub == RTU_SHEET_TITLE else "point"
+            what = {RTU_SHEET_TITLE: "RTU", MODEL_SHEET_TITLE: "parameter"}.get(sub, "point")
             item = QListWidgetItem(f"{sub}  ({n} {what}{'s' if n != 1 else ''})")
             item.setData(Qt.UserRole, sub)
             item.setFlags(item.flags() | Qt.ItemIsUserCheckable)

@@ -17,6 +17,7 @@ import pandas as pd
 
 from calibra.io.cdf import parse_cdf
 from calibra.io.matpower import MATPOWER_SUFFIXES, parse_matpower
+from calibra.io.model_corrections_file import read_model_corrections
 from calibra.io.network_tables import BRANCHES_FILE, BUSES_FILE, read_branches, read_buses
 from calibra.io.point_list import POINTS_FILE, read_points
 from calibra.io.point_reporting import report_reporting_disagreements
@@ -33,6 +34,7 @@ from calibra.io.snapshot_size import MEMORY_LIMIT_ENV
 from calibra.io.snapshot_size import memory_limit as default_memory_limit
 from calibra.io.snapshots import empty_snapshots, plan_files, read_snapshots, snapshot_times
 from calibra.io.text_files import read_text
+from calibra.model.model_corrections import apply_model_corrections
 from calibra.model.network import Network
 from calibra.model.site import Site, SiteLoadError
 from calibra.model.times import read_local
@@ -66,17 +68,21 @@ def load_site(
     """
     folder = Path(path)
     log = ProblemLog()
-    config, network, points, point_rows, limit = _read_base(folder, memory_limit, log)
+    config, network, points, point_rows, limit, corrections = _read_base(folder, memory_limit,
+                                                                         log)
     timezone = config.timezone if config is not None else "UTC"
     period = resolve_period(start, end, timezone)
     snapshots = read_snapshots(folder, points, timezone, log, required=require_snapshots,
                                period=period, limit=limit or None,
                                settings=config.snapshots if config is not None else None)
-    return _site(folder, config, network, points, point_rows, snapshots, log, strict)
+    site = _site(folder, config, network, points, point_rows, snapshots, log, strict)
+    site.model_corrections = corrections
+    return site
 
 
 def _read_base(folder: Path, memory_limit: int | None, log: ProblemLog):
-    """Configuration, network, point list (with their rows) and the snapshot memory limit."""
+    """Configuration, network (the model-correction file applied), point list (with their
+    rows), the snapshot memory limit and the model corrections applied."""
     if not folder.is_dir():
         log.error(".", None, None, f"site folder '{folder}' not found")
         raise SiteLoadError(log.items)
@@ -87,9 +93,12 @@ def _read_base(folder: Path, memory_limit: int | None, log: ProblemLog):
         limit = None
     config = read_site_config(folder, log)
     network, buses, branches = _read_network(folder, config, log)
+    corrections = read_model_corrections(folder, network, log) if network is not None else []
+    if corrections:
+        network = apply_model_corrections(network, corrections)
     points, point_rows = read_points(folder, buses, branches, log,
                                      config.points if config is not None else None)
-    return config, network, points, point_rows, limit
+    return config, network, points, point_rows, limit, tuple(corrections)
 
 
 def _site(folder: Path, config, network, points, point_rows, snapshots, log: ProblemLog,
@@ -135,8 +144,10 @@ class SiteHistory:
         snapshots = read_snapshots(base.path, base.points, base.timezone, log, required=False,
                                    period=period, limit=self.limit or None, plans=self.plans,
                                    settings=self.config.snapshots)
-        return _site(base.path, self.config, base.network, base.points, self.point_rows,
+        site = _site(base.path, self.config, base.network, base.points, self.point_rows,
                      snapshots, log)
+        site.model_corrections = base.model_corrections
+        return site
 
 
 def open_history(path: str | Path, *, memory_limit: int | None = None) -> SiteHistory:
@@ -145,10 +156,12 @@ def open_history(path: str | Path, *, memory_limit: int | None = None) -> SiteHi
     times have errors."""
     folder = Path(path)
     log = ProblemLog()
-    config, network, points, point_rows, limit = _read_base(folder, memory_limit, log)
+    config, network, points, point_rows, limit, corrections = _read_base(folder, memory_limit,
+                                                                         log)
     plans = plan_files(folder, config.timezone if config is not None else "UTC", log)
     empty = empty_snapshots(points.index) if points is not None else None
     base = _site(folder, config, network, points, point_rows, empty, log)
+    base.model_corrections = corrections
     return SiteHistory(base, config, point_rows, plans, limit)
 
 

@@ -18,7 +18,7 @@ from pathlib import Path
 import pandas as pd
 
 import calibra
-from calibra.diagnosis.findings import EXTRA_COLUMNS, FINDING_COLUMNS, RTU_KINDS, Finding
+from calibra.diagnosis.findings import EXTRA_COLUMNS, FINDING_COLUMNS, Finding
 from calibra.ledger import _json, _rows
 from calibra.ledger._time import from_text, now_utc, to_text, to_utc
 from calibra.ledger.corrections import Correction
@@ -26,6 +26,7 @@ from calibra.ledger.schema import LEDGER_FILE_NAME, LedgerError, open_file
 from calibra.ledger.states import (
     CORRECTION_ACTIONS,
     FITTED_VALUES,
+    NOT_IN_SOFTWARE,
     NOT_UNDOABLE,
     STATES,
     Action,
@@ -483,12 +484,12 @@ class Ledger:
 
     def _require_tag(self, conn, tag: str, correction: bool = False) -> list[str]:
         """States of the tag's findings; a tag without findings is refused (likely a typo), and
-        so is a ``correction`` of an RTU's clock (set right in the RTU, then marked repaired)."""
+        so is a ``correction`` of a kind set right elsewhere (an RTU clock, a model value)."""
         rows = conn.execute("SELECT state, kind FROM findings WHERE tag = ?", (tag,)).fetchall()
         if not rows:
             raise LedgerError(f"tag {tag!r} has no finding in {self.path}")
-        if correction and all(r["kind"] in RTU_KINDS for r in rows):
-            raise LedgerError(f"{tag}: an RTU clock is set right in the RTU, not in software")
+        if correction and all(r["kind"] in NOT_IN_SOFTWARE for r in rows):
+            raise LedgerError(f"{tag}: {NOT_IN_SOFTWARE[rows[0]['kind']]}, not in software")
         return [r["state"] for r in rows]
 
     def _resolve(self, conn, finding_id_or_tag: str) -> tuple[str, str | None]:

@@ -15,7 +15,13 @@ from dataclasses import dataclass
 
 import pandas as pd
 
-from calibra.diagnosis.findings import CORRECTABLE_KINDS, FACTOR_KINDS, RTU_KINDS, FindingKind
+from calibra.diagnosis.findings import (
+    CORRECTABLE_KINDS,
+    FACTOR_KINDS,
+    MODEL_KINDS,
+    RTU_KINDS,
+    FindingKind,
+)
 from calibra.ledger.ledger import Ledger
 from calibra.ledger.schema import LedgerError
 from calibra.model.times import TimeLike
@@ -48,6 +54,16 @@ class ClockNotCorrectable(LedgerError):
         self.tag = tag
 
 
+class ModelNotCorrectable(LedgerError):
+    """A network-model finding: corrected in the model (model-corrections.csv), not in a
+    meter's software correction."""
+
+    def __init__(self, tag: str):
+        super().__init__(f"{tag}: a network-model value is corrected in the model "
+                         "(model-corrections.csv), not in a meter's software correction")
+        self.tag = tag
+
+
 @dataclass(frozen=True)
 class FixPlan:
     """The corrections to record, and the points left as they are (no finding of theirs a
@@ -73,6 +89,8 @@ def plan_fixes(rows: pd.DataFrame, factor: float | None = None,
         kinds = [FindingKind(k) for k in group["finding"] if k in CORRECTABLE_KINDS]
         if set(group["finding"]) <= set(RTU_KINDS):
             raise ClockNotCorrectable(str(tag))
+        if set(group["finding"]) <= set(MODEL_KINDS):
+            raise ModelNotCorrectable(str(tag))
         if not kinds:
             left.append(_not_correctable(str(tag), group["finding"]))
             continue

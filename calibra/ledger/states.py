@@ -9,6 +9,9 @@ States::
     new ─confirm─▶ confirmed ─correction─▶ corrected ─repair─▶ repaired ─verify─▶ verified
     (new and confirmed may also be corrected or repaired directly)
     any state ─dismiss─▶ dismissed ─confirm─▶ confirmed
+    model findings: new/confirmed ─set_model─▶ corrected (the value in model-corrections.csv;
+    the network model at its source still to update) ─repair─▶ repaired;
+    any state ─keep_model─▶ dismissed (the model's value is right: its meters are the suspects)
 
 ``reopen`` (automatic) brings a dismissed finding whose fitted values changed materially, or a
 repaired finding found again in the data after the repair, back to ``new``, flagged with the
@@ -49,6 +52,13 @@ STATES = tuple(FindingState)
 CORRECTION_ACTIONS = {"mark_reversed": FindingKind.REVERSED, "apply_scale": FindingKind.SCALE,
                       "apply_offset": FindingKind.OFFSET}
 TAG_ACTIONS = (*CORRECTION_ACTIONS, "mark_repaired")
+#: Actions of the network model's owner on a model finding (each writes one row of
+#: model-corrections.csv, which an undo takes out again).
+MODEL_ACTIONS = ("set_model", "keep_model")
+#: Finding kinds never corrected in software, and where they are set right instead.
+NOT_IN_SOFTWARE = {FindingKind.TIME_OFFSET: "an RTU clock is set right in the RTU",
+                   FindingKind.MODEL: "a network-model value is corrected in the model "
+                                      "(model-corrections.csv)"}
 #: Actions written by the review itself (user "calibra").
 AUTOMATIC_ACTIONS = ("found", "verify", "reopen")
 #: Actions an undo may not target: the first sighting of a finding, and undos themselves.
@@ -70,6 +80,9 @@ _TRANSITIONS: dict[str, dict[str | None, FindingState]] = {
                 FindingState.DISMISSED: FindingState.CONFIRMED},
     **{kind: {s: FindingState.CORRECTED for s in _OPEN} for kind in CORRECTION_ACTIONS},
     "mark_repaired": {s: FindingState.REPAIRED for s in _OPEN},
+    "set_model": {FindingState.NEW: FindingState.CORRECTED,
+                  FindingState.CONFIRMED: FindingState.CORRECTED},
+    "keep_model": {s: FindingState.DISMISSED for s in STATES if s != FindingState.DISMISSED},
     "dismiss": {s: FindingState.DISMISSED for s in STATES if s != FindingState.DISMISSED},
     "verify": {FindingState.REPAIRED: FindingState.VERIFIED},
     "reopen": {FindingState.DISMISSED: FindingState.NEW, FindingState.REPAIRED: FindingState.NEW},
@@ -141,7 +154,7 @@ def replay_tag(actions: Iterable[Action]) -> tuple[dict[str, FindingStatus], lis
                 status.reopened = ""
             if a.kind == "mark_repaired":
                 status.repaired_at = from_text(a.payload["at"])
-            elif a.kind == "dismiss":
+            elif a.kind in ("dismiss", "keep_model"):
                 status.dismissed_values = dict(a.payload.get("values", {}))
         if a.kind in CORRECTION_ACTIONS:
             corrections.append(_correction_from(a))

@@ -51,6 +51,8 @@ class Site:
     points: pd.DataFrame
     snapshots: pd.DataFrame
     problems: list[LoadProblem] = field(default_factory=list)
+    #: The rows of ``model-corrections.csv`` applied to ``network`` (ModelCorrection records).
+    model_corrections: tuple = ()
 
     @property
     def errors(self) -> list[LoadProblem]:

@@ -10,6 +10,12 @@ from calibra.reports.html import (
     work_order_sheet,
     work_order_sheets,
 )
+from calibra.reports.model_sheet import (
+    MODEL_WORK_ORDER_COLUMNS,
+    model_sheet,
+    needing_model_work,
+    write_model_work_orders_csv,
+)
 from calibra.reports.paths import (
     inside,
     safe_file_stem,
@@ -36,9 +42,11 @@ from calibra.reports.work_orders import (
 )
 
 __all__ = [
-    "FINDING_LABELS", "RTU_WORK_ORDER_COLUMNS", "SAFETY_CAUTIONS", "WORK_ORDER_COLUMNS",
+    "FINDING_LABELS", "MODEL_WORK_ORDER_COLUMNS", "RTU_WORK_ORDER_COLUMNS", "SAFETY_CAUTIONS",
+    "WORK_ORDER_COLUMNS",
     "Caution", "CheckGroup", "DeviceSection", "Sheet", "work_order_sheet", "work_order_sheets",
-    "check_groups", "checklist_items", "inside", "needing_field_work", "needing_rtu_work",
+    "check_groups", "checklist_items", "inside", "model_sheet", "needing_field_work",
+    "needing_model_work", "needing_rtu_work", "write_model_work_orders_csv",
     "rtu_sheet", "rtu_work_order_rows", "write_rtu_work_orders_csv", "safe_file_stem",
     "spreadsheet_cell", "unique_file_names", "work_order_html", "work_order_pages",
     "work_order_rows", "write_safe_csv", "write_work_orders_csv", "write_work_orders_html",

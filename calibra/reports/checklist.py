@@ -30,6 +30,7 @@ FINDING_LABELS = {
     FindingKind.MISMAPPED: "Reads another quantity",
     FindingKind.UNVERIFIABLE: "Cannot be checked remotely",
     FindingKind.TIME_OFFSET: "RTU clock offset",
+    FindingKind.MODEL: "Network model parameter",
 }
 
 _SQRT3 = math.sqrt(3.0)
@@ -224,9 +225,46 @@ def _time_offset(row: Mapping) -> list[str]:
     ]
 
 
+#: What the model's owner checks for each kind of parameter (common practice, no source).
+_MODEL_SOURCES = {
+    "r": "the conductor's or winding's resistance on the datasheet or test report, the "
+         "route length and the per-unit base",
+    "x": "the line's or transformer's reactance on the datasheet or test report (for a "
+         "transformer its impedance voltage on the nameplate), the route length and the "
+         "per-unit base",
+    "b": "the line's charging on the datasheet, the route length and any cable sections",
+    "tap": "the tap position the transformer runs at (its tap position indication), the step "
+           "size and the nominal ratio on the nameplate",
+    "shift": "the phase shift on the nameplate (vector group or phase-shifter setting)",
+    "shunt": "the reactor's or capacitor bank's rating and whether it is in service",
+}
+
+
+def _model(row: Mapping) -> list[str]:
+    """Checks of a network-model parameter (for the model's owner, not the field crew)."""
+    parameter = text(row, "parameter")
+    element = text(row, "element") or text(row, "tag")
+    model, estimate = number(row, "model_value"), number(row, "estimated_value")
+    std = number(row, "estimated_std")
+    values = ""
+    if model is not None and estimate is not None:
+        spread = f" ± {fmt(std, 3)}" if std is not None else ""
+        values = f" (the model holds {fmt(model, 5)}, the meters fit {fmt(estimate, 5)}{spread})"
+    source = _MODEL_SOURCES.get(parameter, "the datasheet, nameplate and as-built drawings")
+    return [
+        f"Model value of {parameter or 'the parameter'} of {element}{values}: compare it with "
+        f"{source}.",
+        "As-built drawings: check that the element in the model is the one built (route, "
+        "conductor, transformer, connections).",
+        "If the estimate is right, correct the model (the review's model-correction file, then "
+        "the network model at its source); if the model is right, record that it is, so the "
+        "meters around it are checked in the field instead.",
+    ]
+
+
 _CHECKS: dict[str, Callable[[Mapping], list[str]]] = {
     FindingKind.REVERSED: _reversed, FindingKind.SCALE: _scale, FindingKind.OFFSET: _offset,
     FindingKind.DRIFT: _drift, FindingKind.STUCK: _stuck, FindingKind.NOISY: _noisy,
     FindingKind.MISMAPPED: _mismapped, FindingKind.UNVERIFIABLE: _unverifiable,
-    FindingKind.TIME_OFFSET: _time_offset,
+    FindingKind.TIME_OFFSET: _time_offset, FindingKind.MODEL: _model,
 }

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.diagnosis.findings import RTU_KINDS
+from calibra.diagnosis.findings import MODEL_KINDS, RTU_KINDS
 from calibra.ledger.states import OPEN_STATES
 from calibra.reports._values import number, text
 from calibra.reports.checklist import FINDING_LABELS, checklist_items
@@ -59,9 +59,10 @@ def _open(findings: pd.DataFrame) -> pd.DataFrame:
 def needing_field_work(findings: pd.DataFrame) -> pd.DataFrame:
     """The meter findings a crew still has to look at: all of them, or, when the frame carries
     the ledger's ``state``, those new, confirmed or only corrected in software. Findings about
-    an RTU (its clock) are for the RTU/SCADA engineer: :func:`needing_rtu_work`."""
-    about_rtu = findings["finding"].isin(RTU_KINDS)
-    return _open(findings[~about_rtu] if about_rtu.any() else findings)
+    an RTU (its clock) are for the RTU/SCADA engineer: :func:`needing_rtu_work`; those about
+    the network model for its owner (:mod:`calibra.reports.model_sheet`)."""
+    elsewhere = findings["finding"].isin((*RTU_KINDS, *MODEL_KINDS))
+    return _open(findings[~elsewhere] if elsewhere.any() else findings)
 
 
 def needing_rtu_work(findings: pd.DataFrame) -> pd.DataFrame:

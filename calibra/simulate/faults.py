@@ -20,12 +20,13 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibra.diagnosis.findings import FACTOR_KINDS, RTU_KINDS, FindingKind
+from calibra.diagnosis.findings import FACTOR_KINDS, MODEL_KINDS, RTU_KINDS, FindingKind
 from calibra.model.points import ANALOG_QUANTITIES, default_sigma
 
 #: Kinds of seeded fault: the finding kinds a fault of the meter itself produces.
 FAULT_KINDS = tuple(k for k in FindingKind
-                    if k != FindingKind.UNVERIFIABLE and k not in RTU_KINDS)
+                    if k != FindingKind.UNVERIFIABLE and k not in RTU_KINDS
+                    and k not in MODEL_KINDS)
 TRUTH_COLUMNS = [
     "fault", "tag", "device", "kind", "factor", "offset", "drift_per_day", "onset",
     "noise_factor", "swapped_with", "detail",
