@@ -230,6 +230,7 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     lines += [f"not estimated: {why}" for why in s.estimation_failures]
     lines += availability_lines(site)
     lines += [f"status point contradicted: {c}" for c in s.status_conflicts]
+    lines += [f"tap position not usable: {c}" for c in s.tap_fallbacks]
     first = s.rounds[0] if s.rounds else None
     if first:
         lines.append(f"chi-square failures with every point in: {first['chi2_failed']} of "

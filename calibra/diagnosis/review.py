@@ -29,6 +29,9 @@ from calibra.diagnosis.rtu_clock import (
     clock_findings,
     find_rtu_clocks,
 )
+from calibra.diagnosis.tap_findings import tap_findings
+from calibra.diagnosis.tap_positions import TapSettings
+from calibra.diagnosis.tap_review import TapReview, review_taps
 from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.engine import LocalEngine, PeriodEngine
 from calibra.estimation.period import PreparedPeriod, prepare_period
@@ -46,6 +49,7 @@ class ReviewSettings:
     evidence: EvidenceSettings = field(default_factory=EvidenceSettings)
     classify: ClassifySettings = field(default_factory=ClassifySettings)
     clock: ClockSettings = field(default_factory=ClockSettings)
+    taps: TapSettings = field(default_factory=TapSettings)
     #: Full-resolution passes: points found faulty but still in the estimate are set aside and
     #: the period estimated again, until nothing new is set aside.
     max_passes: int = 3
@@ -63,6 +67,8 @@ class ReviewResult:
     #: RTUs whose clock was found wrong; their points were judged with the readings moved
     #: back by the offset (``evidence`` holds those moved readings).
     clocks: list[RtuClock] = field(default_factory=list)
+    #: The verdicts on the site's taps (tap-position points, untelemetered moving taps).
+    taps: TapReview = field(default_factory=TapReview)
 
 
 def period_days(ev: WeekEvidence) -> np.ndarray:
@@ -241,6 +247,9 @@ def review_site(
     st = settings or ReviewSettings()
     period = prepare_period(site) if period is None else period
     ev, diagnoses = _judge(period, st, progress, engine)
+    taps, period, ev, diagnoses = review_taps(
+        period, ev, diagnoses, lambda p: _judge(p, st, progress, LocalEngine()), st.taps,
+        progress)
     clocks = find_rtu_clocks(period, ev, diagnoses, st.clock, st.evidence, progress, engine)
     if clocks:
         # The moved readings exist only here: a cluster's workers read the files as they are.
@@ -266,6 +275,7 @@ def review_site(
             unverifiable[tag] = {"suggestion": "", "reason": why}
     findings = build_findings(site, ev, diagnoses, mismaps, unverifiable)
     findings += clock_findings(clocks)
+    findings += tap_findings(site, taps.verdicts, period.index)
     outcomes = ev.period.outcomes
     conv = outcomes["converged"].astype(bool)
     summary = ReviewSummary(
@@ -281,9 +291,10 @@ def review_site(
         status_conflicts=[c.describe(site.timezone) for c in ev.status_conflicts],
         rounds=ev.rounds,
         rtu_clocks=[c.rtu for c in clocks],
+        tap_fallbacks=[f.describe() for f in period.tap_fallbacks],
     )
     return ReviewResult(site.name, period.index[0], period.index[-1], ev, diagnoses, findings,
-                        summary, clocks)
+                        summary, clocks, taps)
 
 
 def _judge(period: PreparedPeriod, st: ReviewSettings, progress: Progress | None,

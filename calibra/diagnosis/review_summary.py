@@ -28,6 +28,8 @@ class ReviewSummary:
     rounds: list[dict] = field(default_factory=list)
     #: RTUs whose clock the review found wrong (their points judged with moved readings).
     rtu_clocks: list[str] = field(default_factory=list)
+    #: Tap-position points that gave no usable step somewhere (the model's tap used there).
+    tap_fallbacks: list[str] = field(default_factory=list)
 
     def as_dict(self, rounds: bool = True) -> dict:
         """The fields as a plain dict in field order (without the rounds when ``rounds`` is
