@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.diagnosis.findings import RTU_KINDS, FindingKind, findings_table
+from calibra.diagnosis.findings import RTU_KINDS, TAP_KINDS, FindingKind, findings_table
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.estimation.engine import PeriodEngine
@@ -190,10 +190,14 @@ def rtu_work_lines(rtu_work: pd.DataFrame) -> list[str]:
     """What the RTU/SCADA engineer is asked to check ([] when nothing)."""
     if rtu_work.empty:
         return []
-    names = ", ".join(sorted(set(rtu_work["tag"].astype(str))))
-    n = len(rtu_work)
-    return [f"RTU checks: {n} RTU clock{'s' if n != 1 else ''} to check ({names}), on their "
-            "own sheet for the RTU/SCADA engineer"]
+    taps = rtu_work["finding"].isin(TAP_KINDS)
+    parts = []
+    for rows, what in ((rtu_work[~taps], "RTU clock"), (rtu_work[taps], "tap changer")):
+        if len(rows):
+            names = ", ".join(sorted(set(rows["tag"].astype(str))))
+            parts.append(f"{len(rows)} {what}{'s' if len(rows) != 1 else ''} ({names})")
+    return [f"RTU checks: {' and '.join(parts)} to check, on their own sheet for the RTU/SCADA "
+            "engineer"]
 
 
 def _json_summary(run: ReviewRun) -> dict:
@@ -240,16 +244,20 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     if run.corrections:
         lines.append(f"software corrections applied: {len(run.corrections)} "
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")
-    about_rtu = run.findings["finding"].isin(RTU_KINDS)
-    n_points = run.findings.loc[~about_rtu, "tag"].nunique() if len(run.findings) else 0
+    about_tap = run.findings["finding"].isin(TAP_KINDS)
+    about_rtu = run.findings["finding"].isin(RTU_KINDS) & ~about_tap
+    n_points = run.findings.loc[~about_rtu & ~about_tap, "tag"].nunique() \
+        if len(run.findings) else 0
     n_rtus = run.findings.loc[about_rtu, "tag"].nunique() if len(run.findings) else 0
+    n_taps = run.findings.loc[about_tap, "tag"].nunique() if len(run.findings) else 0
     lines.append(f"findings: {len(run.findings)} on {n_points} point"
                  f"{'s' if n_points != 1 else ''}"
-                 + (f" and {n_rtus} RTU{'s' if n_rtus != 1 else ''}" if n_rtus else ""))
+                 + (f" and {n_rtus} RTU{'s' if n_rtus != 1 else ''}" if n_rtus else "")
+                 + (f" and {n_taps} tap changer{'s' if n_taps != 1 else ''}" if n_taps else ""))
     counts = run.findings.groupby("finding")["tag"].nunique().sort_values(ascending=False,
                                                                           kind="stable")
     for kind, n in counts.items():
-        what = "RTU" if kind in RTU_KINDS else "point"
+        what = "tap changer" if kind in TAP_KINDS else "RTU" if kind in RTU_KINDS else "point"
         lines.append(f"  {kind}: {n} {what}{'s' if n != 1 else ''}")
     for row in run.findings.sort_values(["substation", "device", "tag"]).itertuples():
         lines.append(f"  [{row.state}] {row.tag} ({row.substation}) {row.finding}: "

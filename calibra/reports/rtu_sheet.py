@@ -99,7 +99,9 @@ def rtu_sheet(site_name: str, findings: pd.DataFrame, points: pd.DataFrame | Non
                     for c in cautions)
     opening = [
         f"<h1>{escape(RTU_SHEET_TITLE)}</h1>" + _header(site_name, generated_at, period,
-                                                         len(devices)),
+                                                         len(devices),
+                                                         bool(findings["finding"]
+                                                              .isin(TAP_KINDS).any())),
         "<h2>Safety: read before starting</h2>" + ruled_table('class="safety"', 4)
         + f"<tr><td><ul>{items}</ul></td></tr></table>",
     ]
@@ -117,10 +119,13 @@ def _cautions(findings: pd.DataFrame) -> tuple[Caution, ...]:
 
 
 def _header(site_name: str, generated_at: TimeLike, period: Sequence[TimeLike] | None,
-            n_rtus: int) -> str:
+            n_rtus: int, taps: bool = False) -> str:
     span = "not given" if period is None else f"{when(period[0])} to {when(period[1])}"
-    cells = [("Site", site_name), ("For", "the RTU/SCADA engineer"), ("Review period", span),
-             ("Prepared", when(generated_at)), ("RTUs to check", str(n_rtus))]
+    cells = [("Site", site_name), ("For", "the RTU/SCADA engineer"
+                                   + (" and the protection and control engineer" if taps
+                                      else "")),
+             ("Review period", span), ("Prepared", when(generated_at)),
+             ("RTUs and tap changers to check" if taps else "RTUs to check", str(n_rtus))]
     rows = "".join(f"<tr><td><b>{escape(k)}</b></td><td>{escape(str(v))}</td></tr>"
                    for k, v in cells)
     return f"<table cellpadding=\"1\" cellspacing=\"0\">{rows}</table>"
