@@ -42,7 +42,7 @@ class TapSettings:
     frozen_steps: float = 1.5  #: implied motion (steps) under a constant telemetered step
     moving_pct: float = 1.0  #: range of implied ratio (% of nominal) of an unreported moving tap
     unreported_hours: float = 1.0  #: chunks of the ratio series used for an unreported tap
-    max_candidates: int = 2  #: untelemetered transformers examined per review
+    max_candidates: int = 3  #: untelemetered transformers examined per review
     #: Meters around an untelemetered transformer, with faults no single meter error fits
     #: well, that make it worth examining.
     min_unexplained: int = 2

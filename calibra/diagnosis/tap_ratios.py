@@ -39,6 +39,7 @@ class RatioRun:
     ratio: float  # implied ratio of the tapped side
     std: float  # its standard deviation (joint-fit covariance)
     snapshots: int  # snapshots of the joint fit
+    drop: float = 0.0  # how much the fitted ratio lowers the snapshots' WLS objective
 
 
 def constant_runs(values: np.ndarray, index: pd.DatetimeIndex, max_hours: float,
@@ -82,13 +83,18 @@ def neighbour_rows(ev: WeekEvidence, branch: str) -> np.ndarray:
 
 def implied_ratios(period: PreparedPeriod, ev: WeekEvidence, branch: str,
                    runs: list[tuple[int, int]], steps: np.ndarray | None = None,
-                   per_run: int = 4, progress: Progress | None = None) -> list[RatioRun]:
+                   per_run: int = 4, progress: Progress | None = None,
+                   keep: np.ndarray | None = None) -> list[RatioRun]:
     """The implied ratio of ``branch``'s tapped side in each run (runs whose fit fails or
-    whose state is missing are left out). ``steps``: the telemetered step per snapshot."""
+    whose state is missing are left out). ``steps``: the telemetered step per snapshot;
+    ``keep``: further rows to use although set aside (so that the fits of several branches
+    use one measurement set and their objectives compare)."""
     net = period.site.network
     b = int(net.branch_positions([branch])[0])
     available = ~ev.set_aside
     available[neighbour_rows(ev, branch)] = True
+    if keep is not None:
+        available[keep] = True
     state = period.in_service.astype(float)
     on = branch_status(period.in_service)[:, b]
     state[:, b] = np.where(on, 1.0, 0.0)
@@ -105,7 +111,7 @@ def implied_ratios(period: PreparedPeriod, ev: WeekEvidence, branch: str,
         fit = _fit(period, ev, state, pick, available, parameter, t_model)
         if fit is None:
             return None
-        t, sd, n = fit
+        t, sd, n, drop = fit
         ratio, std = t, sd
         if on_to:
             # The ideal ratio:1 at the to bus acts, to first order, as t_model/ratio on the
@@ -117,10 +123,10 @@ def implied_ratios(period: PreparedPeriod, ev: WeekEvidence, branch: str,
             fit = _fit(period, ev, again, pick, available, parameter, t_model)
             if fit is None:
                 return None
-            rest, sd, n = fit
+            rest, sd, n, drop = fit[0], fit[1], fit[2], drop + fit[3]
             ratio, std = ratio * t_model / rest, ratio * t_model * sd / rest ** 2
         step = float(steps[a]) if steps is not None else float("nan")
-        return RatioRun(a, c, step, float(ratio), float(std), n)
+        return RatioRun(a, c, step, float(ratio), float(std), n, float(drop))
 
     if progress is not None:
         progress.update(0, 1, f"tap ratio of {branch} in {len(runs)} runs")
@@ -130,10 +136,10 @@ def implied_ratios(period: PreparedPeriod, ev: WeekEvidence, branch: str,
 
 def _fit(period: PreparedPeriod, ev: WeekEvidence, state: np.ndarray, pick: np.ndarray,
          available: np.ndarray, parameter: NetworkParameter, start: float
-         ) -> tuple[float, float, int] | None:
+         ) -> tuple[float, float, int, float] | None:
     """The from-side ratio of ``parameter``'s branch jointly with the states of the snapshots
-    ``pick`` (value, σ, snapshots), None when the fit fails. A ratio to 1e-7 is far finer
-    than a step (0.6-1.3 %)."""
+    ``pick`` (value, σ, snapshots, objective drop), None when the fit fails. A ratio to 1e-7
+    is far finer than a step (0.6-1.3 %)."""
     sample = sample_from_states(period.estimator, period.z, state, ev.period.vm, ev.period.va,
                                 pick, available)
     if len(sample) == 0:
@@ -143,4 +149,5 @@ def _fit(period: PreparedPeriod, ev: WeekEvidence, state: np.ndarray, pick: np.n
     value, var = float(fit.values[0]), float(fit.covariance[0, 0])
     if not fit.converged or not np.isfinite(value) or not np.isfinite(var) or value <= 0:
         return None
-    return value, float(np.sqrt(max(var, 0.0))), fit.snapshots
+    return (value, float(np.sqrt(max(var, 0.0))), fit.snapshots,
+            float(fit.objective_before - fit.objective_after))

@@ -130,20 +130,38 @@ def _candidates(period: PreparedPeriod, ev: WeekEvidence, diagnoses: dict,
     return ranked[:st.max_candidates]
 
 
-def _unreported(period: PreparedPeriod, ev: WeekEvidence, branch: str, st: TapSettings,
-                progress: Progress | None) -> TapVerdict | None:
-    k = len(period.index)
-    flat = np.zeros(k)
-    chunks = constant_runs(flat, period.index, st.run_hours, st.min_run)
-    ratios = implied_ratios(period, ev, branch, chunks, None, st.per_run, progress)
+def _moving(period: PreparedPeriod, ev: WeekEvidence, branch: str, st: TapSettings,
+            progress: Progress | None, keep: np.ndarray) -> tuple[float, float]:
+    """How much a ratio per chunk of ``run_hours`` lowers the objective (0 when it does not
+    step back and forth), and the significance of its motion."""
+    chunks = constant_runs(np.zeros(len(period.index)), period.index, st.run_hours, st.min_run)
+    ratios = implied_ratios(period, ev, branch, chunks, None, st.per_run, progress, keep)
     moving, t = moving_ratio(ratios, st)
-    if not moving:
-        return None
-    fine = constant_runs(flat, period.index, st.unreported_hours, st.min_run)
-    fine_ratios = implied_ratios(period, ev, branch, fine, None, st.per_chunk, progress) or ratios
+    return (sum(r.drop for r in ratios) if moving else 0.0), t
+
+
+def _unreported(period: PreparedPeriod, ev: WeekEvidence, diagnoses: dict, st: TapSettings,
+                progress: Progress | None) -> list[TapVerdict]:
+    """The untelemetered transformer whose moving ratio explains the most (at most one per
+    review: a moving tap disturbs meters around other transformers too)."""
+    candidates = _candidates(period, ev, diagnoses, st)
+    if not candidates:
+        return []
+    # One measurement set for every candidate's fits: their objective drops compare.
+    keep = np.unique(np.concatenate([neighbour_rows(ev, b) for b in candidates]))
+    scored = [(b, *_moving(period, ev, b, st, progress, keep)) for b in candidates]
+    scored = [s for s in scored if s[1] > 0]
+    if not scored:
+        return []
+    branch, _, t = max(scored, key=lambda s: s[1])
+    k = len(period.index)
+    fine = constant_runs(np.zeros(k), period.index, st.unreported_hours, st.min_run)
+    fine_ratios = implied_ratios(period, ev, branch, fine, None, st.per_chunk, progress, keep)
+    if len(fine_ratios) < 2:
+        return []
     factors = factors_from_runs(fine_ratios, k, model_side_ratio(period.site.network, branch))
-    return TapVerdict(branch, "", FindingKind.TAP_UNREPORTED, fine_ratios, t_statistic=t,
-                      factors=factors)
+    return [TapVerdict(branch, "", FindingKind.TAP_UNREPORTED, fine_ratios, t_statistic=t,
+                       factors=factors)]
 
 
 def review_taps(period: PreparedPeriod, ev: WeekEvidence, diagnoses: dict, judge: Judge,
@@ -153,15 +171,17 @@ def review_taps(period: PreparedPeriod, ev: WeekEvidence, diagnoses: dict, judge
     (judged again with the implied ratios where a tap was found wrong or moving)."""
     st = settings or TapSettings()
     verdicts = _telemetered(period, ev, st, progress)
-    unreported = [v for b in _candidates(period, ev, diagnoses, st)
-                  if (v := _unreported(period, ev, b, st, progress)) is not None]
+    unreported = _unreported(period, ev, diagnoses, st, progress)
     review = TapReview(verdicts + unreported)
     if not review.faults:
         return review, period, ev, diagnoses
     tapped = review.applied(period)
     ev2, diag2 = judge(tapped)
+    faults_before, faults_after = (sum(d.kind not in NO_FAULT for d in dd.values())
+                                   for dd in (diagnoses, diag2))
     cleared = [v for v in unreported
-               if suspects_near(ev2, diag2, v.branch) < suspects_near(ev, diagnoses, v.branch)]
+               if suspects_near(ev2, diag2, v.branch) < suspects_near(ev, diagnoses, v.branch)
+               and faults_after < faults_before]
     if len(cleared) == len(unreported):
         return review, tapped, ev2, diag2
     review = TapReview(verdicts + cleared)
