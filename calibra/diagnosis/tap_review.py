@@ -30,6 +30,7 @@ from calibra.diagnosis.tap_ratios import constant_runs, implied_ratios, neighbou
 from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.tap_settings import telemetered_steps
 from calibra.model.network import branch_status
+from calibra.model.points import tap_points
 from calibra.model.tap_changers import model_side_ratio, tap_changers
 from calibra.progress import Progress
 
@@ -114,10 +115,7 @@ def _candidates(period: PreparedPeriod, ev: WeekEvidence, diagnoses: dict,
     all clean meter errors examines none)."""
     site = period.site
     br = site.network.branches
-    telemetered = set(telemetered_steps(site.network, site.points,
-                                        site.snapshots.iloc[:0]).keys())
-    telemetered |= set(site.points.loc[site.points["quantity"] == "tap_position", "element"]
-                       .astype(str))
+    telemetered = set(tap_points(site.points)["element"].astype(str))
     shifted = br["shift_deg"].fillna(0.0).to_numpy(float) != 0
     transformers = br.index[(br["kind"] == "transformer").to_numpy() & ~shifted]
     if not any(_unexplained(d) for d in diagnoses.values()):
