@@ -137,12 +137,16 @@ def rtu_work_order_rows(findings: pd.DataFrame, points: pd.DataFrame | None,
     records = []
     for _, row in findings.iterrows():
         rtu = _rtu_of(row)
+        tap = text(row, "finding") in TAP_KINDS
+        # A tap finding's offset is in steps (its evidence says so), and its point is its own.
+        listed = ([text(row, "tag")] if points is not None and text(row, "tag") in points.index
+                  else []) if tap else rtu_points(points, rtu)
         for check in checklist_items(row):
             records.append({
                 "site": site_name, "rtu": rtu, "substation": text(row, "substation"),
                 "finding": FINDING_LABELS.get(text(row, "finding"), text(row, "finding")),
-                "offset_s": number(row, "offset"),
-                "points": ", ".join(rtu_points(points, rtu)),
+                "offset_s": None if tap else number(row, "offset"),
+                "points": ", ".join(listed),
                 "evidence": text(row, "evidence"), "check": check,
                 "as_found": "", "as_left": "", "initials": "", "date": "",
             })

@@ -100,3 +100,7 @@ def test_tap_findings_go_to_the_rtu_sheet_with_the_oltc_caution(findings, points
     path = write_rtu_work_orders_csv(due, points, tmp_path / "rtu.csv", site_name="Fernhollow")
     text = path.read_text(encoding="utf-8-sig")
     assert "position transmitter" in text and "tap_step_pct" in text
+    with path.open(encoding="utf-8-sig", newline="") as handle:
+        rows = [r for r in csv.DictReader(handle) if r["finding"] == "Tap position offset"]
+    # Not the RTU's analog points (the fixture's point list has no tap point).
+    assert rows and all(r["offset_s"] == "" and r["points"] == "" for r in rows)
