@@ -9,6 +9,7 @@ required.
     python benchmarks/diagnosis_scenarios.py [--cases case57 case118] [--seeds 1 2 3]
            [--periods 2016] [--freq 5min] [--coverage 0.55 --sparse] [--bare-status]
            [--deadband 0.3 --bits 12 [--stated]] [--clean] [--rtu-lag MINUTES]
+           [--moving-taps N [--untelemetered] [--tap-fault KIND]]
 
 ``--cases`` takes pypower's IEEE cases and pandapower's published networks
 (``tests/published.py``: case89pegase, iceland, GBreducednetwork, case1354pegase, …).
@@ -18,6 +19,10 @@ no fault (every finding is a false alarm); ``--stated`` writes the deadband and 
 readings were stored with into the point list (otherwise the review infers them from the data);
 ``--rtu-lag`` makes one random RTU's clock run that many minutes late (negative: early), scored
 as a ``time_offset`` truth row whose offset error is printed against the snapshot interval.
+``--moving-taps`` gives that many metered transformers a moving on-load tap changer, with a
+tap-position point each (``--untelemetered``: none, the model holds the ratio) and
+``--tap-fault`` on the first point (tap_offset, tap_inverted, tap_frozen, tap_step_size); tap
+truth is scored apart from the meters (columns tap_*), and the meter columns leave it out.
 Peak memory: proportional set size of the process
 tree (benchmarks/process_memory.py).
 """
@@ -37,9 +42,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from process_memory import PeakMemory  # noqa: E402  (benchmarks/ is on the path as a script)
 
-from calibra.diagnosis.findings import findings_table  # noqa: E402
+from calibra.diagnosis.findings import TAP_KINDS, findings_table  # noqa: E402
 from calibra.diagnosis.review import review_site  # noqa: E402
 from calibra.simulate.metering import MeteringOptions  # noqa: E402
+from calibra.simulate.tap_motion import OltcOptions  # noqa: E402
 from calibra.simulate.telemetry import TelemetryOptions  # noqa: E402
 from tests.diagnosis.scenarios import detectable_faults, generated_scenario  # noqa: E402
 from tests.diagnosis.scoring import score  # noqa: E402
@@ -63,7 +69,14 @@ def main() -> None:
     ap.add_argument("--clean", action="store_true", help="no faults: count false alarms")
     ap.add_argument("--rtu-lag", type=float, default=0.0, metavar="MINUTES",
                     help="one random RTU's clock this many minutes late (0: none)")
+    ap.add_argument("--moving-taps", type=int, default=0, metavar="N",
+                    help="transformers with a moving on-load tap changer (0: none)")
+    ap.add_argument("--untelemetered", action="store_true",
+                    help="moving taps without tap-position points")
+    ap.add_argument("--tap-fault", default="", help="fault of the first tap-position point")
     args = ap.parse_args()
+    oltc = OltcOptions(transformers=args.moving_taps, telemetered=not args.untelemetered,
+                       fault=args.tap_fault) if args.moving_taps else None
     metering = MeteringOptions(independent_ends=args.sparse,
                                bare_status_points=args.bare_status)
     if args.coverage is not None:
@@ -71,7 +84,8 @@ def main() -> None:
                                    independent_ends=args.sparse,
                                    bare_status_points=args.bare_status)
     telemetry = TelemetryOptions(deadband_pct=args.deadband, resolution_bits=args.bits,
-                                 state_storage=args.stated, rtu_lag_minutes=args.rtu_lag)
+                                 state_storage=args.stated, rtu_lag_minutes=args.rtu_lag,
+                                 oltc=oltc)
     rows = []
     for case in args.cases:
         for seed in args.seeds:
@@ -83,13 +97,18 @@ def main() -> None:
                 res = review_site(sim.site)
             dt = time.perf_counter() - t
             table = findings_table(res.findings)
-            s = score(table, sim.truth, detectable_faults(sim))
+            is_tap = sim.truth["kind"].isin(TAP_KINDS)
+            taps = score(table[table.finding.isin(TAP_KINDS)], sim.truth[is_tap])
+            s = score(table[~table.finding.isin(TAP_KINDS)], sim.truth[~is_tap],
+                      detectable_faults(sim))
             rows.append({"case": case, "seed": seed, "points": len(sim.site.points),
-                         "faults": len(sim.truth) - (sim.rtu_lag is not None),
+                         "faults": int((~is_tap).sum()) - (sim.rtu_lag is not None),
                          "undetectable": len(s.undetectable),
                          "found": len(s.found) - len(s.clock_errors_s),
                          "missed": len(s.missed), "wrong": len(s.wrong_kind),
                          "false": len(s.false_alarms),
+                         "tap_truth": int(is_tap.sum()), "tap_found": len(taps.found),
+                         "tap_wrong": len(taps.wrong_kind), "tap_false": len(taps.false_alarms),
                          "unverifiable": int((table.finding == "unverifiable").sum()),
                          "rtu_lag": sim.rtu_lag[0] if sim.rtu_lag else "",
                          "clock_error_s": next(iter(s.clock_errors_s.values()), ""),
@@ -98,9 +117,16 @@ def main() -> None:
             print(rows[-1], flush=True)
             for item in s.missed:
                 print("   missed", item, sim.truth.loc[sim.truth.tag == item, "kind"].tolist())
-            for item in s.wrong_kind + s.false_alarms:
+            for item in s.wrong_kind + s.false_alarms + taps.wrong_kind + taps.false_alarms:
                 print("   ", item)
-    print(pd.DataFrame(rows).to_string())
+    table = pd.DataFrame(rows)
+    print(table.to_string())
+    found, missed = table["found"].sum(), table["missed"].sum()
+    wrong, false = table["wrong"].sum(), table["false"].sum()
+    print(f"meters: recall {found / max(found + missed + wrong, 1):.3f}, precision "
+          f"{found / max(found + wrong + false, 1):.3f}; taps: found "
+          f"{table['tap_found'].sum()} of {table['tap_truth'].sum()}, wrong kind "
+          f"{table['tap_wrong'].sum()}, false {table['tap_false'].sum()}")
 
 
 if __name__ == "__main__":

@@ -14,7 +14,13 @@ from pathlib import Path
 
 import pandas as pd
 
-from calibra.diagnosis.findings import MODEL_KINDS, RTU_KINDS, FindingKind, findings_table
+from calibra.diagnosis.findings import (
+    MODEL_KINDS,
+    RTU_KINDS,
+    TAP_KINDS,
+    FindingKind,
+    findings_table,
+)
 from calibra.diagnosis.review import ReviewResult, ReviewSettings, review_site
 from calibra.diagnosis.review_summary import ReviewSummary
 from calibra.estimation.engine import PeriodEngine
@@ -203,10 +209,14 @@ def rtu_work_lines(rtu_work: pd.DataFrame) -> list[str]:
     """What the RTU/SCADA engineer is asked to check ([] when nothing)."""
     if rtu_work.empty:
         return []
-    names = ", ".join(sorted(set(rtu_work["tag"].astype(str))))
-    n = len(rtu_work)
-    return [f"RTU checks: {n} RTU clock{'s' if n != 1 else ''} to check ({names}), on their "
-            "own sheet for the RTU/SCADA engineer"]
+    taps = rtu_work["finding"].isin(TAP_KINDS)
+    parts = []
+    for rows, what in ((rtu_work[~taps], "RTU clock"), (rtu_work[taps], "tap changer")):
+        if len(rows):
+            names = ", ".join(sorted(set(rows["tag"].astype(str))))
+            parts.append(f"{len(rows)} {what}{'s' if len(rows) != 1 else ''} ({names})")
+    return [f"RTU checks: {' and '.join(parts)} to check, on their own sheet for the RTU/SCADA "
+            "engineer"]
 
 
 def model_work_lines(model_work: pd.DataFrame) -> list[str]:
@@ -257,6 +267,7 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
     lines += [f"not estimated: {why}" for why in s.estimation_failures]
     lines += availability_lines(site)
     lines += [f"status point contradicted: {c}" for c in s.status_conflicts]
+    lines += [f"tap position not usable: {c}" for c in s.tap_fallbacks]
     first = s.rounds[0] if s.rounds else None
     if first:
         lines.append(f"chi-square failures with every point in: {first['chi2_failed']} of "
@@ -268,21 +279,28 @@ def summary_lines(run: ReviewRun, site: Site) -> list[str]:
                      f"({', '.join(sorted({c.tag for c in run.corrections}))})")
     lines += [f"network model as the owner decided (model-corrections.csv, row {c.row}): "
               f"{c.describe()}" for c in r.model_corrections]
-    about_rtu = run.findings["finding"].isin(RTU_KINDS)
+    about_tap = run.findings["finding"].isin(TAP_KINDS)
+    about_rtu = run.findings["finding"].isin(RTU_KINDS) & ~about_tap
     about_model = run.findings["finding"].isin(MODEL_KINDS)
-    meters = ~about_rtu & ~about_model
-    n_points = run.findings.loc[meters, "tag"].nunique() if len(run.findings) else 0
-    n_rtus = run.findings.loc[about_rtu, "tag"].nunique() if len(run.findings) else 0
-    n_model = run.findings.loc[about_model, "tag"].nunique() if len(run.findings) else 0
+    meters = ~about_rtu & ~about_tap & ~about_model
+    found = run.findings if len(run.findings) else None
+
+    def distinct(rows) -> int:
+        return int(found.loc[rows, "tag"].nunique()) if found is not None else 0
+
+    n_points, n_rtus, n_taps, n_model = (distinct(x) for x in (meters, about_rtu, about_tap,
+                                                                about_model))
     lines.append(f"findings: {len(run.findings)} on {n_points} point"
                  f"{'s' if n_points != 1 else ''}"
                  + (f" and {n_rtus} RTU{'s' if n_rtus != 1 else ''}" if n_rtus else "")
+                 + (f" and {n_taps} tap changer{'s' if n_taps != 1 else ''}" if n_taps else "")
                  + (f" and {n_model} network-model parameter{'s' if n_model != 1 else ''}"
                     if n_model else ""))
     counts = run.findings.groupby("finding")["tag"].nunique().sort_values(ascending=False,
                                                                           kind="stable")
     for kind, n in counts.items():
-        what = "RTU" if kind in RTU_KINDS else "parameter" if kind in MODEL_KINDS else "point"
+        what = ("tap changer" if kind in TAP_KINDS else "RTU" if kind in RTU_KINDS
+                else "parameter" if kind in MODEL_KINDS else "point")
         lines.append(f"  {kind}: {n} {what}{'s' if n != 1 else ''}")
     for row in run.findings.sort_values(["substation", "device", "tag"]).itertuples():
         lines.append(f"  [{row.state}] {row.tag} ({row.substation}) {row.finding}: "

@@ -85,7 +85,9 @@ def day_digest(period: PreparedPeriod, a: int, b: int) -> str:
     h = hashlib.blake2b(digest_size=16)
     h.update(period.index[a:b].asi8.tobytes())
     h.update(np.ascontiguousarray(period.z[a:b]).tobytes())
-    h.update(np.packbits(period.in_service[a:b], axis=None).tobytes())
+    state = period.in_service[a:b]
+    h.update(np.packbits(state, axis=None).tobytes() if state.dtype == bool
+             else np.ascontiguousarray(state, float).tobytes())
     return h.hexdigest()
 
 

@@ -181,7 +181,9 @@ def screening_sample(z: np.ndarray, in_service: np.ndarray, step: int) -> np.nda
     a = np.abs(z[sub])
     seen = np.isfinite(a)
     level = np.where(seen, a, 0.0).sum(axis=1) / np.maximum(seen.sum(axis=1), 1)
-    _, topology = np.unique(np.packbits(in_service[sub], axis=1), axis=0, return_inverse=True)
+    state = in_service[sub]
+    rows = np.packbits(state, axis=1) if state.dtype == bool else state
+    _, topology = np.unique(rows, axis=0, return_inverse=True)
     return sub[np.lexsort((sub, level, topology.ravel()))]
 
 

@@ -30,6 +30,16 @@ class FindingKind(StrEnum):
     #: ``element:parameter``; ``parameter``, ``model_value``, ``estimated_value`` and
     #: ``estimated_std`` say which and by how much): for the model's owner, not a meter.
     MODEL = "model"
+    #: A tap-position point against the tap ratio its transformer's meters imply (``tag`` the
+    #: point): reads a constant ``offset`` steps off, counts the wrong way, stays frozen while
+    #: the tap moves, or the model's step size (``factor``: implied / modelled) is wrong.
+    TAP_OFFSET = "tap_offset"
+    TAP_INVERTED = "tap_inverted"
+    TAP_FROZEN = "tap_frozen"
+    TAP_STEP_SIZE = "tap_step_size"
+    #: A transformer without tap telemetry whose ratio steps over the period (``tag`` and
+    #: ``element`` the branch).
+    TAP_UNREPORTED = "tap_unreported"
 
 
 #: Every finding kind, in the order the findings file and the lists use.
@@ -38,9 +48,13 @@ FINDING_KINDS = tuple(FindingKind)
 CORRECTABLE_KINDS = (FindingKind.REVERSED, FindingKind.SCALE, FindingKind.OFFSET)
 #: Kinds with a fitted factor: measured ≈ factor × implied.
 FACTOR_KINDS = (FindingKind.REVERSED, FindingKind.SCALE)
-#: Kinds about an RTU rather than one meter: for the RTU/SCADA engineer, not the field crew's
-#: checklist, and never corrected in software.
-RTU_KINDS = (FindingKind.TIME_OFFSET,)
+#: Kinds about a tap changer's indication or model: for the RTU/SCADA or protection and control
+#: engineer (and the model owner), never a CT crew.
+TAP_KINDS = (FindingKind.TAP_OFFSET, FindingKind.TAP_INVERTED, FindingKind.TAP_FROZEN,
+             FindingKind.TAP_STEP_SIZE, FindingKind.TAP_UNREPORTED)
+#: Kinds about an RTU or a tap changer rather than one meter: for the RTU/SCADA engineer, not
+#: the field crew's checklist, and never corrected in software.
+RTU_KINDS = (FindingKind.TIME_OFFSET, *TAP_KINDS)
 #: Kinds about the network model rather than a meter: for whoever owns the model, not the
 #: field crew's checklist; corrected in the model (``model-corrections.csv``), never in a
 #: meter's software correction.

@@ -38,6 +38,9 @@ from calibra.diagnosis.rtu_clock import (
     clock_findings,
     find_rtu_clocks,
 )
+from calibra.diagnosis.tap_findings import tap_findings
+from calibra.diagnosis.tap_positions import TapSettings
+from calibra.diagnosis.tap_review import TapReview, review_taps
 from calibra.estimation.block_parts import observability_counts
 from calibra.estimation.engine import LocalEngine, PeriodEngine
 from calibra.estimation.period import PreparedPeriod, prepare_period
@@ -56,6 +59,7 @@ class ReviewSettings:
     classify: ClassifySettings = field(default_factory=ClassifySettings)
     clock: ClockSettings = field(default_factory=ClockSettings)
     model: ModelPassSettings = field(default_factory=ModelPassSettings)
+    taps: TapSettings = field(default_factory=TapSettings)
     #: Full-resolution passes: points found faulty but still in the estimate are set aside and
     #: the period estimated again, until nothing new is set aside.
     max_passes: int = 3
@@ -78,6 +82,8 @@ class ReviewResult:
     model_errors: list[ModelErrorResult] = field(default_factory=list)
     #: The rows of the site's model-correction file its network was read with.
     model_corrections: tuple = ()
+    #: The verdicts on the site's taps (tap-position points, untelemetered moving taps).
+    taps: TapReview = field(default_factory=TapReview)
 
 
 def period_days(ev: WeekEvidence) -> np.ndarray:
@@ -256,6 +262,9 @@ def review_site(
     st = settings or ReviewSettings()
     period = prepare_period(site) if period is None else period
     ev, diagnoses = _judge(period, st, progress, engine)
+    taps, period, ev, diagnoses = review_taps(
+        period, ev, diagnoses, lambda p: _judge(p, st, progress, LocalEngine()), st.taps,
+        progress)
     clocks = find_rtu_clocks(period, ev, diagnoses, st.clock, st.evidence, progress, engine)
     if clocks:
         # The moved readings exist only here: a cluster's workers read the files as they are.
@@ -290,6 +299,7 @@ def review_site(
     findings += clock_findings(clocks)
     note_alternatives(findings, model_errors)
     findings += model_findings(site, model_errors)
+    findings += tap_findings(site, taps.verdicts, period.index)
     outcomes = ev.period.outcomes
     conv = outcomes["converged"].astype(bool)
     summary = ReviewSummary(
@@ -306,9 +316,10 @@ def review_site(
         rounds=ev.rounds,
         rtu_clocks=[c.rtu for c in clocks],
         model_errors=[f"{r.parameter.label()} ({r.verdict})" for r in model_errors],
+        tap_fallbacks=[f.describe() for f in period.tap_fallbacks],
     )
     return ReviewResult(site.name, period.index[0], period.index[-1], ev, diagnoses, findings,
-                        summary, clocks, model_errors=model_errors,
+                        summary, clocks, taps=taps, model_errors=model_errors,
                         model_corrections=tuple(site.model_corrections))
 
 

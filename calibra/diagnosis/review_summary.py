@@ -31,6 +31,8 @@ class ReviewSummary:
     #: Network parameters the week points to ("x of branch L7 (model)"; "not_separable" when
     #: meter errors explain the data as well).
     model_errors: list[str] = field(default_factory=list)
+    #: Tap-position points that gave no usable step somewhere (the model's tap used there).
+    tap_fallbacks: list[str] = field(default_factory=list)
 
     def as_dict(self, rounds: bool = True) -> dict:
         """The fields as a plain dict in field order (without the rounds when ``rounds`` is

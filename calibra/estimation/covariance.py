@@ -14,6 +14,8 @@ import scipy.linalg as la
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from calibra.model.network import branch_status
+
 #: Entries per chunk when Hᵢ P Hᵢᵀ is summed over rows of H (bounds a temporary array).
 OMEGA_CHUNK = 4_000_000
 
@@ -231,7 +233,7 @@ def stiff_transform(network, layout, in_service: np.ndarray,
     x = np.abs(network.branches["x"].to_numpy(float))
     n = network.n_bus
     est = layout.magnitude_column >= 0
-    on = np.asarray(in_service, bool) & (adm.f != adm.t)
+    on = branch_status(in_service) & (adm.f != adm.t)
     # Stiff: |x| below the threshold, or a tenth of the typical |x| at its two ends.
     ends = np.r_[adm.f[on], adm.t[on]]
     xs = np.r_[x[on], x[on]]

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from calibra.model.network import Network
+from calibra.model.network import Network, state_key
 
 # Quantity codes used by the numerical kernels.
 P_FLOW, Q_FLOW, I_MAG, P_INJ, Q_INJ, V_MAG = range(6)
@@ -148,8 +148,8 @@ class MeasurementFunctions:
         """Admittance of every pattern entry for a topology (cached per topology)."""
         net = self.network
         in_service = net.default_in_service() if in_service is None else \
-            np.asarray(in_service, bool)
-        key = in_service.tobytes()
+            np.asarray(in_service)
+        key = state_key(in_service)
         cached = self._values_cache.get(key)
         if cached is not None:
             return cached

@@ -49,7 +49,7 @@ from calibra.estimation.measurements import (
     V_MAG,
     MeasurementFunctions,
 )
-from calibra.model.network import Network
+from calibra.model.network import Network, branch_status
 
 #: Singular values below this share of the largest (times the matrix size) count as zero. The
 #: reduced matrices hold sums of structural weights between 1 and 2, so their nonzero singular
@@ -106,7 +106,7 @@ class ObservabilityStructure:
         self.network = network
         self.n = n = network.n_bus
         adm = network.branch_admittances(np.ones(network.n_branch, bool))
-        in_service = np.asarray(in_service, bool)
+        in_service = branch_status(in_service)
         self.f, self.t = adm.f, adm.t
         self.on = in_service & (adm.f != adm.t)
         code = np.r_[np.asarray(code, np.int64), np.asarray(cons_code, np.int64)]

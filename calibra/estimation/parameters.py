@@ -109,7 +109,7 @@ def _snapshot(estimator: Estimator, z: np.ndarray, in_service: np.ndarray, pos: 
         np.zeros(0, np.int64)
     vm = np.where(np.isfinite(vm), vm, 1.0)
     va = np.where(np.isfinite(va), va, 0.0)
-    return SampleSnapshot(pos, z, np.asarray(in_service, bool), rows, crow, layout,
+    return SampleSnapshot(pos, z, np.asarray(in_service), rows, crow, layout,
                           vm.astype(float), va.astype(float),
                           snapshot_transform(model, layout, in_service))
 

@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from calibra.estimation.measurement_model import MeasurementModel
+from calibra.estimation.tap_settings import TapFallback, branch_states, tap_factors
 from calibra.estimation.topology import StatusConflict, checked_topology
 from calibra.estimation.wls import Estimator
 from calibra.model.site import Site
@@ -29,12 +30,16 @@ class PreparedPeriod:
     estimator: Estimator
     measured: np.ndarray  # k × m float32 in the points' own units (±inf beyond float32)
     z: np.ndarray  # k × m per unit, NaN = missing
-    in_service: np.ndarray  # k × branches, bool
+    #: k × branches branch state: bool, or float with telemetered taps (see
+    #: :mod:`calibra.model.network`)
+    in_service: np.ndarray
     status_conflicts: list[StatusConflict] = field(default_factory=list)
     #: The software corrections applied to the values (ledger records, in the order applied).
     corrections: tuple = ()
     #: Points judged only on their data after a repair inside the period: tag → repair time.
     held_out: Mapping[str, pd.Timestamp] = field(default_factory=dict)
+    #: Where tap-position points gave no usable step (the model's tap was used there).
+    tap_fallbacks: list[TapFallback] = field(default_factory=list)
 
     @property
     def model(self) -> MeasurementModel:
@@ -55,8 +60,10 @@ def prepare_period(site: Site, snapshots: pd.DataFrame | None = None, *,
     model = estimator.model
     values = snaps.reindex(columns=model.tags).to_numpy(float)
     z = model.to_per_unit(values)
-    in_service, conflicts = checked_topology(site, snaps)
+    status, conflicts = checked_topology(site, snaps)
+    factors, fallbacks = tap_factors(site.network, site.points, snaps)
+    in_service = branch_states(status, factors)
     with np.errstate(over="ignore"):  # readings beyond float32 (bad data) are kept as ±inf
         measured = values.astype(np.float32)
     return PreparedPeriod(site, snaps.index, estimator, measured, z, in_service,
-                          conflicts, tuple(corrections), dict(held_out or {}))
+                          conflicts, tuple(corrections), dict(held_out or {}), fallbacks)

@@ -58,7 +58,7 @@ class ProbeSet:
         self.probes: list[_Probe | None] = []
         for j, zj in enumerate(np.asarray(z, float)):
             start = starts[j] if starts is not None else None
-            self.probes.append(self._settle(zj, np.asarray(in_service[j], bool), start))
+            self.probes.append(self._settle(zj, np.asarray(in_service[j]), start))
 
     # ------------------------------------------------------------------ the base solution
     def _settle(self, z: np.ndarray, in_service: np.ndarray, start) -> _Probe | None:

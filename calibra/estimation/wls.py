@@ -28,6 +28,7 @@ from calibra.estimation.observability import (
     ObservabilityStructure,
     structure_for,
 )
+from calibra.model.network import branch_status
 
 _VM_RANGE = (0.3, 2.0)
 _MAX_STEP = 0.5  #: largest state change (pu or rad) in one iteration
@@ -87,7 +88,7 @@ class Estimator:
     def observability(self, available: np.ndarray, in_service: np.ndarray) -> Observability:
         """Observable islands of a measurement pattern (cached per topology and pattern)."""
         available = np.asarray(available, bool)
-        in_service = np.asarray(in_service, bool)
+        in_service = branch_status(in_service)
         key = np.packbits(available).tobytes() + np.packbits(in_service).tobytes()
         obs = self._obs_cache.get(key)
         if obs is None:
@@ -100,6 +101,7 @@ class Estimator:
 
     def observability_structure(self, in_service: np.ndarray) -> ObservabilityStructure:
         """The structural rows of the model for one topology (cached)."""
+        in_service = branch_status(in_service)
         skey = np.packbits(in_service).tobytes()
         structure = self._structure_cache.get(skey)
         if structure is None:
@@ -129,7 +131,7 @@ class Estimator:
         avail = np.isfinite(z)
         if available is not None:
             avail &= np.asarray(available, bool)
-        in_service = self._default_status if in_service is None else np.asarray(in_service, bool)
+        in_service = self._default_status if in_service is None else np.asarray(in_service)
         obs = self.observability(avail, in_service)
         layout = StateLayout.build(n, obs.references, obs.estimated_buses)
         lost = ~obs.estimated_buses

@@ -19,7 +19,7 @@ from PySide6.QtWidgets import (
     QWidget,
 )
 
-from calibra.diagnosis.findings import MODEL_KINDS
+from calibra.diagnosis.findings import MODEL_KINDS, TAP_KINDS
 from calibra.gui.qt_style import STATE_COLOURS
 from calibra.gui.run_compare import RunFigures, changed_findings, comparison_rows
 from calibra.io.site_summary import site_summary_lines
@@ -84,8 +84,10 @@ def rtu_html(site: Site, rtu: str, finding: pd.Series) -> str:
     state = str(finding.get("state", ""))
     colour = STATE_COLOURS.get(state, "#5a6169")
     offset = finding.get("offset")
+    tap = str(finding.get("finding")) in TAP_KINDS
     values = [("Finding", _cell(finding.get("finding"))),
               ("Confidence", _cell(finding.get("confidence"))),
+              ("Ratio range (highest / lowest)", _cell(finding.get("factor"))) if tap else
               ("Clock offset (s, late positive)", _cell(offset)),
               ("Substation", _cell(finding.get("substation"))),
               ("Likely cause", _cell(finding.get("cause"))),
@@ -95,8 +97,9 @@ def rtu_html(site: Site, rtu: str, finding: pd.Series) -> str:
     rows = [(str(tag), f"{p['quantity']} · {p['element']}" + (f" · {p['end']}" if
                                                                _cell(p.get("end")) else ""))
             for tag, p in mine.iterrows()]
+    title = f"Transformer {rtu} tap changer" if tap else f"RTU {rtu}"
     return "".join([
-        f"<h3 style='margin:2px 0'>RTU {escape(rtu)}</h3>",
+        f"<h3 style='margin:2px 0'>{escape(title)}</h3>",
         f"<p style='margin:2px 0'><b>{escape(str(finding['finding']))}</b> · "
         f"<span style='color:{colour}'>{escape(state)}</span></p>",
         f"<p style='margin:6px 0'>{escape(str(finding.get('evidence', '')))}</p>",

@@ -22,7 +22,8 @@ from calibra.io.cells import (
 )
 from calibra.io.problems import ProblemLog
 from calibra.io.text_files import read_small_table
-from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS
+from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS, TAP_CHANGER_COLUMNS
+from calibra.model.tap_changers import TappedSide
 
 BUSES_FILE = "network/buses.csv"
 BRANCHES_FILE = "network/branches.csv"
@@ -30,7 +31,10 @@ BRANCHES_FILE = "network/branches.csv"
 BUS_REQUIRED = ["bus", "substation", "kv", "zero_injection", "g_shunt_mw", "b_shunt_mvar"]
 BUS_OPTIONAL = ["name"]
 BRANCH_REQUIRED = ["branch", "from_bus", "to_bus", "r", "x", "b", "tap", "shift_deg", "kind"]
-BRANCH_OPTIONAL = ["in_service", "name"]
+BRANCH_OPTIONAL = ["in_service", "name", *TAP_CHANGER_COLUMNS]
+#: A step above this share of the nominal ratio is unusual (REFERENCES.md: 0.625-1.25 % per
+#: step, common practice, no source): a warning, in case a ratio was written for a step.
+USUAL_MAX_STEP_PCT = 5.0
 
 
 def read_buses(folder: Path, log: ProblemLog) -> pd.DataFrame | None:
@@ -110,4 +114,42 @@ def read_branches(
         index=pd.Index(ids, name="branch", dtype=str),
     )
     check_branch_parameters(t.file, t.rows, {c: branches[c].to_numpy() for c in branches}, log)
-    return branches[first_occurrences(ids)][BRANCH_COLUMNS]
+    columns = list(BRANCH_COLUMNS)
+    if any(t.has(c) for c in TAP_CHANGER_COLUMNS):
+        for column, values in _tap_changer_cells(t, branches["kind"].to_numpy(), log).items():
+            branches[column] = values
+        columns += TAP_CHANGER_COLUMNS
+    return branches[first_occurrences(ids)][columns]
+
+
+def _tap_changer_cells(t, kind: np.ndarray, log: ProblemLog) -> dict[str, np.ndarray]:
+    """The optional tap-changer columns: ``tap_step_pct`` (> 0, % of nominal per step),
+    ``tap_neutral`` (a whole step number, 0 when empty) and ``tap_side`` (from/to, from when
+    empty), given only on transformers; neutral or side without a step size is an error."""
+    step = number_cells(t, "tap_step_pct", log, required=False, positive=True)
+    neutral = number_cells(t, "tap_neutral", log, required=False, default=np.nan)
+    side = choice_cells(t, "tap_side", {s.value: s.value for s in TappedSide}, log,
+                        required=False, what="tapped side")
+    given = {c: t.cells(c) != "" if t.has(c) else np.zeros(len(t.rows), bool)
+             for c in TAP_CHANGER_COLUMNS}
+    for i in np.flatnonzero(np.isfinite(neutral) & (neutral != np.round(neutral))):
+        log.error(t.file, int(t.rows[i]), "tap_neutral",
+                  f"{neutral[i]:g} is not a whole step number")
+    for i in np.flatnonzero(np.isfinite(step) & (step > USUAL_MAX_STEP_PCT)):
+        log.warning(t.file, int(t.rows[i]), "tap_step_pct",
+                    f"{step[i]:g} % per step is unusually large (typical 0.625-1.25 %); the "
+                    "column holds the step in % of the nominal ratio")
+    any_given = given["tap_step_pct"] | given["tap_neutral"] | given["tap_side"]
+    for i in np.flatnonzero(any_given & (kind != "transformer") & (kind != "")):
+        column = next(c for c in TAP_CHANGER_COLUMNS if given[c][i])
+        log.error(t.file, int(t.rows[i]), column,
+                  f"a {kind[i]} has no tap changer; leave the tap-changer columns empty")
+    for column in ("tap_neutral", "tap_side"):
+        for i in np.flatnonzero(given[column] & ~given["tap_step_pct"] & (kind == "transformer")):
+            log.error(t.file, int(t.rows[i]), "tap_step_pct",
+                      f"empty, but {column} is given: a tap changer needs its step size (% of "
+                      "the nominal ratio per step)")
+    has = np.isfinite(step)
+    return {"tap_step_pct": step,
+            "tap_neutral": np.where(has, np.nan_to_num(neutral, nan=0.0), np.nan),
+            "tap_side": np.where(has, np.where(side == "", TappedSide.FROM.value, side), "")}

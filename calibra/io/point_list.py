@@ -25,7 +25,8 @@ from calibra.model.points import (
     POINT_COLUMNS,
     QUANTITIES,
     REPORTING_COLUMNS,
-    STATUS_QUANTITY,
+    SETTING_QUANTITIES,
+    TAP_QUANTITY,
     UNIT_SPELLINGS,
     canonical_ratio,
 )
@@ -52,9 +53,10 @@ def read_points(
     could not be read: its references are then not checked).
     Empty optional cells are "" (text) or NaN (``sigma``, ``deadband``, ``resolution``: the
     last two in the point's unit, a percentage of full scale converted); ``end`` is "" for
-    quantities without an end. A ``branch_status`` point may leave ``device`` empty (stored
-    as "") and leave ``full_scale``/``accuracy_pct`` empty or give 0 (stored as NaN: not
-    applicable).
+    quantities without an end. A ``branch_status`` or ``tap_position`` point may leave
+    ``device`` empty (stored as "") and leave ``full_scale``/``accuracy_pct`` empty or give 0
+    (stored as NaN: not applicable); a ``tap_position`` point's element must be a transformer
+    with a tap changer (a ``tap_step_pct`` in the branch table).
     """
     since = len(log.items)
     t = read_point_table(folder, config or PointsConfig(), log)
@@ -74,7 +76,7 @@ def _points(
     quantity = choice_cells(
         t, "quantity", {q: q for q in QUANTITIES}, log, required=True, what="quantity"
     )
-    status = quantity == STATUS_QUANTITY
+    status = np.isin(quantity, SETTING_QUANTITIES)
     columns = {
         "quantity": quantity,
         "element": text_cells(t, "element", log, required=True),
@@ -106,13 +108,14 @@ def _points(
 
 def _scale_cells(t: RawTable, column: str, quantity: np.ndarray, log: ProblemLog) -> np.ndarray:
     """``full_scale`` or ``accuracy_pct``: a positive number for analog points; for
-    ``branch_status`` points empty or 0 (NaN: a breaker status has no scale) or positive.
+    ``branch_status`` and ``tap_position`` points empty or 0 (NaN: a status or a step number
+    has no scale) or positive.
     Rows whose quantity is unreadable get the analog rule's sign check only."""
     values = number_cells(t, column, log, required=False)
     if not t.has(column):
         return values
     cells = t.cells(column)
-    status = quantity == STATUS_QUANTITY
+    status = np.isin(quantity, SETTING_QUANTITIES)
     analog = ~status & (quantity != "")
     for i in np.flatnonzero(analog & (cells == "")):
         log.error(t.file, int(t.rows[i]), column,
@@ -121,20 +124,20 @@ def _scale_cells(t: RawTable, column: str, quantity: np.ndarray, log: ProblemLog
         log.error(t.file, int(t.rows[i]), column, f"must be greater than zero, not {cells[i]}")
     for i in np.flatnonzero(status & (values < 0)):
         log.error(t.file, int(t.rows[i]), column,
-                  f"must not be negative, not {cells[i]} (a {STATUS_QUANTITY} point may leave "
+                  f"must not be negative, not {cells[i]} (a {quantity[i]} point may leave "
                   "it empty or give 0)")
     return np.where(status & (values == 0), np.nan, values)
 
 
 def _device_cells(t: RawTable, status: np.ndarray, log: ProblemLog) -> np.ndarray:
-    """The device of each point: required except for ``branch_status`` points (a breaker's
-    status contact belongs to no transducer)."""
+    """The device of each point: required except for ``branch_status`` and ``tap_position``
+    points (a breaker's status contact or a tap-position indicator belongs to no transducer)."""
     cells = text_cells(t, "device", log, required=False)
     if t.has("device"):
         for i in np.flatnonzero(~status & (cells == "")):
             log.error(t.file, int(t.rows[i]), "device",
-                      f"empty; a value is required (only {STATUS_QUANTITY} points may leave "
-                      "it empty)")
+                      f"empty; a value is required (only {' and '.join(SETTING_QUANTITIES)} "
+                      "points may leave it empty)")
     return cells
 
 
@@ -153,6 +156,20 @@ def _ratio_cells(t: RawTable, column: str, log: ProblemLog) -> np.ndarray:
 
 
 Columns = dict[str, np.ndarray]
+
+
+def _check_tap_changer(file: str, row: int, branch: str, branches: pd.DataFrame,
+                       log: ProblemLog) -> None:
+    """A tap-position point needs a transformer whose tap changer the branch table describes."""
+    kind = str(branches.at[branch, "kind"]) if "kind" in branches else ""
+    step = branches.at[branch, "tap_step_pct"] if "tap_step_pct" in branches else np.nan
+    if kind != "transformer":
+        log.error(file, row, "element",
+                  f"'{branch}' is a {kind or 'branch'}, but {TAP_QUANTITY} needs a transformer")
+    elif not pd.notna(step):
+        log.error(file, row, "element",
+                  f"transformer '{branch}' has no tap changer in network/branches.csv: give its "
+                  "tap_step_pct (and tap_neutral, tap_side) there")
 
 
 def _check_meaning(t: RawTable, points: Columns, log: ProblemLog) -> None:
@@ -223,6 +240,8 @@ def _check_elements(
             else:
                 log.error(t.file, row, "element", f"unknown {kind} '{element}'")
             continue
+        if q == TAP_QUANTITY and branches is not None:
+            _check_tap_changer(t.file, row, element, branches, log)
         if not compare or sub == "":
             continue
         if kind == "bus":

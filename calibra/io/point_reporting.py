@@ -19,7 +19,7 @@ from calibra.io.text_files import RawTable
 from calibra.model.points import (
     REPORTING_COLUMNS,
     REPORTING_WARN_PCT,
-    STATUS_QUANTITY,
+    SETTING_QUANTITIES,
     UNIT_SPELLINGS,
 )
 from calibra.model.reporting import reporting_disagreements
@@ -80,9 +80,9 @@ def reporting_cells(t: RawTable, column: str, quantity: np.ndarray, unit: np.nda
         if text == "":
             continue
         row = int(t.rows[i])
-        if quantity[i] == STATUS_QUANTITY:
+        if quantity[i] in SETTING_QUANTITIES:
             log.warning(t.file, row, column,
-                        f"'{text}' is not used: a {STATUS_QUANTITY} point has no {column}")
+                        f"'{text}' is not used: a {quantity[i]} point has no {column}")
             continue
         value, problem = _read(text, t.dialect.decimal, str(unit[i]), float(full_scale[i]))
         if problem is not None:

@@ -37,7 +37,7 @@ from calibra.io.snapshot_size import FileRows, estimate_rows, refuse_if_too_larg
 from calibra.io.text_files import csv_records, read_csv_text
 from calibra.io.timestamps import parse_times
 from calibra.io.wide_quality import Marks, apply_quality, is_quality_column
-from calibra.model.points import STATUS_QUANTITY
+from calibra.model.points import STATUS_QUANTITY, TAP_QUANTITY
 
 SNAPSHOT_SUFFIXES = (".csv", ".csv.gz", ".parquet")
 
@@ -272,6 +272,8 @@ def _frame(
     if quantities is not None:
         status = [j for j, t in enumerate(tags) if quantities.get(t) == STATUS_QUANTITY]
         _check_status(values, status, tags, rows, valid, rel, log)
+        steps = [j for j, t in enumerate(tags) if quantities.get(t) == TAP_QUANTITY]
+        _check_steps(values, steps, tags, rows, valid, rel, log)
     frame = pd.DataFrame(values[valid], index=times[valid], columns=pd.Index(tags, dtype=str))
     return _order(frame, rows[valid], rel, log)
 
@@ -438,16 +440,38 @@ def _check_status(
     rel: str, log: ProblemLog,
 ) -> None:
     """Status cells other than 0 or 1 become missing (counted per column)."""
-    if not status:
+    _refuse_cells(values, status, tags, rows, valid, rel, log,
+                  lambda block: ~np.isnan(block) & (block != 0.0) & (block != 1.0),
+                  "status {:g} is not 1 (closed) or 0 (open)")
+
+
+def _check_steps(
+    values: np.ndarray, steps: list[int], tags: list[str], rows: np.ndarray, valid: np.ndarray,
+    rel: str, log: ProblemLog,
+) -> None:
+    """Tap-position cells that are not whole step numbers become missing (counted per
+    column; the estimate then holds the last step received, see
+    :mod:`calibra.estimation.tap_settings`)."""
+    _refuse_cells(values, steps, tags, rows, valid, rel, log,
+                  lambda block: ~np.isnan(block) & ~(np.isfinite(block)
+                                                     & (block == np.round(block))),
+                  "tap position {:g} is not a whole step number")
+
+
+def _refuse_cells(values: np.ndarray, columns: list[int], tags: list[str], rows: np.ndarray,
+                  valid: np.ndarray, rel: str, log: ProblemLog, bad_of, what: str) -> None:
+    """Cells of ``columns`` that ``bad_of`` marks become missing, a warning per column
+    naming the first (``what`` formats its value)."""
+    if not columns:
         return
-    block = values[:, status]
-    bad = ~np.isnan(block) & (block != 0.0) & (block != 1.0)
+    block = values[:, columns]
+    bad = bad_of(block)
     for k in np.flatnonzero((bad & valid[:, None]).any(axis=0)):
         where = np.flatnonzero(bad[:, k] & valid)
-        _count(log, rel, int(rows[where[0]]), tags[status[k]], len(where),
-               f"status {block[where[0], k]:g} is not 1 (closed) or 0 (open)")
+        _count(log, rel, int(rows[where[0]]), tags[columns[k]], len(where),
+               what.format(block[where[0], k]))
     block[bad] = np.nan
-    values[:, status] = block
+    values[:, columns] = block
 
 
 def _order(frame: pd.DataFrame, rows: np.ndarray, rel: str, log: ProblemLog) -> pd.DataFrame:

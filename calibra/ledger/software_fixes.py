@@ -46,10 +46,12 @@ class SoftwareFix:
 
 
 class ClockNotCorrectable(LedgerError):
-    """An RTU clock finding: the clock is set right in the RTU, then marked repaired."""
+    """An RTU clock or tap finding: set right in the RTU, the tap changer's indication or the
+    model, then marked repaired."""
 
     def __init__(self, tag: str):
-        super().__init__(f"{tag}: an RTU clock is set right in the RTU, not in software; then "
+        super().__init__(f"{tag}: an RTU clock is set right in the RTU, not in software (a "
+                         "tap finding: at the tap changer's indication or in the model); then "
                          "mark it repaired (the next review verifies it)")
         self.tag = tag
 

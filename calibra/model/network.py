@@ -10,6 +10,11 @@ Conventions (per unit on the system base):
 
 A branch that is out of service keeps its row and position; its admittances are zero, so
 measurement indices stay stable when the topology changes from snapshot to snapshot.
+
+*Branch state* of a snapshot: a row of one entry per branch, either bool (in service or not) or
+float where 0 is out of service and any other value is the factor on the ratio of the branch's
+tapped side (1: the model's ratio). A telemetered tap position sets the factor snapshot by
+snapshot (:mod:`calibra.model.tap_changers`); sites without one keep bool rows.
 """
 
 from __future__ import annotations
@@ -24,6 +29,21 @@ BUS_COLUMNS = ["substation", "kv", "zero_injection", "g_shunt_mw", "b_shunt_mvar
 BRANCH_COLUMNS = [
     "from_bus", "to_bus", "r", "x", "b", "tap", "shift_deg", "kind", "in_service", "name",
 ]
+#: Optional tap-changer columns of a transformer branch: the step in % of the nominal ratio,
+#: the neutral step and the tapped side ('from' or 'to'); NaN / "" where a branch has none.
+TAP_CHANGER_COLUMNS = ["tap_step_pct", "tap_neutral", "tap_side"]
+
+
+def branch_status(state: np.ndarray) -> np.ndarray:
+    """In-service flags of a branch state (bool rows as they are, float rows: nonzero)."""
+    state = np.asarray(state)
+    return state if state.dtype == bool else state != 0
+
+
+def state_key(state: np.ndarray) -> bytes:
+    """A cache key of a branch state: its flags when bool, else its values."""
+    state = np.asarray(state)
+    return state.tobytes() if state.dtype == bool else b"f" + state.astype(float).tobytes()
 
 
 @dataclass(frozen=True)
@@ -111,11 +131,18 @@ class Network:
         return (g + 1j * b) / self.base_mva
 
     def branch_admittances(self, in_service: np.ndarray | None = None) -> BranchAdmittances:
-        """π-model admittances for a topology (default: the model's in_service column)."""
-        status = self.default_in_service() if in_service is None else np.asarray(in_service, bool)
-        key = ("adm", status.tobytes())
+        """π-model admittances for a branch state (default: the model's in_service column).
+
+        A float state's factor ``a`` scales the tapped side's ratio: the from-side ratio
+        (``t·a``) of a branch tapped on the from side (or with no tapped side given), an ideal
+        ``a:1`` transformer at the to bus of one tapped on the to side, so that
+        ``Yft = -ys/(conj(t)·a)``, ``Ytf = -ys/(t·a)``, ``Ytt = (ys + jb/2)/a²``.
+        """
+        state = self.default_in_service() if in_service is None else np.asarray(in_service)
+        key = ("adm", state_key(state))
         if key in self._cache:
             return self._cache[key]
+        status = branch_status(state)
         br = self.branches
         f = self.bus_positions(br["from_bus"])
         t = self.bus_positions(br["to_bus"])
@@ -123,12 +150,19 @@ class Network:
         bc = br["b"].fillna(0.0).to_numpy(float)
         tap = br["tap"].fillna(1.0).to_numpy(float)
         tap = np.where(tap == 0.0, 1.0, tap)
+        to_factor = np.ones(self.n_branch)
+        if state.dtype != bool:
+            factor = np.where(status, state.astype(float), 1.0)
+            on_to = self.tapped_on_to_side()
+            tap = np.where(on_to, tap, tap * factor)
+            to_factor = np.where(on_to, factor, 1.0)
         ratio = tap * np.exp(1j * np.deg2rad(br["shift_deg"].fillna(0.0).to_numpy(float)))
         on = status.astype(float)
         ytt = (ys + 0.5j * bc) * on
         yff = ytt / (ratio * np.conj(ratio))
-        yft = -ys / np.conj(ratio) * on
-        ytf = -ys / ratio * on
+        yft = -ys / np.conj(ratio) / to_factor * on
+        ytf = -ys / ratio / to_factor * on
+        ytt = ytt / to_factor ** 2
         result = BranchAdmittances(f, t, yff, yft, ytf, ytt, status.copy())
         if len(self._cache) > 256:
             self._cache.clear()
@@ -139,8 +173,8 @@ class Network:
         self, in_service: np.ndarray | None = None
     ) -> tuple[sp.csr_matrix, sp.csr_matrix, sp.csr_matrix]:
         """Ybus (n×n), Yf and Yt (branch×bus) so that If = Yf V and It = Yt V."""
-        status = self.default_in_service() if in_service is None else np.asarray(in_service, bool)
-        key = ("ymat", status.tobytes())
+        status = self.default_in_service() if in_service is None else np.asarray(in_service)
+        key = ("ymat", state_key(status))
         if key in self._cache:
             return self._cache[key]
         a = self.branch_admittances(status)
@@ -159,6 +193,12 @@ class Network:
         self._cache[key] = result
         return result
 
+    def tapped_on_to_side(self) -> np.ndarray:
+        """Per branch: its tap changer sits on the to side (``tap_side`` 'to')."""
+        if "tap_side" not in self.branches:
+            return np.zeros(self.n_branch, bool)
+        return self.branches["tap_side"].fillna("").astype(str).eq("to").to_numpy()
+
     # ----------------------------------------------------------------- topology helpers
     def substation_of_bus(self) -> pd.Series:
         return self.buses["substation"]
@@ -167,7 +207,8 @@ class Network:
         """Connected-component label per bus for the given topology."""
         from scipy.sparse.csgraph import connected_components
 
-        status = self.default_in_service() if in_service is None else np.asarray(in_service, bool)
+        status = self.default_in_service() if in_service is None else \
+            branch_status(in_service)
         a = self.branch_admittances(status)
         on = np.flatnonzero(status)
         adj = sp.coo_matrix(

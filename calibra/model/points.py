@@ -22,6 +22,7 @@ QUANTITIES: dict[str, dict] = {
     "p_injection": {"element": "bus", "end": False, "units": ("MW",), "family": "power"},
     "q_injection": {"element": "bus", "end": False, "units": ("Mvar",), "family": "power"},
     "v_magnitude": {"element": "bus", "end": False, "units": ("kV",), "family": "voltage"},
+    "tap_position": {"element": "branch", "end": False, "units": ("step",), "family": "tap"},
 }
 
 
@@ -35,6 +36,7 @@ UNIT_SPELLINGS: dict[str, str] = {
     "kilovolt": "kV", "kilovolts": "kV",
     "amp": "A", "amps": "A", "ampere": "A", "amperes": "A",
     "state": "status",
+    "steps": "step", "tap step": "step",
 }
 
 
@@ -50,7 +52,12 @@ def _quantities(**spec) -> tuple[str, ...]:
 #: The status quantity: a breaker's open/closed state, not an analog measurement. Its points
 #: may leave ``device`` empty and ``full_scale``/``accuracy_pct`` empty (NaN).
 STATUS_QUANTITY = "branch_status"
-ANALOG_QUANTITIES = tuple(q for q in QUANTITIES if q != STATUS_QUANTITY)
+#: The tap-position quantity: a transformer's tap-changer step number, set per snapshot like a
+#: breaker status (device, full scale and accuracy may be empty as for status points).
+TAP_QUANTITY = "tap_position"
+#: Quantities that set the network per snapshot instead of entering the estimator.
+SETTING_QUANTITIES = (STATUS_QUANTITY, TAP_QUANTITY)
+ANALOG_QUANTITIES = tuple(q for q in QUANTITIES if q not in SETTING_QUANTITIES)
 #: Quantities of a branch (status included), of one branch end (flows and current), of a bus.
 BRANCH_QUANTITIES = _quantities(element="branch")
 BRANCH_END_QUANTITIES = _quantities(element="branch", end=True)
@@ -68,7 +75,7 @@ ENDS = ("from", "to")
 #: (sheets, findings, evidence, summaries).
 QUANTITY_WORDS: dict[str, str] = {
     "p_flow": "active-power flow", "q_flow": "reactive-power flow", "i_magnitude": "current",
-    "branch_status": "breaker status",
+    "branch_status": "breaker status", "tap_position": "tap position",
     "p_injection": "active-power injection", "q_injection": "reactive-power injection",
     "v_magnitude": "voltage magnitude",
 }
@@ -188,8 +195,13 @@ def stated_reporting(point: pd.Series, column: str) -> float | None:
 
 
 def analog_points(points: pd.DataFrame) -> pd.DataFrame:
-    """The points that enter the estimator (everything but branch status)."""
+    """The points that enter the estimator (everything but branch status and tap position)."""
     return points[points["quantity"].isin(ANALOG_QUANTITIES)]
+
+
+def tap_points(points: pd.DataFrame) -> pd.DataFrame:
+    """The tap-position points (they set their transformer's ratio per snapshot)."""
+    return points[points["quantity"] == TAP_QUANTITY]
 
 
 def status_points(points: pd.DataFrame) -> pd.DataFrame:

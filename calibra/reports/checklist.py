@@ -18,6 +18,7 @@ from calibra.model.points import (
     quantity_words,
 )
 from calibra.reports._values import fmt, number, text, timestamp
+from calibra.reports.tap_checks import TAP_CHECKS, TAP_LABELS
 
 #: How each kind of finding is named on the checklist.
 FINDING_LABELS = {
@@ -31,6 +32,7 @@ FINDING_LABELS = {
     FindingKind.UNVERIFIABLE: "Cannot be checked remotely",
     FindingKind.TIME_OFFSET: "RTU clock offset",
     FindingKind.MODEL: "Network model parameter",
+    **TAP_LABELS,
 }
 
 _SQRT3 = math.sqrt(3.0)
@@ -267,4 +269,5 @@ _CHECKS: dict[str, Callable[[Mapping], list[str]]] = {
     FindingKind.DRIFT: _drift, FindingKind.STUCK: _stuck, FindingKind.NOISY: _noisy,
     FindingKind.MISMAPPED: _mismapped, FindingKind.UNVERIFIABLE: _unverifiable,
     FindingKind.TIME_OFFSET: _time_offset, FindingKind.MODEL: _model,
+    FindingKind.TIME_OFFSET: _time_offset, **TAP_CHECKS,
 }

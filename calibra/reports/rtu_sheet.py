@@ -1,4 +1,5 @@
-"""The RTU/SCADA engineer's sheet: findings about an RTU (its clock), not about a meter.
+"""The RTU/SCADA engineer's sheet: findings about an RTU (its clock) or a tap changer (its
+position indication, its model data, or its motion without telemetry), not about a meter.
 
 A field crew's checklist is per substation and per device; an RTU whose points all read late
 is a matter of the RTU's time synchronisation and configuration, so its findings go on a sheet
@@ -15,6 +16,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from calibra.diagnosis.findings import TAP_KINDS
 from calibra.model.points import ANALOG_QUANTITIES
 from calibra.reports._values import number, text
 from calibra.reports.checklist import FINDING_LABELS, checklist_items
@@ -22,6 +24,7 @@ from calibra.reports.html import TimeLike, sheet_head, when
 from calibra.reports.safety import SAFETY_CAUTIONS, Caution
 from calibra.reports.sheet_pages import DeviceSection, Sheet, ruled_table
 from calibra.reports.spreadsheet import write_safe_csv
+from calibra.reports.tap_checks import TAP_CAUTION
 
 #: The sheet's name (where a crew's sheet names its substation).
 RTU_SHEET_TITLE = "RTU and SCADA checks"
@@ -52,6 +55,25 @@ def _rtu_of(row) -> str:
     return text(row, "rtu") or text(row, "tag")
 
 
+def _block_title(row) -> str:
+    """The heading of a finding's block: the RTU, or the transformer of a tap finding."""
+    if text(row, "finding") in TAP_KINDS:
+        return f"Transformer {text(row, 'element')} tap changer"
+    rtu = _rtu_of(row)
+    return rtu if rtu.upper().startswith("RTU") else f"RTU {rtu}"
+
+
+def _listed(row, points: pd.DataFrame | None) -> str:
+    """The points the block lists: the RTU's analog points, or the tap-position point."""
+    if text(row, "finding") in TAP_KINDS:
+        tag = text(row, "tag")
+        has_point = points is not None and tag in points.index
+        return f"Tap-position point: {tag}" if has_point else "No tap-position point"
+    rtu = _rtu_of(row)
+    listed = rtu_points(points, rtu)
+    return f"Points of {rtu} ({len(listed)}): {', '.join(listed) or 'none in the point list'}"
+
+
 def rtu_sheet(site_name: str, findings: pd.DataFrame, points: pd.DataFrame | None,
               generated_at: TimeLike, period: Sequence[TimeLike] | None = None) -> Sheet:
     """The RTU/SCADA sheet of ``findings`` (all about RTUs) as blocks for the printer."""
@@ -59,28 +81,27 @@ def rtu_sheet(site_name: str, findings: pd.DataFrame, points: pd.DataFrame | Non
         raise ValueError("no RTU findings for the RTU sheet")
     devices, tags = [], []
     for _, row in findings.sort_values(["rtu", "tag"]).iterrows():
-        rtu = _rtu_of(row)
-        listed = rtu_points(points, rtu)
+        title = _block_title(row)
         label = FINDING_LABELS.get(text(row, "finding"), text(row, "finding"))
-        heading = (f"<tr><td colspan=\"5\" class=\"finding\"><b>{escape(rtu)}: "
+        heading = (f"<tr><td colspan=\"5\" class=\"finding\"><b>{escape(title)}: "
                    f"{escape(label)}</b><br/><span class=\"small\">"
                    f"{escape(text(row, 'evidence'))}</span></td></tr>")
         checks = [f"<tr><td>☐ {escape(c)}</td><td></td><td></td><td></td><td></td></tr>"
                   for c in checklist_items(row)]
-        names = (f"<tr><td colspan=\"5\" class=\"small\">Points of {escape(rtu)} "
-                 f"({len(listed)}): {escape(', '.join(listed) or 'none in the point list')}"
+        names = (f"<tr><td colspan=\"5\" class=\"small\">{escape(_listed(row, points))}"
                  "</td></tr>")
         where = text(row, "substation")
-        title = (rtu if rtu.upper().startswith("RTU") else f"RTU {rtu}") + (
-            f" · substation {where}" if where else "")
+        title += f" · substation {where}" if where else ""
         devices.append(DeviceSection(title, [[heading, *checks], [names]]))
         tags.append(text(row, "tag"))
-    cautions = (*SAFETY_CAUTIONS, RTU_CAUTION)
+    cautions = _cautions(findings)
     items = "".join(f"<li>{escape(c.text)} <i class=\"small\">({escape(c.sources)})</i></li>"
                     for c in cautions)
     opening = [
         f"<h1>{escape(RTU_SHEET_TITLE)}</h1>" + _header(site_name, generated_at, period,
-                                                         len(devices)),
+                                                         len(devices),
+                                                         bool(findings["finding"]
+                                                              .isin(TAP_KINDS).any())),
         "<h2>Safety: read before starting</h2>" + ruled_table('class="safety"', 4)
         + f"<tr><td><ul>{items}</ul></td></tr></table>",
     ]
@@ -91,11 +112,20 @@ def rtu_sheet(site_name: str, findings: pd.DataFrame, points: pd.DataFrame | Non
                  devices, closing, tags)
 
 
+def _cautions(findings: pd.DataFrame) -> tuple[Caution, ...]:
+    """The crews' cautions, the RTU one, and the tap changer's when a tap finding is there."""
+    taps = findings["finding"].isin(TAP_KINDS).any() if "finding" in findings else False
+    return (*SAFETY_CAUTIONS, RTU_CAUTION, *((TAP_CAUTION,) if taps else ()))
+
+
 def _header(site_name: str, generated_at: TimeLike, period: Sequence[TimeLike] | None,
-            n_rtus: int) -> str:
+            n_rtus: int, taps: bool = False) -> str:
     span = "not given" if period is None else f"{when(period[0])} to {when(period[1])}"
-    cells = [("Site", site_name), ("For", "the RTU/SCADA engineer"), ("Review period", span),
-             ("Prepared", when(generated_at)), ("RTUs to check", str(n_rtus))]
+    cells = [("Site", site_name), ("For", "the RTU/SCADA engineer"
+                                   + (" and the protection and control engineer" if taps
+                                      else "")),
+             ("Review period", span), ("Prepared", when(generated_at)),
+             ("RTUs and tap changers to check" if taps else "RTUs to check", str(n_rtus))]
     rows = "".join(f"<tr><td><b>{escape(k)}</b></td><td>{escape(str(v))}</td></tr>"
                    for k, v in cells)
     return f"<table cellpadding=\"1\" cellspacing=\"0\">{rows}</table>"
@@ -107,12 +137,16 @@ def rtu_work_order_rows(findings: pd.DataFrame, points: pd.DataFrame | None,
     records = []
     for _, row in findings.iterrows():
         rtu = _rtu_of(row)
+        tap = text(row, "finding") in TAP_KINDS
+        # A tap finding's offset is in steps (its evidence says so), and its point is its own.
+        listed = ([text(row, "tag")] if points is not None and text(row, "tag") in points.index
+                  else []) if tap else rtu_points(points, rtu)
         for check in checklist_items(row):
             records.append({
                 "site": site_name, "rtu": rtu, "substation": text(row, "substation"),
                 "finding": FINDING_LABELS.get(text(row, "finding"), text(row, "finding")),
-                "offset_s": number(row, "offset"),
-                "points": ", ".join(rtu_points(points, rtu)),
+                "offset_s": None if tap else number(row, "offset"),
+                "points": ", ".join(listed),
                 "evidence": text(row, "evidence"), "check": check,
                 "as_found": "", "as_left": "", "initials": "", "date": "",
             })
@@ -126,6 +160,6 @@ def write_rtu_work_orders_csv(findings: pd.DataFrame, points: pd.DataFrame | Non
     rows = rtu_work_order_rows(findings, points, site_name)
     records = [[None if pd.isna(v) else v for v in r] for r in rows.itertuples(index=False)]
     blank = [None] * (len(RTU_WORK_ORDER_COLUMNS) - 1)
-    for c in (*SAFETY_CAUTIONS, RTU_CAUTION):
+    for c in _cautions(findings):
         records.append([f"Safety: {c.text} ({c.sources})", *blank])
     return write_safe_csv(path, RTU_WORK_ORDER_COLUMNS, records)

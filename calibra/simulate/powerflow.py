@@ -233,12 +233,13 @@ def solve_snapshots(
 ) -> BatchPowerFlowResult:
     """Solve a time series of K snapshots whose topology may differ.
 
-    ``in_service`` is (K, n_branch) bool. Snapshots are grouped by topology. Within a group,
+    ``in_service`` is (K, n_branch): bool, or a float branch state with tap factors
+    (:mod:`calibra.model.network`). Snapshots are grouped by topology. Within a group,
     every ``stride``-th snapshot is solved from a flat start first; the states in between are
     interpolated from those and used as warm starts, which saves Newton iterations when the
     operating point changes smoothly from one snapshot to the next (``stride=1``: no warm start).
     """
-    status = np.asarray(in_service, bool)
+    status = np.asarray(in_service)
     p = np.atleast_2d(np.asarray(p_mw, float))
     q = np.atleast_2d(np.asarray(q_mvar, float))
     k = p.shape[0]

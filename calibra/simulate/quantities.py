@@ -10,8 +10,8 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from calibra.model.network import Network
-from calibra.model.points import BRANCH_QUANTITIES
+from calibra.model.network import Network, branch_status
+from calibra.model.points import BRANCH_QUANTITIES, TAP_QUANTITY
 
 
 def branch_end_power(
@@ -45,7 +45,7 @@ def point_values(
     """
     vm = np.atleast_2d(vm)
     v = vm * np.exp(1j * np.atleast_2d(va_rad))
-    status = network.default_in_service() if in_service is None else np.asarray(in_service, bool)
+    status = network.default_in_service() if in_service is None else np.asarray(in_service)
     base = network.base_mva
     kv = network.buses["kv"].to_numpy(float)
     a = network.branch_admittances(status)
@@ -60,8 +60,10 @@ def point_values(
         if name in BRANCH_QUANTITIES:
             pos = network.branch_positions(element[cols])
             if name == "branch_status":
-                out[:, cols] = status[pos].astype(float)[None, :]
+                out[:, cols] = branch_status(status)[pos].astype(float)[None, :]
                 continue
+            if name == TAP_QUANTITY:
+                continue  # a step number is set by the tap changer's motion, not the state
             to_end = end[cols] == "to"
             s = np.where(to_end, s_to[:, pos], s_from[:, pos])
             bus = np.where(to_end, a.t[pos], a.f[pos])
@@ -92,8 +94,9 @@ def point_values_series(
     va_rad: np.ndarray,
     in_service: np.ndarray,
 ) -> np.ndarray:
-    """:func:`point_values` for snapshots whose topology varies (``in_service``: K × n_branch)."""
-    status = np.asarray(in_service, bool)
+    """:func:`point_values` for snapshots whose topology varies (``in_service``: K × n_branch
+    branch state)."""
+    status = np.asarray(in_service)
     out = np.empty((vm.shape[0], len(points)))
     topologies, group = np.unique(status, axis=0, return_inverse=True)
     for g, topo in enumerate(topologies):

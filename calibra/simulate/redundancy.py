@@ -83,7 +83,7 @@ def redundancy_report(
     A point is critical when Sᵢᵢ < ``critical_tol``; two points form a critical pair when the
     correlation of their residuals exceeds ``1 − pair_tol`` in magnitude.
     """
-    status = network.default_in_service() if in_service is None else np.asarray(in_service, bool)
+    status = network.default_in_service() if in_service is None else np.asarray(in_service)
     analog = analog_points(points)
     sigma = default_sigma(analog).to_numpy(float)
     h = _jacobian(network, analog, vm, va_rad, status) / sigma[:, None]

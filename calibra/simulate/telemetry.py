@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from calibra.diagnosis.findings import FindingKind
+from calibra.model.network import Network, branch_status
 from calibra.model.points import ANALOG_QUANTITIES, default_sigma
 from calibra.model.site import Site
 from calibra.simulate.case import GridCase
@@ -34,6 +35,7 @@ from calibra.simulate.profiles import (
 )
 from calibra.simulate.quantities import point_values_series
 from calibra.simulate.redundancy import RedundancyReport, redundancy_report
+from calibra.simulate.tap_motion import OltcOptions, TapMotion, moving_taps
 
 
 @dataclass(frozen=True)
@@ -65,6 +67,8 @@ class TelemetryOptions:
     state_storage: bool = False
     rtu_lag_minutes: float = 0.0
     rtu_lag: str | None = None
+    #: Moving on-load tap changers, with or without tap telemetry (None: taps held).
+    oltc: OltcOptions | None = None
 
 
 #: Fewest analog points of an RTU drawn at random for a clock error.
@@ -90,6 +94,8 @@ class SimulationResult:
     #: Wrong parameters of the site's network model (columns MODEL_TRUTH_COLUMNS; empty: none).
     model_truth: pd.DataFrame = field(
         default_factory=lambda: pd.DataFrame(columns=MODEL_TRUTH_COLUMNS))
+    #: The moving tap changers and their reported steps (None: taps held).
+    taps: TapMotion | None = None
 
 
 def snapshot_index(start, periods: int, timezone: str, freq: str = "1min") -> pd.DatetimeIndex:
@@ -280,6 +286,15 @@ def simulate_site(
         outages = [chosen] if chosen else []
     ops = make_operating_series(case, index, timezone, rng_ops, outages=list(outages or []),
                                 mix=mix, wind_mw=wind_mw)
+    motion = None
+    if opts.oltc is not None and opts.oltc.transformers > 0:
+        # A seventh stream: the first six are those of spawn(6).
+        rng_taps = np.random.default_rng(np.random.SeedSequence(seed).spawn(7)[6])
+        motion = moving_taps(net, points, ops.load_mw.sum(axis=1), opts.oltc, rng_taps)
+        net = motion.network
+        if len(motion.points):
+            points = pd.concat([points, motion.points.reindex(columns=points.columns)])
+        ops.in_service = np.where(ops.in_service, motion.factors, 0.0)
     p, q = ops.net_injection()
     pf = solve_snapshots(net, p, q, ops.v_set, ops.pv, ops.in_service)
     if not pf.converged.all():
@@ -296,9 +311,13 @@ def simulate_site(
                                                60.0 * opts.rtu_lag_minutes)
     measured = pd.DataFrame(add_noise(stamped, points, rng_noise), index=index,
                             columns=points.index)
+    if motion is not None:
+        for tag in motion.reported:
+            measured[tag] = motion.reported[tag].to_numpy(float)
     true_df = pd.DataFrame(true, index=index, columns=points.index)
 
-    normal = np.flatnonzero((ops.in_service == net.default_in_service()).all(axis=1))
+    normal = np.flatnonzero((branch_status(ops.in_service) == net.default_in_service())
+                            .all(axis=1))
     load = ops.load_mw.sum(axis=1)[normal]
     at = normal[np.argsort(load)[len(load) // 2]] if len(normal) else 0
     report = redundancy_report(net, points, pf.vm[at], pf.va_rad[at], ops.in_service[at])
@@ -313,6 +332,8 @@ def simulate_site(
         measured, truth = apply_faults(measured, points, specs, rng_faults)
     else:
         truth = pd.DataFrame(columns=TRUTH_COLUMNS)
+    if motion is not None and motion.truth:
+        truth = _with_tap_truth(truth, motion, index)
     if lagging is not None:
         clock = clock_truth(lagging[0], opts.rtu_lag_minutes, index,
                             int(truth["fault"].max()) if len(truth) else 0)
@@ -327,6 +348,11 @@ def simulate_site(
     snapshots.columns.name = None
     listed = stated_storage(points, opts) if opts.state_storage else points.copy()
     model_net, model_truth = model_with_errors(net, model_errors)
+    if motion is not None:
+        branches = model_net.branches.copy()
+        branches[motion.model_columns.columns] = motion.model_columns
+        model_net = Network(model_net.name, model_net.base_mva, model_net.buses, branches,
+                            model_net.reference_bus, model_net.frequency_hz)
     site = Site(None, name or net.name, timezone, model_net, listed, snapshots)
     buses = net.buses.index
     return SimulationResult(
@@ -342,7 +368,23 @@ def simulate_site(
         iterations=pf.iterations,
         rtu_lag=None if lagging is None else (lagging[0], 60.0 * opts.rtu_lag_minutes),
         model_truth=model_truth,
+        taps=motion,
     )
+
+
+def _with_tap_truth(truth: pd.DataFrame, motion: TapMotion, index: pd.DatetimeIndex
+                    ) -> pd.DataFrame:
+    """The truth with a row per tap fault (numbered after the meter faults)."""
+    after = int(truth["fault"].max()) if len(truth) else 0
+    rows = []
+    for j, r in enumerate(motion.truth):
+        row = {c: "" for c in TRUTH_COLUMNS}
+        row.update(fault=after + 1 + j, device="", factor=1.0, offset=0.0, drift_per_day=0.0,
+                   onset=index[0], noise_factor=1.0)
+        row.update(r)
+        rows.append(row)
+    taps = pd.DataFrame(rows, columns=TRUTH_COLUMNS)
+    return pd.concat([truth, taps], ignore_index=True) if len(truth) else taps
 
 
 def clock_truth(rtu: str, lag_minutes: float, index: pd.DatetimeIndex, after: int

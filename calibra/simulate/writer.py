@@ -17,7 +17,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS
+from calibra.model.network import BRANCH_COLUMNS, BUS_COLUMNS, TAP_CHANGER_COLUMNS
 from calibra.model.points import POINT_COLUMNS, REPORTING_COLUMNS
 from calibra.model.site import Site
 from calibra.simulate.model_errors import MODEL_TRUTH_FILE
@@ -54,7 +54,8 @@ def write_network(site: Site, folder: Path) -> None:
     buses = net.buses.reindex(columns=BUS_COLUMNS).copy()
     buses["zero_injection"] = _bool_text(buses["zero_injection"].fillna(False))
     buses.rename_axis("bus").to_csv(folder / "buses.csv", encoding="utf-8")
-    branches = net.branches.reindex(columns=BRANCH_COLUMNS).copy()
+    taps = [c for c in TAP_CHANGER_COLUMNS if c in net.branches]
+    branches = net.branches.reindex(columns=BRANCH_COLUMNS + taps).copy()
     branches["in_service"] = _bool_text(branches["in_service"])
     branches.rename_axis("branch").to_csv(folder / "branches.csv", encoding="utf-8")
 

@@ -70,3 +70,20 @@ def test_work_orders_dialog_has_the_rtu_sheet_apart(qtbot, window, lagging_site,
     page = dialog.pages[RTU_SHEET_TITLE]
     assert "lockout/tagout" in page and "MRG.110.BRN1.MW" in page
     assert dialog.save_pdf(tmp_path / "wo.pdf").stat().st_size > 0
+
+
+def test_tap_finding_details_name_the_transformer(lagging_site):
+    """A transformer without tap telemetry whose tap moves (``tap_unreported``: tag = the
+    branch, not a point) is shown as the transformer's tap changer, not as an RTU clock."""
+    import pandas as pd
+
+    from calibra.gui.qt_details import rtu_html
+    from calibra.io import load_site
+
+    site = load_site(lagging_site)
+    finding = pd.Series({"finding": "tap_unreported", "confidence": 0.99, "factor": 1.08,
+                         "substation": "MRG", "evidence": "steps back and forth 9 times",
+                         "state": "new"})
+    html = rtu_html(site, "MRG-T1", finding)
+    assert "Transformer MRG-T1 tap changer" in html and "1.08" in html
+    assert "Clock offset" not in html and "steps back and forth" in html

@@ -44,7 +44,8 @@ ONE_BAD_CELL = [
                  id="duplicate-tag"),
     pytest.param(5, "quantity", "current",
                  "'current' is not a quantity (one of p_flow, q_flow, i_magnitude, "
-                 "branch_status, p_injection, q_injection, v_magnitude)", id="quantity"),
+                 "branch_status, p_injection, q_injection, v_magnitude, tap_position)",
+                 id="quantity"),
     pytest.param(2, "element", "FNH-TLR-9", "unknown branch 'FNH-TLR-9'", id="unknown-branch"),
     pytest.param(6, "element", "FNH11", "unknown bus 'FNH11'", id="unknown-bus"),
     pytest.param(2, "element", "FNH132", "'FNH132' is a bus, but p_flow needs a branch",
@@ -60,7 +61,7 @@ ONE_BAD_CELL = [
                  id="end-word"),
     pytest.param(2, "unit", "Mvar", "unit 'Mvar' is not allowed for p_flow (use MW)",
                  id="unit-for-quantity"),
-    pytest.param(6, "unit", "pu", "'pu' is not a unit (one of MW, Mvar, A, status, kV)",
+    pytest.param(6, "unit", "pu", "'pu' is not a unit (one of MW, Mvar, A, status, kV, step)",
                  id="unknown-unit"),
     pytest.param(4, "full_scale", "0", "must be greater than zero, not 0", id="full-scale"),
     pytest.param(4, "accuracy_pct", "-0.5", "must be greater than zero, not -0.5",
@@ -69,8 +70,8 @@ ONE_BAD_CELL = [
                  id="full-scale-missing"),
     pytest.param(6, "sigma", "0", "must be greater than zero, not 0", id="sigma"),
     pytest.param(3, "substation", "", "empty; a value is required", id="substation"),
-    pytest.param(4, "device", "", "empty; a value is required (only branch_status points may "
-                 "leave it empty)", id="device"),
+    pytest.param(4, "device", "", "empty; a value is required (only branch_status and "
+                 "tap_position points may leave it empty)", id="device"),
     pytest.param(8, "full_scale", "-1", "must not be negative, not -1 (a branch_status point "
                  "may leave it empty or give 0)", id="status-full-scale-negative"),
     pytest.param(5, "accuracy_pct", "0", "must be greater than zero, not 0",
@@ -120,7 +121,8 @@ def test_status_point_may_leave_device_and_scale_empty(files, tmp_path, device, 
 
 
 @pytest.mark.parametrize("column,value,message", [
-    ("device", "", "empty; a value is required (only branch_status points may leave it empty)"),
+    ("device", "", "empty; a value is required (only branch_status and tap_position points "
+     "may leave it empty)"),
     ("full_scale", "0", "must be greater than zero, not 0"),
     ("accuracy_pct", "", "empty; a positive number is required for p_flow"),
     ("accuracy_pct", "0", "must be greater than zero, not 0"),

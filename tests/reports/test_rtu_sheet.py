@@ -67,3 +67,40 @@ def test_rtu_csv_rows_and_safety_rows(findings, points, tmp_path):
     assert "MC-L2-I" in checks[0][5]
     safety = " ".join(r[0] for r in rows[1:] if r[0].startswith("Safety:"))
     assert "lockout/tagout" in safety and "qualified personnel" in safety
+
+
+def _with_taps(findings: pd.DataFrame) -> pd.DataFrame:
+    offset = Finding(tag="MC-T1-TAP", device="", substation="Marlow Cross",
+                     finding="tap_offset", confidence=0.99, offset=2.0,
+                     evidence="the telemetered step reads +2 steps off the implied one",
+                     scope="tap changer", quantity="tap_position", element="MC-T1",
+                     unit="step", rtu="RTU-MC")
+    moving = Finding(tag="AV-T2", device="", substation="Ashvale", finding="tap_unreported",
+                     confidence=0.99, factor=1.06, evidence="steps back and forth 12 times",
+                     scope="tap changer", quantity="tap_position", element="AV-T2",
+                     unit="ratio")
+    return pd.concat([findings.astype(object), findings_table([offset, moving]).astype(object)],
+                     ignore_index=True)
+
+
+def test_tap_findings_go_to_the_rtu_sheet_with_the_oltc_caution(findings, points, tmp_path):
+    """Tap findings are for the RTU/SCADA or protection and control engineer, never a CT
+    crew; their sheet adds the caution to work on an OLTC only under the utility's switching
+    and isolation procedures (common practice, no source)."""
+    table = _with_taps(findings)
+    crews = needing_field_work(table)
+    assert not crews["finding"].str.startswith("tap_").any() and len(crews) == len(findings)
+    due = needing_rtu_work(table)
+    assert set(due["tag"]) == {"MC-T1-TAP", "AV-T2"}
+    html = rtu_sheet("Fernhollow", due, points, pd.Timestamp("2026-03-10T08:00Z")).whole_html()
+    assert "Transformer MC-T1 tap changer" in html and "Tap position offset" in html
+    assert "+2 steps" in html and "No tap-position point" in html
+    assert "switching and isolation procedures" in html and "lockout/tagout" in html
+    assert "protection and control engineer" in html
+    path = write_rtu_work_orders_csv(due, points, tmp_path / "rtu.csv", site_name="Fernhollow")
+    text = path.read_text(encoding="utf-8-sig")
+    assert "position transmitter" in text and "tap_step_pct" in text
+    with path.open(encoding="utf-8-sig", newline="") as handle:
+        rows = [r for r in csv.DictReader(handle) if r["finding"] == "Tap position offset"]
+    # Not the RTU's analog points (the fixture's point list has no tap point).
+    assert rows and all(r["offset_s"] == "" and r["points"] == "" for r in rows)
