@@ -197,9 +197,13 @@ def find_model_errors(evidence: WeekEvidence, estimator: Estimator,
     model = evidence.model
     z = model.to_per_unit(evidence.measured.astype(float))
     ins = evidence.in_service
-    positions = spread_positions(z.shape[0], st.sample_snapshots)
     available = ~np.asarray(evidence.set_aside, bool)
-    base = sample_from_estimates(estimator, z, ins, positions, available, progress=progress)
+    # The sample starts from the evidence's own estimates (the same points: those not set
+    # aside), spread over its converged snapshots: no snapshot is estimated again for it.
+    result = evidence.period
+    converged = np.flatnonzero(result.outcomes["converged"].to_numpy(bool))
+    positions = converged[spread_positions(converged.size, st.sample_snapshots)]
+    base = sample_from_states(estimator, z, ins, result.vm, result.va, positions, available)
     found: list[ModelErrorResult] = []
     done: set[NetworkParameter] = set(settled)
     #: Elements around which meter errors explained the data better than a parameter: their
