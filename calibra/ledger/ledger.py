@@ -483,8 +483,7 @@ class Ledger:
         return row["tag"]
 
     def _require_tag(self, conn, tag: str, correction: bool = False) -> list[str]:
-        """States of the tag's findings; a tag without findings is refused (likely a typo), and
-        so is a ``correction`` of a kind set right elsewhere (an RTU clock, a model value)."""
+        """The tag's finding states; refuses an unknown tag and a correction set right elsewhere."""
         rows = conn.execute("SELECT state, kind FROM findings WHERE tag = ?", (tag,)).fetchall()
         if not rows:
             raise LedgerError(f"tag {tag!r} has no finding in {self.path}")
