@@ -57,7 +57,7 @@ from calibra.progress import Progress
 class ModelErrorSettings:
     """How the search for wrong parameters samples and judges the week."""
 
-    sample_snapshots: int = 32  #: snapshots spread over the period
+    sample_snapshots: int = 16  #: snapshots spread over the period
     residual_threshold: float = 3.0  #: median |r|/σ that makes a point's residual consistent
     multiplier_threshold: float = 5.0  #: normalized multiplier worth a joint fit
     max_candidates: int = 200  #: parameters screened per round
