@@ -159,13 +159,19 @@ class FindingsView:
         return shown.drop(columns="_focus").reset_index(drop=True)
 
     def groups(self) -> list[tuple[str, list[tuple[str, pd.DataFrame]]]]:
-        """The visible findings grouped: [(substation, [(device, rows), ...]), ...]."""
+        """The visible findings grouped: [(substation, [(device, rows), ...]), ...]; a finding
+        without a device (an RTU's clock, a tap changer, a network-model parameter) is grouped
+        under its element."""
         shown = self.visible()
+        if shown.empty:
+            return []
+        element = shown["element"].fillna("").astype(str) if "element" in shown else ""
+        group = shown["device"].where(shown["device"] != "", element)
         out = []
         for sub in dict.fromkeys(shown["substation"]):
-            rows = shown[shown["substation"] == sub]
-            out.append((sub, [(dev, rows[rows["device"] == dev])
-                              for dev in dict.fromkeys(rows["device"])]))
+            here = shown["substation"] == sub
+            out.append((sub, [(dev, shown[here & (group == dev)])
+                              for dev in dict.fromkeys(group[here])]))
         return out
 
     # ---- choices for the filter widgets -------------------------------------------------

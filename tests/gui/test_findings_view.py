@@ -63,6 +63,17 @@ def test_order_puts_the_new_substation_first_then_groups():
     assert [d for d, _ in groups[1][1]] == ["AAA.1"]
 
 
+def test_a_finding_without_device_is_grouped_under_its_element():
+    """A network-model finding has no device: it is listed under its branch, not under an
+    empty group row (common practice, no source)."""
+    model = {**_finding("L7:x", "model", "BBB", ""), "element": "L7"}
+    view = FindingsView()
+    view.set_review(pd.concat([REVIEW, pd.DataFrame([model])], ignore_index=True))
+    groups = dict(dict(view.groups())["BBB"])
+    assert sorted(groups) == ["BBB.3", "L7"]
+    assert list(groups["L7"]["tag"]) == ["L7:x"]
+
+
 def test_filters():
     view = _view()
     view.filter = FindingFilter(kind="reversed")
