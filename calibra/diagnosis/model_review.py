@@ -22,9 +22,11 @@ from calibra.diagnosis.findings import NO_FAULT, Finding, FindingKind
 from calibra.diagnosis.model_errors import ModelErrorResult, ModelErrorSettings, find_model_errors
 from calibra.estimation.measurement_model import MeasurementModel
 from calibra.estimation.meter_or_model import Verdict
+from calibra.estimation.parameter_screening import meter_terms_around
 from calibra.estimation.period import PreparedPeriod
 from calibra.estimation.wls import Estimator
-from calibra.model.model_corrections import kept_parameters
+from calibra.io.model_corrections_file import MODEL_CORRECTIONS_FILE
+from calibra.model.model_corrections import ModelDecision, kept_parameters
 from calibra.model.parameters import ParameterKind, with_parameters
 from calibra.model.site import Site
 from calibra.progress import Progress
@@ -136,6 +138,22 @@ def model_findings(site: Site, results: list[ModelErrorResult]) -> list[Finding]
                      "objective_before": float(r.objective_before),
                      "objective_after": float(r.objective_after)}))
     return out
+
+
+def note_kept(findings: list[Finding], site: Site, model: MeasurementModel) -> None:
+    """Each meter finding beside a parameter the model's owner checked and keeps as it is
+    (``keep`` in the model-correction file) says so: the model was ruled out, the meter is the
+    suspect."""
+    for c in site.model_corrections:
+        if c.decision != ModelDecision.KEEP:
+            continue
+        rows = {i for t in meter_terms_around(model, c.parameter, ring=True) for i in t.rows}
+        beside = {str(model.tags[i]) for i in rows}
+        where = f", row {c.row}" if c.row is not None else ""
+        for f in findings:
+            if f.tag in beside and f.finding not in (FindingKind.MODEL, FindingKind.UNVERIFIABLE):
+                f.evidence += (f"; the model's owner checked the {c.parameter.label()} and keeps "
+                               f"it as it is ({MODEL_CORRECTIONS_FILE}{where}): not the model")
 
 
 def note_alternatives(findings: list[Finding], results: list[ModelErrorResult]) -> None:

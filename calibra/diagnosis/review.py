@@ -27,6 +27,7 @@ from calibra.diagnosis.model_review import (
     corrected_period,
     model_findings,
     note_alternatives,
+    note_kept,
     search_model,
 )
 from calibra.diagnosis.redundancy import not_observable_points, suggest_meters
@@ -298,6 +299,7 @@ def review_site(
     findings = build_findings(site, ev, diagnoses, mismaps, unverifiable)
     findings += clock_findings(clocks)
     note_alternatives(findings, model_errors)
+    note_kept(findings, site, period.estimator.model)
     findings += model_findings(site, model_errors)
     findings += tap_findings(site, taps.verdicts, period.index)
     outcomes = ev.period.outcomes
