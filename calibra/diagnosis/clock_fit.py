@@ -108,10 +108,13 @@ class _Misfits:
         return _chunk_sums(_huber(e), self.chunk_of[lo:hi], self.chunks), counts
 
 
-def _scaled(sums: dict[int, np.ndarray], counts: dict[int, np.ndarray]) -> dict:
-    """Each point's sums scaled to its number of snapshots at shift 0, so a shift that loses
+def _scaled(done: dict[int, tuple[np.ndarray, np.ndarray]]) -> dict[int, np.ndarray]:
+    """Each shift's chunk sums (``done``: shift → sums and counts, as :meth:`_Misfits.at`
+    gives them) scaled per point to its number of snapshots at shift 0, so a shift that loses
     a few rows at the ends is not favoured."""
-    return {s: v * (counts[0] / np.maximum(counts[s], 1))[None, :] for s, v in sums.items()}
+    at_zero = done[0][1]
+    return {s: sums * (at_zero / np.maximum(counts, 1))[None, :]
+            for s, (sums, counts) in done.items()}
 
 
 def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray,
@@ -122,7 +125,7 @@ def misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: np.ndarray
     (gaps in the index break the shift)."""
     calc = _Misfits(z, y, noise, regular, max_steps, chunks)
     done = {s: calc.at(s) for s in range(-max_steps, max_steps + 1)}
-    scaled = _scaled({s: v[0] for s, v in done.items()}, {s: v[1] for s, v in done.items()})
+    scaled = _scaled(done)
     return np.stack([scaled[s] for s in range(-max_steps, max_steps + 1)])
 
 
@@ -145,16 +148,13 @@ def searched_misfits(z: np.ndarray, y: np.ndarray, noise: np.ndarray, regular: n
     grid, spacing = coarse_shifts(max_steps)
     done = {s: calc.at(s) for s in grid}
 
-    def best() -> int:
-        scaled = _scaled({s: v[0] for s, v in done.items()}, {s: v[1] for s, v in done.items()})
-        return min(scaled, key=lambda s: scaled[s].sum())
-
-    centre = best()
+    coarse = _scaled(done)
+    centre = min(coarse, key=lambda s: coarse[s].sum())
     for s in range(max(-max_steps, centre - spacing + 1),
                    min(max_steps, centre + spacing - 1) + 1):
         if s not in done:
             done[s] = calc.at(s)
-    scaled = _scaled({s: v[0] for s, v in done.items()}, {s: v[1] for s, v in done.items()})
+    scaled = _scaled(done)
     known = np.array(sorted(scaled))
     values = np.stack([scaled[s] for s in known])  # known × chunks × points
     out = np.empty((2 * max_steps + 1,) + values.shape[1:])
