@@ -1,15 +1,17 @@
-"""Wrong network parameters behind a week's consistent residuals (not yet part of the review).
+"""Wrong network parameters behind a week's consistent residuals (the review's model pass,
+:mod:`calibra.diagnosis.model_review`).
 
-From a finished week evidence: a sample of the week's snapshots is estimated with every point;
-branch parameters near points with large consistent residuals are screened by their normalized
-Lagrange multipliers (:mod:`calibra.estimation.parameter_screening`); the strongest is
-estimated jointly with the sample's states and compared with the best one or two meter errors
-around it (:mod:`calibra.estimation.meter_or_model`). An accepted parameter is put into the
-model and the search repeated, up to a few errors. Each result names the parameter, the model's
-and the estimated value with its standard deviation, the points whose consistent residuals it
-explains, and — where a meter error explains the data as well — that meter and the meter that
-would separate them. Findings are advisory: the model owner checks the datasheet, nameplate or
-tap position before the model is changed.
+From a finished week evidence: a sample of the week's converged snapshots, at the evidence's
+own states (the points not set aside); branch parameters near points with large consistent
+residuals are screened by their normalized Lagrange multipliers
+(:mod:`calibra.estimation.parameter_screening`); the strongest is estimated jointly with the
+sample's states and compared with the best one or two meter errors around it
+(:mod:`calibra.estimation.meter_or_model`). An accepted parameter is put into the model and the
+search repeated, up to a few errors. Each result names the parameter, the model's and the
+estimated value with its standard deviation, the points whose consistent residuals it explains,
+and — where a meter error explains the data as well — that meter and the meter that would
+separate them. Findings are advisory: the model owner checks the datasheet, nameplate or tap
+position before the model is changed.
 """
 
 from __future__ import annotations
